@@ -1,0 +1,3 @@
+from kablate.cli import main
+
+main()

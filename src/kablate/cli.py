@@ -1,0 +1,263 @@
+"""The command line. Thin: it parses, calls the pipeline and prints."""
+
+from __future__ import annotations
+
+import json
+import re
+import shlex
+import sys
+import time
+from pathlib import Path
+
+import click
+
+from kablate import __version__
+from kablate.errors import KablateError, UsageError
+
+EPILOG_PLAN = """\b
+Example:
+  kablate plan sweeps/stem-size.toml
+  kablate plan sweeps/stem-size.toml --format json --latency > plan.json
+"""
+EPILOG_RUN = """\b
+Examples:
+  kablate run sweeps/quickstart.toml
+  kablate run sweeps/stem-size.toml --workers 2 --budget 8h
+  kablate run sweeps/stem-size.toml --storage postgresql://kablate@db-host/kablate
+Rerun the same command to continue a sweep: finished trials never run again.
+"""
+EPILOG_STATUS = """\b
+Example:
+  kablate status results/quickstart
+  kablate status results/quickstart --format json
+"""
+EPILOG_REPORT = """\b
+Example:
+  kablate report results/quickstart
+  kablate report results/quickstart --cost params --out /tmp/card
+"""
+
+
+def parse_duration(text: str) -> float:
+    """'8h', '90m', '2h30m', '45s' → seconds."""
+    match = re.fullmatch(r"\s*(?:(\d+)h)?\s*(?:(\d+)m)?\s*(?:(\d+)s)?\s*", text or "")
+    if not text or not match or not any(match.groups()):
+        raise UsageError(f"--budget must be a duration such as 8h, 90m or 2h30m, but got {text!r}")
+    h, m, s = (int(g) if g else 0 for g in match.groups())
+    return h * 3600 + m * 60 + s
+
+
+class KablateGroup(click.Group):
+    """Turns our usage errors into one line on stderr and exit code 2, with no traceback."""
+
+    def invoke(self, ctx: click.Context):
+        try:
+            return super().invoke(ctx)
+        except UsageError as exc:
+            click.echo(f"error: {exc}", err=True)
+            sys.exit(2)
+        except KablateError as exc:
+            click.echo(f"error: {exc}", err=True)
+            sys.exit(1)
+
+
+@click.group(cls=KablateGroup, context_settings={"help_option_names": ["-h", "--help"]})
+@click.version_option(__version__, prog_name="kablate")
+def main() -> None:
+    """kablate: kernel-size ablations of compact CNNs on a CPU.
+
+    Plan the variants and their costs, train every variant with several seeds, and write a
+    report with a recommended kernel plan and a model-card section.
+    """
+
+
+@main.command(epilog=EPILOG_PLAN)
+@click.argument("sweep", type=click.Path(path_type=Path))
+@click.option(
+    "--format",
+    "fmt",
+    type=click.Choice(["table", "json", "csv"]),
+    default="table",
+    show_default=True,
+    help="Output format.",
+)
+@click.option(
+    "--latency",
+    is_flag=True,
+    help="Also measure CPU latency (batch 1 and the recipe's batch size, median of repeats).",
+)
+@click.option(
+    "--threads",
+    type=click.IntRange(min=1),
+    default=None,
+    help="Threads for --latency (default: torch's).",
+)
+def plan(sweep: Path, fmt: str, latency: bool, threads: int | None) -> None:
+    """Expand a sweep into variants with their static costs, without training."""
+    from kablate.costs.catalog import build_catalog
+    from kablate.costs.export import catalog_csv, catalog_json, catalog_table
+    from kablate.spec.loader import load_sweep
+
+    catalog = build_catalog(load_sweep(sweep), latency=latency, threads=threads)
+    render = {"table": catalog_table, "json": catalog_json, "csv": catalog_csv}[fmt]
+    click.echo(render(catalog))
+
+
+@main.command(epilog=EPILOG_RUN)
+@click.argument("sweep", type=click.Path(path_type=Path))
+@click.option(
+    "--workers",
+    type=click.IntRange(min=1),
+    default=None,
+    help="Worker processes on this machine (default: one per core).",
+)
+@click.option(
+    "--threads",
+    type=click.IntRange(min=1),
+    default=None,
+    help="Threads per worker (default: cores // workers).",
+)
+@click.option(
+    "--storage",
+    default=None,
+    metavar="URL",
+    help="Study storage URL, e.g. postgresql://user@host/db (default: a journal "
+    "file in the results folder; also $KABLATE_STORAGE).",
+)
+@click.option(
+    "--budget",
+    default=None,
+    metavar="DURATION",
+    help="Wall-clock budget such as 8h, 90m or 2h30m: no trial starts that would overrun it.",
+)
+@click.option(
+    "--results",
+    "results_root",
+    type=click.Path(path_type=Path),
+    default=Path("results"),
+    show_default=True,
+    help="Output root.",
+)
+@click.option(
+    "--device",
+    default="cpu",
+    show_default=True,
+    help="torch device for training: cpu, or cuda when present.",
+)
+@click.option("--no-report", is_flag=True, help="Skip writing the report at the end.")
+def run(
+    sweep: Path,
+    workers: int | None,
+    threads: int | None,
+    storage: str | None,
+    budget: str | None,
+    results_root: Path,
+    device: str,
+    no_report: bool,
+) -> None:
+    """Train every (variant, seed) trial of a sweep, then write the report."""
+    from kablate.report.build import write_report
+    from kablate.trials.results import open_results
+    from kablate.trials.runner import RunOptions, run_sweep
+
+    if device.startswith("cuda"):
+        import torch
+
+        if not torch.cuda.is_available():
+            raise UsageError("--device cuda was asked for, but torch sees no CUDA device")
+    opts = RunOptions(
+        results_root=results_root,
+        storage=storage,
+        workers=workers or 0,
+        threads=threads or 0,
+        device=device,
+        budget_seconds=parse_duration(budget) if budget else 0.0,
+        command="kablate " + " ".join(shlex.quote(a) for a in sys.argv[1:]),
+    )
+    start = time.time()
+    summary = run_sweep(sweep, opts)
+    counts = ", ".join(f"{n} {s}" for s, n in sorted(summary.counts.items()))
+    if summary.n_ran == 0 and not summary.interrupted:
+        click.echo(
+            f"nothing new to train: all {summary.n_jobs} trials were already finished ({counts})"
+        )
+    else:
+        click.echo(f"ran {summary.n_ran} trials in {time.time() - start:.0f}s; sweep now: {counts}")
+    if summary.interrupted:
+        click.echo(
+            "stopped: the interrupted trial is back in the queue. Resume with the same "
+            f"command: {opts.command}",
+            err=True,
+        )
+    if not no_report:
+        path = write_report(open_results(summary.results_dir, storage))
+        click.echo(f"report: {path}")
+
+
+@main.command(epilog=EPILOG_STATUS)
+@click.argument("results", type=click.Path(path_type=Path))
+@click.option(
+    "--format", "fmt", type=click.Choice(["text", "json"]), default="text", show_default=True
+)
+@click.option(
+    "--storage",
+    default=None,
+    metavar="URL",
+    help="Study storage URL, if not the one recorded in the folder.",
+)
+def status(results: Path, fmt: str, storage: str | None) -> None:
+    """Show the progress of a results folder (safe while a run is going)."""
+    from kablate.trials.results import open_results
+    from kablate.trials.status import format_status, summarize
+
+    folder = open_results(results, storage)
+    rows, _ = folder.rows()
+    starts = [
+        t.datetime_start.timestamp()
+        for t in folder.study.get_trials(deepcopy=False)
+        if t.datetime_start is not None
+    ]
+    summary = summarize(folder.name, rows, min(starts) if starts else None, time.time())
+    if fmt == "json":
+        click.echo(json.dumps(summary.to_dict(), indent=2))
+    else:
+        click.echo(format_status(summary))
+
+
+@main.command(epilog=EPILOG_REPORT)
+@click.argument("results", type=click.Path(path_type=Path))
+@click.option(
+    "--out",
+    type=click.Path(path_type=Path),
+    default=None,
+    help="Where to write the report (default: RESULTS/report).",
+)
+@click.option(
+    "--cost",
+    type=click.Choice(["macs", "params", "latency"]),
+    default="macs",
+    show_default=True,
+    help="The cost the recommended plan minimises.",
+)
+@click.option(
+    "--within-se",
+    type=click.FloatRange(min=0),
+    default=1.0,
+    show_default=True,
+    help="Tolerance of the selection rule, in standard errors of the best variant.",
+)
+@click.option(
+    "--storage",
+    default=None,
+    metavar="URL",
+    help="Study storage URL, if not the one recorded in the folder.",
+)
+def report(
+    results: Path, out: Path | None, cost: str, within_se: float, storage: str | None
+) -> None:
+    """Rebuild the tables, plots and model-card section of a results folder."""
+    from kablate.report.build import write_report
+    from kablate.trials.results import open_results
+
+    path = write_report(open_results(results, storage), out, cost, within_se)
+    click.echo(f"report: {path}")

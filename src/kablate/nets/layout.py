@@ -1,0 +1,270 @@
+"""The architecture of a variant as plain data: blocks of layers with their shapes.
+
+This list is the single source of truth. `kablate.nets.build` turns it into a torch module and
+`kablate.costs` counts parameters, MACs and receptive fields from it, so the two cannot drift.
+Norm layers are not listed on their own: a conv with ``norm=True`` is followed by the network's
+norm, whose parameters are counted with that conv.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+from kablate.errors import PlanError
+from kablate.nets.padding import Pair, Quad, conv_out_size, get_padding, is_symmetric
+from kablate.plans.expand import Variant
+from kablate.plans.grammar import KernelSpec, stack_depth
+from kablate.plans.groups import list_slots, stage_names
+from kablate.spec.schema import NetworkSpec
+
+
+@dataclass(frozen=True)
+class Layer:
+    name: str
+    kind: str  # conv | pool | global_pool | linear
+    in_ch: int
+    out_ch: int
+    kernel: Pair
+    stride: Pair
+    padding: Quad  # top, bottom, left, right
+    dilation: Pair
+    groups: int
+    in_hw: Pair
+    out_hw: Pair
+    op: str = ""  # pools: "max" or "avg"
+    norm: bool = False  # followed by the network's norm layer
+    act: bool = False  # followed by the network's activation
+    bias: bool = False
+
+
+@dataclass(frozen=True)
+class Block:
+    """One slot's layers (or a pooling step, or the head). ``residual`` adds the input back."""
+
+    name: str
+    layers: tuple[Layer, ...]
+    residual: bool = False
+
+
+@dataclass(frozen=True)
+class Layout:
+    variant: str
+    in_shape: tuple[int, int, int]  # C, H, W
+    n_classes: int
+    blocks: tuple[Block, ...]
+    norm: str
+    norm_groups: int
+    act: str
+    dropout: float
+    warnings: tuple[str, ...] = field(default=(), compare=False)
+
+    @property
+    def layers(self) -> tuple[Layer, ...]:
+        return tuple(layer for block in self.blocks for layer in block.layers)
+
+
+class _Cursor:
+    """Threads channels and feature-map size through the layers as they are laid out."""
+
+    def __init__(self, variant: str, network: NetworkSpec, in_shape: tuple[int, int, int]):
+        self.variant, self.network = variant, network
+        self.ch, self.hw = in_shape[0], (in_shape[1], in_shape[2])
+        self.warnings: list[str] = []
+
+    def conv(
+        self,
+        name: str,
+        out_ch: int,
+        kernel: Pair,
+        stride: Pair = (1, 1),
+        dilation: Pair = (1, 1),
+        groups: int = 1,
+    ) -> Layer:
+        policy = self.network.padding
+        padding = get_padding(kernel, dilation, policy)
+        extent = (dilation[0] * (kernel[0] - 1) + 1, dilation[1] * (kernel[1] - 1) + 1)
+        if policy == "valid" and (extent[0] > self.hw[0] or extent[1] > self.hw[1]):
+            raise PlanError(
+                f"variant {self.variant}: layer {name} has a {kernel[0]}×{kernel[1]} kernel "
+                f"(extent {extent[0]}×{extent[1]}) but its input is only "
+                f"{self.hw[0]}×{self.hw[1]} under valid padding"
+            )
+        if not is_symmetric(padding):
+            self.warnings.append(
+                f"variant {self.variant}: layer {name}: the even {kernel[0]}×{kernel[1]} kernel "
+                f"is padded asymmetrically {padding} (top, bottom, left, right) under same "
+                "padding; its feature map shifts by half a pixel"
+            )
+        has_norm = self.network.norm != "none"
+        return self._emit(
+            Layer(
+                name,
+                "conv",
+                self.ch,
+                out_ch,
+                kernel,
+                stride,
+                padding,
+                dilation,
+                groups,
+                self.hw,
+                self._out(name, kernel, stride, padding, dilation),
+                norm=has_norm,
+                act=True,
+                bias=not has_norm,
+            )
+        )
+
+    def pool(self, name: str, op: str) -> Layer:
+        out = self._out(name, (2, 2), (2, 2), (0, 0, 0, 0), (1, 1))
+        return self._emit(
+            Layer(
+                name,
+                "pool",
+                self.ch,
+                self.ch,
+                (2, 2),
+                (2, 2),
+                (0, 0, 0, 0),
+                (1, 1),
+                1,
+                self.hw,
+                out,
+                op=op,
+            )
+        )
+
+    def head(self, n_classes: int) -> tuple[Layer, Layer]:
+        pool = self._emit(
+            Layer(
+                "head.pool",
+                "global_pool",
+                self.ch,
+                self.ch,
+                self.hw,
+                self.hw,
+                (0, 0, 0, 0),
+                (1, 1),
+                1,
+                self.hw,
+                (1, 1),
+                op="avg",
+            )
+        )
+        fc = self._emit(
+            Layer(
+                "head.fc",
+                "linear",
+                self.ch,
+                n_classes,
+                (1, 1),
+                (1, 1),
+                (0, 0, 0, 0),
+                (1, 1),
+                1,
+                (1, 1),
+                (1, 1),
+                bias=True,
+            )
+        )
+        return pool, fc
+
+    def _out(self, name: str, kernel: Pair, stride: Pair, padding: Quad, dilation: Pair) -> Pair:
+        out = (
+            conv_out_size(self.hw[0], kernel[0], stride[0], padding[0] + padding[1], dilation[0]),
+            conv_out_size(self.hw[1], kernel[1], stride[1], padding[2] + padding[3], dilation[1]),
+        )
+        if out[0] < 1 or out[1] < 1:
+            raise PlanError(
+                f"variant {self.variant}: layer {name} would make a feature map smaller than "
+                f"1×1 (input {self.hw[0]}×{self.hw[1]}, kernel {kernel[0]}×{kernel[1]}, "
+                f"stride {stride[0]}×{stride[1]})"
+            )
+        return out
+
+    def _emit(self, layer: Layer) -> Layer:
+        self.ch, self.hw = layer.out_ch, layer.out_hw
+        return layer
+
+
+def unit_layers(cur: _Cursor, name: str, spec: KernelSpec, out_ch: int, stride: int) -> list[Layer]:
+    """The layers that one slot becomes under a kernel spec's form."""
+    k, d, s = (spec.kh, spec.kw), (spec.dilation, spec.dilation), (stride, stride)
+    if spec.form == "dense":
+        return [cur.conv(name, out_ch, k, s, d)]
+    if spec.form == "stack":
+        n = stack_depth(spec)
+        return [
+            cur.conv(f"{name}.s{i}", out_ch, (3, 3), s if i == 0 else (1, 1), d) for i in range(n)
+        ]
+    if spec.form == "split":
+        return [
+            cur.conv(f"{name}.v", out_ch, (spec.kh, 1), (stride, 1), d),
+            cur.conv(f"{name}.h", out_ch, (1, spec.kw), (1, stride), d),
+        ]
+    if spec.form == "depthwise":
+        in_ch = cur.ch
+        return [
+            cur.conv(f"{name}.dw", in_ch, k, s, d, groups=in_ch),
+            cur.conv(f"{name}.pw", out_ch, (1, 1)),
+        ]
+    if spec.form == "bottleneck":
+        mid = max(1, out_ch // spec.ratio)
+        return [
+            cur.conv(f"{name}.reduce", mid, (1, 1)),
+            cur.conv(f"{name}.spatial", mid, k, s, d),
+            cur.conv(f"{name}.expand", out_ch, (1, 1)),
+        ]
+    raise AssertionError(f"unknown form {spec.form}")  # the grammar admits no other form
+
+
+def layout_network(
+    network: NetworkSpec, variant: Variant, in_shape: tuple[int, int, int], n_classes: int
+) -> Layout:
+    """Lay out ``variant`` on an input of ``in_shape``.
+
+    Raises:
+        PlanError: a feature map smaller than 1×1, or a kernel larger than its input under
+            ``valid`` padding, naming the variant, the layer, the input size and the kernel.
+    """
+    cur = _Cursor(variant.name, network, in_shape)
+    slots = {slot.name: slot for slot in list_slots(network)}
+    blocks = [
+        Block(
+            "stem",
+            tuple(
+                unit_layers(
+                    cur, "stem", variant.kernels["stem"], network.stem.out_ch, network.stem.stride
+                )
+            ),
+        )
+    ]
+    for stage, stage_name in zip(network.stages, stage_names(network), strict=True):
+        if stage.n_convs == 0 and stage.down not in ("maxpool", "avgpool"):
+            raise PlanError(
+                f"stage {stage_name} has no convs, so its `down` must be maxpool or "
+                f"avgpool, but got {stage.down}"
+            )
+        if stage.down in ("maxpool", "avgpool"):
+            pool = cur.pool(f"{stage_name}.pool", stage.down[:3])
+            blocks.append(Block(pool.name, (pool,)))
+        for i in range(stage.n_convs):
+            name = f"{stage_name}.{i}"
+            assert name in slots
+            stride = 2 if (stage.down == "stride" and i == 0) else 1
+            in_ch, in_hw = cur.ch, cur.hw
+            layers = unit_layers(cur, name, variant.kernels[name], stage.out_ch, stride)
+            same_shape = (in_ch, in_hw) == (cur.ch, cur.hw)
+            blocks.append(Block(name, tuple(layers), residual=stage.residual and same_shape))
+    blocks.append(Block("head", cur.head(n_classes)))
+    return Layout(
+        variant=variant.name,
+        in_shape=in_shape,
+        n_classes=n_classes,
+        blocks=tuple(blocks),
+        norm=network.norm,
+        norm_groups=network.norm_groups,
+        act=network.act,
+        dropout=network.dropout,
+        warnings=tuple(cur.warnings),
+    )

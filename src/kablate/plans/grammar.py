@@ -1,0 +1,97 @@
+"""The kernel-spec grammar: how one layer group's kernel is written in a plan.
+
+    spec  := size [ "d" dilation ] [ ":" form [ "/" ratio ] ]
+    size  := k | kh "x" kw            ("×" is accepted for "x")
+    form  := dense | stack | split | depthwise | bottleneck
+
+Examples: ``"3"``, ``"5x3"``, ``"3d2"`` (3×3, dilation 2), ``"7:stack"`` (three 3×3 convs, the
+stacking argument of Simonyan & Zisserman 2014, VGG), ``"5:split"`` (5×1 then 1×5, Szegedy et
+al. 2016, Inception-v3), ``"3:depthwise"`` (depthwise 3×3 + 1×1, Howard et al. 2017,
+MobileNets), ``"3:bottleneck/4"`` (1×1 reduce by 4 → 3×3 → 1×1 expand).
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass
+from typing import Literal
+
+Form = Literal["dense", "stack", "split", "depthwise", "bottleneck"]
+FORMS: tuple[str, ...] = ("dense", "stack", "split", "depthwise", "bottleneck")
+
+_SPEC_RE = re.compile(
+    r"^(?P<kh>\d+)(?:[x×](?P<kw>\d+))?(?:d(?P<dil>\d+))?(?::(?P<form>[a-z]+)(?:/(?P<ratio>\d+))?)?$"
+)
+GRAMMAR_HELP = (
+    'a kernel spec such as "3", "5x3", "3d2", "7:stack", "5:split", "3:depthwise" '
+    'or "3:bottleneck/4"'
+)
+
+
+class KernelSpecError(ValueError):
+    """A kernel spec string that does not parse; the message says what is allowed."""
+
+
+@dataclass(frozen=True, order=True)
+class KernelSpec:
+    kh: int
+    kw: int
+    dilation: int = 1
+    form: Form = "dense"
+    ratio: int = 4  # bottleneck reduction; ignored by other forms
+
+    @property
+    def is_plain_3x3(self) -> bool:
+        return (self.kh, self.kw, self.dilation, self.form) == (3, 3, 1, "dense")
+
+    @property
+    def extent(self) -> tuple[int, int]:
+        """The receptive extent of the spec: d·(k−1)+1 per axis, whatever the form."""
+        return (self.dilation * (self.kh - 1) + 1, self.dilation * (self.kw - 1) + 1)
+
+    def __str__(self) -> str:
+        size = f"{self.kh}" if self.kh == self.kw else f"{self.kh}x{self.kw}"
+        dil = f"d{self.dilation}" if self.dilation != 1 else ""
+        form = "" if self.form == "dense" else f":{self.form}"
+        ratio = f"/{self.ratio}" if self.form == "bottleneck" else ""
+        return f"{size}{dil}{form}{ratio}"
+
+
+def parse_kernel(text: str) -> KernelSpec:
+    """Parse one kernel spec; raise `KernelSpecError` with what is allowed."""
+    match = _SPEC_RE.match(text.strip().lower().replace(" ", ""))
+    if not match:
+        raise KernelSpecError(f"must be {GRAMMAR_HELP}")
+    kh = int(match["kh"])
+    kw = int(match["kw"]) if match["kw"] else kh
+    dilation = int(match["dil"]) if match["dil"] else 1
+    form = match["form"] or "dense"
+    if form not in FORMS:
+        raise KernelSpecError(f"names form `{form}`; the forms are {', '.join(FORMS)}")
+    if kh < 1 or kw < 1 or dilation < 1:
+        raise KernelSpecError("needs kernel sizes and dilation ≥ 1")
+    if match["ratio"] and form != "bottleneck":
+        raise KernelSpecError("gives a ratio, which only the bottleneck form takes")
+    ratio = int(match["ratio"]) if match["ratio"] else 4
+    if kh == kw == 1:
+        dilation = 1  # dilation has no effect on a 1×1 kernel; keep one spelling per network
+    if ratio < 1:
+        raise KernelSpecError("needs a bottleneck ratio ≥ 1")
+    spec = KernelSpec(kh, kw, dilation, form, ratio)  # type: ignore[arg-type]
+    _check_form(spec)
+    return spec
+
+
+def _check_form(spec: KernelSpec) -> None:
+    if spec.form == "stack" and (spec.kh != spec.kw or spec.kh % 2 == 0 or spec.kh < 3):
+        raise KernelSpecError(
+            "uses the stack form, which needs a square odd kernel ≥ 3 (k×k becomes (k−1)/2 "
+            "stacked 3×3 convs)"
+        )
+    if spec.form == "split" and 1 in (spec.kh, spec.kw):
+        raise KernelSpecError("uses the split form, which needs both sizes ≥ 2 (kh×1 then 1×kw)")
+
+
+def stack_depth(spec: KernelSpec) -> int:
+    """How many 3×3 convs the stack form uses: (k−1)/2, which keeps the receptive field."""
+    return (spec.kh - 1) // 2

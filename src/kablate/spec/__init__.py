@@ -1,0 +1,27 @@
+"""Sweep files and configs: load, validate, resolve includes."""
+
+from kablate.spec.loader import load_sweep
+from kablate.spec.schema import (
+    AugmentSpec,
+    DataSpec,
+    FilterSpec,
+    NetworkSpec,
+    PlanSpec,
+    RecipeSpec,
+    StageSpec,
+    StemSpec,
+    SweepSpec,
+)
+
+__all__ = [
+    "AugmentSpec",
+    "DataSpec",
+    "FilterSpec",
+    "NetworkSpec",
+    "PlanSpec",
+    "RecipeSpec",
+    "StageSpec",
+    "StemSpec",
+    "SweepSpec",
+    "load_sweep",
+]

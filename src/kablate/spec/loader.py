@@ -1,0 +1,202 @@
+"""Read a sweep file (TOML) and the configs it includes into a `SweepSpec`.
+
+Includes: the ``network`` and ``recipe`` tables may say ``from = "configs/..."``. The included
+file is read first and validated on its own (so its errors name it); keys written inline in
+the sweep then override it, table by table.
+"""
+
+from __future__ import annotations
+
+import re
+import tomllib
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from kablate.errors import SweepError
+from kablate.spec.fields import Where, check, read_table, read_value
+from kablate.spec.schema import (
+    DataSpec,
+    FilterSpec,
+    NetworkSpec,
+    PlanSpec,
+    RecipeSpec,
+    SweepSpec,
+)
+
+NAME_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]*$")
+
+
+def _slug(value: str) -> str | None:
+    return None if NAME_RE.match(value) else "must be letters, digits, '.', '_' or '-'"
+
+
+def _seeds(value: tuple[int, ...]) -> str | None:
+    if not value:
+        return "must list at least one seed"
+    if len(set(value)) != len(value) or min(value) < 0:
+        return "must be distinct integers ≥ 0"
+    return None
+
+
+@dataclass(frozen=True)
+class SweepTable:
+    """The ``[sweep]`` table."""
+
+    name: str = check(_slug)
+    seeds: tuple[int, ...] = check(_seeds, (0, 1, 2))
+    baseline: str = ""
+    story: str = ""
+
+
+TOP_LEVEL = ("sweep", "data", "network", "recipe", "plan", "grid", "filter")
+
+
+def load_sweep(path: str | Path) -> SweepSpec:
+    """Load, resolve and validate a sweep file.
+
+    Raises:
+        SweepError: for any syntax error, unknown key, wrong type or value out of range.
+    """
+    source = str(path)
+    raw = read_toml(Path(path), source)
+    where = Where(source)
+    for key in raw:
+        if key not in TOP_LEVEL:
+            read_table(_TopLevel, {key: None}, where)  # raises with a "did you mean"
+    if "sweep" not in raw:
+        raise SweepError(source, "sweep", "is required: a [sweep] table with at least `name`")
+    head = read_table(SweepTable, raw["sweep"], where.key("sweep"))
+    network_raw = resolve_include(raw.get("network", {}), NetworkSpec, Path(path), "network")
+    recipe_raw = resolve_include(raw.get("recipe", {}), RecipeSpec, Path(path), "recipe")
+    data = read_table(DataSpec, raw.get("data", {}), where.key("data"))
+    network = read_table(NetworkSpec, network_raw, where.key("network"))
+    recipe = read_table(RecipeSpec, recipe_raw, where.key("recipe"))
+    filters = read_table(FilterSpec, raw.get("filter", {}), where.key("filter"))
+    plans = read_plans(raw.get("plan", []), where.key("plan"))
+    grids = read_grids(raw.get("grid", []), where.key("grid"))
+    if not plans and not grids:
+        raise SweepError(source, "plan", "is missing: give at least one [[plan]] or [[grid]]")
+    resolved = dict(raw, network=network_raw, recipe=recipe_raw)
+    return SweepSpec(
+        name=head.name,
+        source=source,
+        seeds=head.seeds,
+        data=data,
+        network=network,
+        recipe=recipe,
+        plans=plans,
+        grids=grids,
+        filters=filters,
+        baseline=head.baseline,
+        story=head.story,
+        raw=resolved,
+    )
+
+
+@dataclass(frozen=True)
+class _TopLevel:
+    sweep: Any = None
+    data: Any = None
+    network: Any = None
+    recipe: Any = None
+    plan: Any = None
+    grid: Any = None
+    filter: Any = None
+
+
+def read_toml(path: Path, source: str) -> dict:
+    """Parse a TOML file; a syntax error names the file and the line."""
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise SweepError(source, "", "no such file") from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise SweepError(source, "", f"cannot be read ({exc})") from None
+    try:
+        return tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        match = re.search(r"\(at line (\d+), column (\d+)\)", str(exc))
+        line = int(match.group(1)) if match else None
+        reason = re.sub(r"\s*\(at line \d+, column \d+\)", "", str(exc))
+        raise SweepError(source, "", f"is not valid TOML: {reason}", line=line) from None
+
+
+def find_include(name: str, sweep_path: Path) -> Path | None:
+    """Where an included config is looked for: beside the sweep, one folder up, the cwd."""
+    for base in (sweep_path.parent, sweep_path.parent.parent, Path.cwd()):
+        candidate = base / name
+        if candidate.is_file():
+            return candidate
+    return None
+
+
+def resolve_include(table: Any, cls: type, sweep_path: Path, key: str) -> dict:
+    """Merge ``table`` over the file its ``from`` key names (if any) and return plain TOML."""
+    where = Where(str(sweep_path), key)
+    if not isinstance(table, dict):
+        raise where.fail("must be a table")
+    if "from" not in table:
+        return dict(table)
+    name = table["from"]
+    if not isinstance(name, str):
+        raise where.key("from").fail("must be a path to a TOML file, as a string")
+    found = find_include(name, sweep_path)
+    if found is None:
+        looked = f"{sweep_path.parent}, {sweep_path.parent.parent} and the current folder"
+        raise where.key("from").fail(f'names "{name}", which was not found in {looked}')
+    base = read_toml(found, str(found))
+    read_table(cls, base, Where(str(found)))  # the included file must be valid on its own
+    return merge(base, {k: v for k, v in table.items() if k != "from"})
+
+
+def merge(base: dict, over: dict) -> dict:
+    """Override ``base`` with ``over``; tables merge key by key, everything else is replaced."""
+    out = dict(base)
+    for key, value in over.items():
+        if isinstance(value, dict) and isinstance(out.get(key), dict):
+            out[key] = merge(out[key], value)
+        else:
+            out[key] = value
+    return out
+
+
+def read_plans(raw: Any, where: Where) -> tuple[PlanSpec, ...]:
+    if not isinstance(raw, list):
+        raise where.fail("must be an array of tables: write each plan as [[plan]]")
+    plans, seen = [], set()
+    for i, table in enumerate(raw):
+        at = where.key(i)
+        if not isinstance(table, dict):
+            raise at.fail("must be a table with `name` and one kernel spec per layer group")
+        if "name" not in table:
+            raise at.key("name").fail("is required: every explicit plan needs a name")
+        name = read_value(str, table["name"], at.key("name"))
+        if _slug(name) or name in seen:
+            raise at.key("name").fail(
+                f'must be a unique name of letters, digits, ".", "_", "-", but got "{name}"'
+            )
+        seen.add(name)
+        kernels = {g: read_value(str, v, at.key(g)) for g, v in table.items() if g != "name"}
+        if not kernels:
+            raise at.fail('gives no kernel spec: add e.g. stem = "5"')
+        plans.append(PlanSpec(name=name, kernels=kernels, line=at.path))
+    return tuple(plans)
+
+
+def read_grids(raw: Any, where: Where) -> tuple[dict[str, tuple[str, ...]], ...]:
+    if not isinstance(raw, list):
+        raise where.fail("must be an array of tables: write each grid as [[grid]]")
+    grids = []
+    for i, table in enumerate(raw):
+        at = where.key(i)
+        if not isinstance(table, dict) or not table:
+            raise at.fail('must be a table of layer group = ["3", "5", ...]')
+        axes = {}
+        for group, specs in table.items():
+            values = read_value(tuple[str, ...], specs, at.key(group))
+            if not values:
+                raise at.key(group).fail("must list at least one kernel spec")
+            axes[group] = values
+        grids.append(axes)
+    return tuple(grids)

@@ -1,0 +1,128 @@
+"""The typed, frozen settings a sweep file resolves to.
+
+One dataclass per concept: the data to train on, the base network, the training recipe, the
+kernel plans and the sweep around them. `kablate.spec.loader` fills them from TOML; every
+other package reads only these objects, never raw TOML.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Literal
+
+from kablate.spec.fields import at_least, below, between, check
+
+SourceName = Literal[
+    "digits", "mnist", "fashion-mnist", "kmnist", "cifar10", "cifar100", "svhn", "folder"
+]
+
+
+@dataclass(frozen=True)
+class DataSpec:
+    """Which images to train, validate and test on."""
+
+    source: SourceName = "digits"
+    root: str = "data"  # where torchvision sources and `folder` look; relative to the cwd
+    download: bool = False
+    train_size: int = check(at_least(0), 0)  # 0: all of the training pool
+    val_size: int = check(at_least(1), 300)
+    test_size: int = check(at_least(0), 0)  # 0: all of the test split
+    test_fraction: float = check(between(0.05, 0.5), 0.25)  # for sources with no test split
+    split_seed: int = check(at_least(0), 0)
+
+
+@dataclass(frozen=True)
+class StemSpec:
+    out_ch: int = check(at_least(1), 16)
+    kernel: str = "3"
+    stride: int = check(at_least(1), 1)
+
+
+@dataclass(frozen=True)
+class StageSpec:
+    """Consecutive convs at one resolution; ``down`` is applied at the stage's start."""
+
+    out_ch: int = check(at_least(1))
+    n_convs: int = check(at_least(0), 2)  # 0: a bare downsampling step (pooling only)
+    down: Literal["none", "maxpool", "avgpool", "stride"] = "none"
+    residual: bool = False
+    name: str = ""  # default: stage1, stage2, ...
+    kernel: str = ""  # default: the network's kernel
+
+
+@dataclass(frozen=True)
+class NetworkSpec:
+    """The base network that kernel plans rewrite. The input shape comes from the data."""
+
+    stem: StemSpec = field(default_factory=StemSpec)
+    stages: tuple[StageSpec, ...] = ()
+    kernel: str = "3"  # every conv's kernel spec unless the stem, a stage or a plan says otherwise
+    norm: Literal["batch", "group", "none"] = "batch"
+    norm_groups: int = check(at_least(1), 8)
+    act: Literal["relu", "gelu", "silu"] = "relu"
+    padding: Literal["same", "valid"] = "same"
+    dropout: float = check(below(1.0), 0.0)
+
+
+@dataclass(frozen=True)
+class AugmentSpec:
+    crop_padding: int = check(at_least(0), 0)  # random crop after zero-padding by this many pixels
+    hflip: bool = False
+
+
+@dataclass(frozen=True)
+class RecipeSpec:
+    """How every trial is trained. Identical for all variants of a sweep."""
+
+    epochs: int = check(at_least(1), 10)
+    max_steps: int = check(at_least(0), 0)  # 0: no cap; else stop after this many steps
+    batch_size: int = check(at_least(1), 64)
+    optimizer: Literal["sgd", "adamw"] = "sgd"
+    lr: float = check(between(1e-6, 10.0), 0.05)
+    momentum: float = check(below(1.0), 0.9)
+    weight_decay: float = check(between(0.0, 1.0), 5e-4)
+    schedule: Literal["cosine", "step", "constant"] = "cosine"
+    warmup_epochs: float = check(at_least(0, "a number"), 0.0)
+    step_every: int = check(at_least(1), 10)  # epochs between decays for `step`
+    step_gamma: float = check(between(0.0, 1.0), 0.1)
+    label_smoothing: float = check(below(1.0), 0.0)
+    augment: AugmentSpec = field(default_factory=AugmentSpec)
+    test_from: Literal["best", "last"] = "best"  # which epoch's weights test accuracy comes from
+
+
+@dataclass(frozen=True)
+class FilterSpec:
+    """Drop variants before anything trains. 0 means no limit."""
+
+    max_params: int = check(at_least(0), 0)
+    max_macs: int = check(at_least(0), 0)
+    min_rf: int = check(at_least(0), 0)
+    max_rf: int = check(at_least(0), 0)
+    equal_rf: bool = False  # keep only variants whose rf equals the baseline's
+
+
+@dataclass(frozen=True)
+class PlanSpec:
+    """One explicit kernel plan: a name and a kernel spec per layer group."""
+
+    name: str
+    kernels: dict[str, str]
+    line: str = ""  # where it came from, for messages: "plan[2]" or "grid[0]"
+
+
+@dataclass(frozen=True)
+class SweepSpec:
+    """A whole sweep: what to vary, what to hold fixed, and how many seeds."""
+
+    name: str
+    source: str  # the sweep file, as given
+    seeds: tuple[int, ...]
+    data: DataSpec
+    network: NetworkSpec
+    recipe: RecipeSpec
+    plans: tuple[PlanSpec, ...]  # explicit [[plan]] tables, in file order
+    grids: tuple[dict[str, tuple[str, ...]], ...]
+    filters: FilterSpec
+    baseline: str = ""  # a plan name; default: the all-3×3 variant
+    story: str = ""
+    raw: dict = field(default_factory=dict, compare=False, repr=False)  # resolved TOML

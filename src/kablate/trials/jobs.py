@@ -1,0 +1,34 @@
+"""Jobs: the (variant, seed) pairs of a sweep, in the order they should run.
+
+Every variant gets seed 0 before any variant gets seed 1, and so on, so a run that is cut
+short still holds a complete comparison at fewer seeds.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+
+@dataclass(frozen=True)
+class Job:
+    variant_id: str
+    variant: str
+    seed: int
+
+    @property
+    def key(self) -> str:
+        """Stable across reruns; names the trial's artifact folder."""
+        return f"{self.variant_id}-s{self.seed}"
+
+    def attrs(self) -> dict:
+        return {
+            "job": self.key,
+            "variant": self.variant,
+            "variant_id": self.variant_id,
+            "seed": self.seed,
+        }
+
+
+def order_jobs(variants: list[tuple[str, str]], seeds: tuple[int, ...]) -> list[Job]:
+    """Seed-major order over ``(variant_id, name)`` pairs."""
+    return [Job(vid, name, seed) for seed in seeds for vid, name in variants]

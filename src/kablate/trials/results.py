@@ -1,0 +1,49 @@
+"""Open an existing results folder: its recorded sweep, its plan, and its study."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+
+import optuna
+
+from kablate.errors import UsageError
+from kablate.trials.export import collect_trials
+from kablate.trials.meta import read_json
+from kablate.trials.store import open_study, resolve_url
+
+SWEEP_FILE = "sweep.json"
+PLAN_FILE = "plan.json"
+DATA_FILE = "data.json"
+
+
+@dataclass
+class ResultsFolder:
+    path: Path
+    meta: dict  # sweep.json
+    plan: dict  # plan.json
+    study: optuna.Study
+
+    def rows(self) -> tuple[list[dict], list[dict]]:
+        return collect_trials(self.study, self.plan)
+
+    @property
+    def name(self) -> str:
+        return self.meta["name"]
+
+
+def open_results(path: Path, storage: str | None = None) -> ResultsFolder:
+    """Open ``path`` (a ``results/<name>`` folder) and the study it was run on.
+
+    The storage is ``storage`` if given, else ``$KABLATE_STORAGE``, else the one recorded in
+    ``sweep.json`` (a recorded PostgreSQL URL has no password: libpq finds it in
+    ``PGPASSWORD`` or ``~/.pgpass``), else the folder's own journal file.
+    """
+    if not path.is_dir():
+        raise UsageError(
+            f"{path} is not a folder; give a results folder such as results/quickstart"
+        )
+    meta = read_json(path / SWEEP_FILE)
+    plan = read_json(path / PLAN_FILE)
+    url = resolve_url(storage) or meta.get("storage_url")
+    return ResultsFolder(path, meta, plan, open_study(meta["name"], path, url, create=False))

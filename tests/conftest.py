@@ -1,0 +1,76 @@
+"""Shared fixtures: tiny sweep files written into a temp folder."""
+
+from __future__ import annotations
+
+import textwrap
+from pathlib import Path
+
+import pytest
+
+REPO = Path(__file__).resolve().parent.parent
+
+TINY_NETWORK = """
+kernel = "3"
+norm = "batch"
+padding = "same"
+
+[stem]
+out_ch = 8
+
+[[stages]]
+out_ch = 8
+n_convs = 1
+
+[[stages]]
+out_ch = 16
+n_convs = 1
+down = "maxpool"
+"""
+
+TINY_RECIPE = """
+epochs = 2
+batch_size = 64
+lr = 0.05
+"""
+
+
+def write_sweep(folder: Path, body: str, name: str = "tiny") -> Path:
+    """Write a sweep file plus a tiny network and recipe it can include."""
+    (folder / "configs").mkdir(exist_ok=True)
+    (folder / "configs" / "tiny-net.toml").write_text(TINY_NETWORK)
+    (folder / "configs" / "tiny-recipe.toml").write_text(TINY_RECIPE)
+    path = folder / f"{name}.toml"
+    path.write_text(textwrap.dedent(body))
+    return path
+
+
+TINY_SWEEP = """
+[sweep]
+name = "tiny"
+seeds = [0, 1]
+
+[data]
+source = "digits"
+train_size = 200
+val_size = 100
+test_size = 100
+
+[network]
+from = "configs/tiny-net.toml"
+
+[recipe]
+from = "configs/tiny-recipe.toml"
+
+[[plan]]
+name = "all-3"
+body = "3"
+
+[[plan]]
+name = "stem-5"
+stem = "5"
+"""
+
+
+@pytest.fixture
+def tiny_sweep(tmp_path: Path) -> Path:
+    return write_sweep(tmp_path, TINY_SWEEP)

@@ -1,0 +1,81 @@
+"""Sweep files: includes, overrides, and one clear error for anything wrong."""
+
+from __future__ import annotations
+
+import pytest
+
+from kablate.errors import SweepError
+from kablate.spec import load_sweep
+from tests.conftest import REPO, TINY_SWEEP, write_sweep
+
+
+def test_includes_resolve_and_inline_keys_override(tmp_path):
+    path = write_sweep(
+        tmp_path,
+        TINY_SWEEP.replace(
+            'from = "configs/tiny-recipe.toml"', 'from = "configs/tiny-recipe.toml"\nepochs = 5'
+        ),
+    )
+    sweep = load_sweep(path)
+    assert sweep.recipe.epochs == 5  # inline override
+    assert sweep.recipe.lr == 0.05  # from the included recipe
+    assert sweep.network.stem.out_ch == 8
+    assert [s.out_ch for s in sweep.network.stages] == [8, 16]
+    assert [p.name for p in sweep.plans] == ["all-3", "stem-5"]
+
+
+def test_every_shipped_sweep_loads():
+    paths = sorted((REPO / "sweeps").glob("*.toml"))
+    assert paths, "sweeps/ ships no sweep files"
+    for path in paths:
+        assert load_sweep(path).name == path.stem
+
+
+@pytest.mark.parametrize(
+    ("old", "new", "key", "words"),
+    [
+        ("epochs = 5", "epoch = 5", "recipe.epoch", ["did you mean `epochs`"]),
+        ("val_size = 100", "val_sise = 100", "data.val_sise", ["did you mean `val_size`"]),
+        ("epochs = 5", "epochs = 0", "recipe.epochs", ["≥ 1", "got 0"]),
+        ("epochs = 5", 'epochs = "five"', "recipe.epochs", ["an integer", '"five"']),
+        ('source = "digits"', 'source = "digts"', "data.source", ["did you mean `digits`"]),
+        ("seeds = [0, 1]", "seeds = [1, 1]", "sweep.seeds", ["distinct"]),
+        ('[[plan]]\nname = "all-3"', '[[plans]]\nname = "all-3"', "plans", ["did you mean `plan`"]),
+    ],
+)
+def test_bad_values_name_file_key_value_and_what_is_allowed(tmp_path, old, new, key, words):
+    base = TINY_SWEEP.replace(
+        'from = "configs/tiny-recipe.toml"', 'from = "configs/tiny-recipe.toml"\nepochs = 5'
+    )
+    assert old in base
+    path = write_sweep(tmp_path, base.replace(old, new, 1))
+    with pytest.raises(SweepError) as info:
+        load_sweep(path)
+    message = str(info.value)
+    assert str(path) in message
+    assert f"`{key}`" in message
+    for word in words:
+        assert word in message
+
+
+def test_syntax_error_names_the_line(tmp_path):
+    path = write_sweep(tmp_path, TINY_SWEEP.replace("seeds = [0, 1]", "seeds = = [0, 1]"))
+    with pytest.raises(SweepError) as info:
+        load_sweep(path)
+    assert info.value.line == 4
+    assert f"{path}, line 4" in str(info.value)
+
+
+def test_missing_include_says_where_it_looked(tmp_path):
+    path = write_sweep(tmp_path, TINY_SWEEP.replace("tiny-net.toml", "nowhere.toml"))
+    with pytest.raises(SweepError, match="nowhere.toml.*not found"):
+        load_sweep(path)
+
+
+def test_error_inside_an_included_file_names_that_file(tmp_path):
+    path = write_sweep(tmp_path, TINY_SWEEP)
+    (tmp_path / "configs" / "tiny-recipe.toml").write_text("epochs = 2\nbatch_sise = 3\n")
+    with pytest.raises(SweepError) as info:
+        load_sweep(path)
+    assert "tiny-recipe.toml" in str(info.value)
+    assert "did you mean `batch_size`" in str(info.value)

@@ -1,0 +1,65 @@
+"""The command line as a user meets it: verbs, help, version, and clean errors."""
+
+from __future__ import annotations
+
+import shutil
+import subprocess
+import sys
+
+from kablate import __version__
+from tests.conftest import REPO
+
+
+def kablate(*args: str, cwd=REPO) -> subprocess.CompletedProcess:
+    return subprocess.run(
+        [sys.executable, "-m", "kablate", *args],
+        capture_output=True,
+        text=True,
+        cwd=cwd,
+        timeout=300,
+    )
+
+
+def test_help_lists_the_verbs():
+    out = kablate("--help")
+    assert out.returncode == 0
+    for verb in ("plan", "run", "status", "report"):
+        assert f"  {verb} " in out.stdout
+
+
+def test_every_verb_has_help_with_an_example():
+    for verb in ("plan", "run", "status", "report"):
+        out = kablate(verb, "--help")
+        assert out.returncode == 0, out.stderr
+        assert "Example" in out.stdout and f"kablate {verb}" in out.stdout
+
+
+def test_version():
+    out = kablate("--version")
+    assert out.returncode == 0 and __version__ in out.stdout
+
+
+def test_misspelt_key_in_a_copy_of_the_quickstart_exits_2_without_traceback(tmp_path):
+    copy = tmp_path / "quickstart.toml"
+    shutil.copy(REPO / "sweeps" / "quickstart.toml", copy)
+    text = copy.read_text()
+    assert "val_size" in text
+    copy.write_text(text.replace("val_size", "val_sizes", 1))
+    out = kablate("plan", str(copy))
+    assert out.returncode == 2
+    assert "Traceback" not in out.stderr
+    assert str(copy) in out.stderr
+    assert "`data.val_sizes`" in out.stderr
+    assert "did you mean `val_size`" in out.stderr
+
+
+def test_plan_prints_every_format_for_the_quickstart():
+    for fmt in ("table", "json", "csv"):
+        out = kablate("plan", "sweeps/quickstart.toml", "--format", fmt)
+        assert out.returncode == 0, out.stderr
+        assert "all-3" in out.stdout
+
+
+def test_missing_results_folder_is_a_usage_error(tmp_path):
+    out = kablate("status", str(tmp_path / "nothing"))
+    assert out.returncode == 2 and "Traceback" not in out.stderr

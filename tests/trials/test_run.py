@@ -1,0 +1,71 @@
+"""The walking skeleton end to end: sweep file → trials → tables → report."""
+
+from __future__ import annotations
+
+import csv
+
+import pytest
+
+from kablate.errors import UsageError
+from kablate.report import write_report
+from kablate.trials import RunOptions, open_results, run_sweep
+
+CONTRACT = (
+    "variant",
+    "seed",
+    "status",
+    "val_acc",
+    "test_acc",
+    "params",
+    "macs",
+    "rf",
+    "train_seconds",
+)
+
+
+@pytest.mark.slow
+def test_run_writes_the_results_contract_and_a_rerun_trains_nothing(tiny_sweep, tmp_path):
+    opts = RunOptions(results_root=tmp_path / "results", workers=1, show_progress=False)
+    first = run_sweep(tiny_sweep, opts)
+    assert first.n_jobs == 4 and first.n_ran == 4
+    assert first.counts == {"done": 4}
+    folder = first.results_dir
+    with (folder / "trials.csv").open() as fh:
+        rows = list(csv.DictReader(fh))
+    assert len(rows) == 4
+    assert set(CONTRACT) <= set(rows[0])
+    assert {(r["variant"], r["seed"]) for r in rows} == {
+        ("all-3", "0"),
+        ("all-3", "1"),
+        ("stem-5", "0"),
+        ("stem-5", "1"),
+    }
+    assert all(0.0 <= float(r["val_acc"]) <= 1.0 for r in rows)
+
+    card = write_report(open_results(folder))
+    assert card == folder / "report" / "model_card.md"
+    assert list((folder / "report").glob("*.png"))
+    with (folder / "variants.csv").open() as fh:
+        variants = list(csv.DictReader(fh))
+    assert [v["variant"] for v in variants] == ["all-3", "stem-5"]
+    assert all(v["n_seeds"] == "2" for v in variants)
+
+    again = run_sweep(tiny_sweep, opts)
+    assert again.n_ran == 0 and again.n_new == 0
+
+
+@pytest.mark.slow
+def test_changed_recipe_is_refused_and_a_new_seed_runs_alone(tiny_sweep, tmp_path):
+    opts = RunOptions(results_root=tmp_path / "results", workers=1, show_progress=False)
+    run_sweep(tiny_sweep, opts)
+    text = tiny_sweep.read_text()
+    tiny_sweep.write_text(
+        text.replace(
+            'from = "configs/tiny-recipe.toml"', 'from = "configs/tiny-recipe.toml"\nlr = 0.1'
+        )
+    )
+    with pytest.raises(UsageError, match=r"recipe.lr: 0.05 → 0.1"):
+        run_sweep(tiny_sweep, opts)
+    tiny_sweep.write_text(text.replace("seeds = [0, 1]", "seeds = [0, 1, 2]"))
+    more = run_sweep(tiny_sweep, opts)
+    assert more.n_ran == 2 and more.counts == {"done": 6}
