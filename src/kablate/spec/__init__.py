@@ -1,6 +1,6 @@
 """Sweep files and configs: load, validate, resolve includes."""
 
-from kablate.spec.loader import load_sweep
+from kablate.spec.loader import load_sweep, sweep_from_dict
 from kablate.spec.schema import (
     AugmentSpec,
     DataSpec,
@@ -24,4 +24,5 @@ __all__ = [
     "StemSpec",
     "SweepSpec",
     "load_sweep",
+    "sweep_from_dict",
 ]

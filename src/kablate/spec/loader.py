@@ -58,8 +58,16 @@ def load_sweep(path: str | Path) -> SweepSpec:
     Raises:
         SweepError: for any syntax error, unknown key, wrong type or value out of range.
     """
+    return sweep_from_dict(read_toml(Path(path), str(path)), Path(path))
+
+
+def sweep_from_dict(raw: dict, path: Path) -> SweepSpec:
+    """Validate an already-parsed sweep (``path`` names it in errors and anchors includes).
+
+    A resolved sweep, as saved in ``results/<name>/sweep.json``, has no includes left, so
+    this rebuilds the exact `SweepSpec` a results folder was produced from.
+    """
     source = str(path)
-    raw = read_toml(Path(path), source)
     where = Where(source)
     for key in raw:
         if key not in TOP_LEVEL:
@@ -67,8 +75,8 @@ def load_sweep(path: str | Path) -> SweepSpec:
     if "sweep" not in raw:
         raise SweepError(source, "sweep", "is required: a [sweep] table with at least `name`")
     head = read_table(SweepTable, raw["sweep"], where.key("sweep"))
-    network_raw = resolve_include(raw.get("network", {}), NetworkSpec, Path(path), "network")
-    recipe_raw = resolve_include(raw.get("recipe", {}), RecipeSpec, Path(path), "recipe")
+    network_raw = resolve_include(raw.get("network", {}), NetworkSpec, path, "network")
+    recipe_raw = resolve_include(raw.get("recipe", {}), RecipeSpec, path, "recipe")
     data = read_table(DataSpec, raw.get("data", {}), where.key("data"))
     network = read_table(NetworkSpec, network_raw, where.key("network"))
     recipe = read_table(RecipeSpec, recipe_raw, where.key("recipe"))
