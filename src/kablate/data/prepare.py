@@ -1,0 +1,98 @@
+"""Turn a `DataSpec` into the train, validation and test tensors every trial of a sweep uses.
+
+Model selection uses validation only. Normalisation statistics come from the training subset
+only. The indices of every split are kept so that a report can say exactly what data was used.
+"""
+
+from __future__ import annotations
+
+import hashlib
+from dataclasses import dataclass
+
+import numpy as np
+import torch
+
+from kablate.data.sources import SOURCES, ImageSet
+from kablate.data.splits import balanced_subset, stratified_split
+from kablate.spec.schema import DataSpec
+
+
+@dataclass(frozen=True)
+class Split:
+    images: torch.Tensor  # normalised float32, (N, C, H, W)
+    labels: torch.Tensor
+    indices: np.ndarray  # into the source's pool it came from
+
+
+@dataclass(frozen=True)
+class PreparedData:
+    spec: DataSpec
+    train: Split
+    val: Split
+    test: Split
+    classes: tuple[str, ...]
+    mean: tuple[float, ...]
+    std: tuple[float, ...]
+    test_pool: str  # "test split" or "held out from the training pool"
+
+    @property
+    def in_shape(self) -> tuple[int, int, int]:
+        c, h, w = self.train.images.shape[1:]
+        return int(c), int(h), int(w)
+
+    @property
+    def n_classes(self) -> int:
+        return len(self.classes)
+
+    def manifest(self) -> dict:
+        """What data was used, for the results folder and the report."""
+        def digest(split: Split) -> str:
+            return hashlib.sha1(split.indices.astype(np.int64).tobytes()).hexdigest()[:12]
+
+        return {
+            "source": self.spec.source,
+            "test_pool": self.test_pool,
+            "sizes": {"train": len(self.train.labels), "val": len(self.val.labels),
+                      "test": len(self.test.labels)},
+            "n_classes": self.n_classes,
+            "in_shape": list(self.in_shape),
+            "mean": list(self.mean),
+            "std": list(self.std),
+            "indices_sha1": {"train": digest(self.train), "val": digest(self.val),
+                             "test": digest(self.test)},
+            "indices": {"train": self.train.indices.tolist(), "val": self.val.indices.tolist(),
+                        "test": self.test.indices.tolist()},
+        }
+
+
+def prepare_data(spec: DataSpec) -> PreparedData:
+    """Load the source and cut the fixed-seed, class-balanced splits."""
+    pools = SOURCES[spec.source].read(spec)
+    pool = pools.train
+    labels = pool.labels.numpy()
+    if pools.test is None:
+        rest, test_idx = stratified_split(labels, spec.test_fraction, spec.split_seed)
+        test_set, test_pool = pool, "held out from the training pool (stratified)"
+    else:
+        rest, test_set = np.arange(len(labels)), pools.test
+        test_idx, test_pool = np.arange(len(test_set.labels)), "the source's test split"
+    val_idx, rest = balanced_subset(labels, rest, spec.val_size, spec.split_seed + 1, "val_size")
+    train_idx, _ = balanced_subset(labels, rest, spec.train_size, spec.split_seed + 2,
+                                   "train_size")
+    test_idx, _ = balanced_subset(test_set.labels.numpy(), test_idx, spec.test_size,
+                                  spec.split_seed + 3, "test_size")
+    train_images = pool.images[torch.from_numpy(train_idx)]
+    mean = train_images.mean(dim=(0, 2, 3))
+    std = train_images.std(dim=(0, 2, 3)).clamp_min(1e-6)
+
+    def cut(source: ImageSet, idx: np.ndarray) -> Split:
+        t = torch.from_numpy(idx)
+        images = (source.images[t] - mean[None, :, None, None]) / std[None, :, None, None]
+        return Split(images.contiguous(), source.labels[t].clone(), idx)
+
+    return PreparedData(
+        spec=spec, train=cut(pool, train_idx), val=cut(pool, val_idx),
+        test=cut(test_set, test_idx), classes=pool.classes,
+        mean=tuple(float(m) for m in mean), std=tuple(float(s) for s in std),
+        test_pool=test_pool,
+    )
