@@ -101,6 +101,11 @@ def plan(sweep: Path, fmt: str, latency: bool, threads: int | None) -> None:
     catalog = build_catalog(load_sweep(sweep), latency=latency, threads=threads)
     render = {"table": catalog_table, "json": catalog_json, "csv": catalog_csv}[fmt]
     click.echo(render(catalog))
+    if fmt != "table":  # the table lists them; keep JSON and CSV parseable on stdout
+        for item, reason in catalog.dropped:
+            click.echo(f"dropped {item.name}: {reason}", err=True)
+        for warning in catalog.warnings:
+            click.echo(f"warning: {warning}", err=True)
 
 
 @main.command(epilog=EPILOG_RUN)

@@ -8,7 +8,8 @@ from kablate.costs.latency import Latency, measure_latency
 from kablate.costs.static import StaticCost, static_cost
 from kablate.data.sources import describe_source
 from kablate.nets.layout import layout_network
-from kablate.plans.expand import Variant, expand_plans, pick_baseline
+from kablate.nets.padding import is_symmetric
+from kablate.plans.expand import Variant, expand_plans, pick_baseline, with_alias
 from kablate.plans.filters import filter_reason
 from kablate.spec.schema import SweepSpec
 
@@ -55,12 +56,23 @@ def build_catalog(
     """
     if in_shape is None or n_classes is None:
         in_shape, n_classes = describe_source(sweep.data)
-    costed = []
-    for variant in expand_plans(sweep):
+    variants = expand_plans(sweep)
+    base_name = pick_baseline(sweep, variants).name  # before merging: an all-3×3 spec wins
+    costed: list[CostedVariant] = []
+    by_signature: dict[tuple, int] = {}
+    for variant in variants:
         layout = layout_network(sweep.network, variant, in_shape, n_classes)
+        first = by_signature.get(layout.signature)
+        if first is not None:  # different specs, same layers: one variant, the name an alias
+            earlier = costed[first]
+            merged = with_alias(earlier.variant, variant.name)
+            for alias in variant.aliases:
+                merged = with_alias(merged, alias)
+            costed[first] = CostedVariant(merged, earlier.cost)
+            continue
+        by_signature[layout.signature] = len(costed)
         costed.append(CostedVariant(variant, static_cost(layout, sweep.recipe.batch_size)))
-    base_variant = pick_baseline(sweep, [c.variant for c in costed])
-    baseline = next(c for c in costed if c.variant is base_variant)
+    baseline = next(c for c in costed if base_name == c.name or base_name in c.variant.aliases)
     kept, dropped = [], []
     for item in costed:
         reason = filter_reason(
@@ -75,5 +87,24 @@ def build_catalog(
             item.latency = measure_latency(
                 item.cost.layout, sweep.recipe.batch_size, threads=threads
             )
-    warnings = [w for item in kept for w in item.cost.layout.warnings]
-    return Catalog(sweep, in_shape, n_classes, kept, baseline, dropped, warnings)
+    return Catalog(sweep, in_shape, n_classes, kept, baseline, dropped, padding_warnings(kept))
+
+
+def padding_warnings(items: list[CostedVariant], n_named: int = 4) -> list[str]:
+    """One warning per even-kernel layer padded asymmetrically, naming the variants it is in."""
+    where: dict[tuple, list[str]] = {}
+    for item in items:
+        for layer in item.cost.layout.layers:
+            if layer.kind == "conv" and not is_symmetric(layer.padding):
+                key = (layer.name, layer.kernel, layer.dilation, layer.padding)
+                where.setdefault(key, []).append(item.name)
+    out = []
+    for (name, (kh, kw), _, padding), names in where.items():
+        shown = ", ".join(names[:n_named])
+        more = f" and {len(names) - n_named} more" if len(names) > n_named else ""
+        out.append(
+            f"layer {name}: the even {kh}×{kw} kernel is padded {padding} (top, bottom, left, "
+            f"right) under same padding, so its feature map shifts by half a pixel "
+            f"(in {shown}{more})"
+        )
+    return out

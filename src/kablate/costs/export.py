@@ -5,6 +5,7 @@ from __future__ import annotations
 import csv
 import io
 import json
+import textwrap
 
 from kablate.costs.catalog import Catalog, CostedVariant
 from kablate.costs.static import LayerCost
@@ -69,6 +70,8 @@ CSV_COLUMNS = (
     "out_hw",
     "act_mem_bytes",
     "latency_ms",
+    "latency_batch_ms",
+    "latency_threads",
     "plan",
 )
 
@@ -93,33 +96,69 @@ def human(n: float) -> str:
     return f"{n:.0f}"
 
 
+TABLE_WIDTH = 100
+NAME_WIDTH = 28
+
+
+def _wrap(text: str) -> list[str]:
+    return textwrap.wrap(text, TABLE_WIDTH, subsequent_indent="    ", break_on_hyphens=False)
+
+
+def _latency_cells(item: CostedVariant) -> str:
+    if item.latency is None:
+        return f"{'-':>7} {'-':>8}"
+    return f"{item.latency.batch1_ms:7.2f} {item.latency.batch_ms:8.2f}"
+
+
 def catalog_table(catalog: Catalog) -> str:
-    """Variants sorted by MACs, cheapest first, with cost relative to the baseline."""
+    """Variants sorted by MACs (then params), cheapest first, with cost relative to the
+    baseline; at most 100 columns. A name too long for its column gets a line of its own."""
     sweep, base = catalog.sweep, catalog.baseline.cost
     c, h, w = catalog.in_shape
-    lines = [
-        f"sweep {sweep.name}: {len(catalog.variants)} variants x {len(sweep.seeds)} seeds "
-        f"on {sweep.data.source} ({c}x{h}x{w}), batch {sweep.recipe.batch_size}",
-        f"baseline: {catalog.baseline.name}   costs before training; FLOPs = 2 x MACs",
+    batch = sweep.recipe.batch_size
+    lines = _wrap(
+        f"sweep {sweep.name}: {len(catalog.variants)} variants x {len(sweep.seeds)} seeds on "
+        f"{sweep.data.source} ({c}x{h}x{w}), batch {batch}"
+    )
+    lines += _wrap(f"costs before training, baseline {catalog.baseline.name} (*); FLOPs = 2 x MACs")
+    lines += [
         "",
-        f"{'variant':<30} {'MACs':>7} {'xbase':>6} {'params':>7} {'rf':>4} {'jump':>4} "
-        f"{'map':>5} {'act mem':>8} {'lat ms':>7}",
-        "-" * 86,
+        f"{'variant':<{NAME_WIDTH + 1}} {'MACs':>7} {'xbase':>6} {'params':>7} {'rf':>4} "
+        f"{'jump':>4} {'map':>5} {'act mem':>8} {'ms @1':>7} {f'ms @{batch}':>8}",
     ]
+    rule = "-" * len(lines[-1])
+    lines.append(rule)
     for item in sorted(catalog.variants, key=lambda v: (v.cost.macs, v.cost.params, v.name)):
         cost = item.cost
-        name = item.name if len(item.name) <= 30 else item.name[:29] + "~"
         mark = "*" if item is catalog.baseline else " "
-        lat = f"{item.latency.batch1_ms:7.2f}" if item.latency else f"{'-':>7}"
+        name = item.name
+        if len(name) > NAME_WIDTH:
+            lines += textwrap.wrap(f"{name}{mark}".rstrip(), TABLE_WIDTH)
+            name = ""
+        shape = f"{cost.out_hw[0]}x{cost.out_hw[1]}"
         lines.append(
-            f"{name:<29}{mark} {human(cost.macs):>7} {cost.macs / max(1, base.macs):>6.2f} "
-            f"{human(cost.params):>7} {cost.rf:>4} {cost.jump:>4} "
-            f"{cost.out_hw[0]:>2}x{cost.out_hw[1]:<2} {human(cost.act_mem_bytes) + 'B':>8} {lat}"
+            f"{name:<{NAME_WIDTH}}{mark} {human(cost.macs):>7} "
+            f"{cost.macs / max(1, base.macs):>6.2f} {human(cost.params):>7} {cost.rf:>4} "
+            f"{cost.jump:>4} {shape:>5} {human(cost.act_mem_bytes) + 'B':>8} "
+            f"{_latency_cells(item)}"
         )
-    lines.append("-" * 86)
-    lines.append("* baseline.  rf and jump at the head's global pool, in input pixels.")
+    lines.append(rule)
+    lines += _wrap(
+        "rf and jump: receptive field and effective stride at the input of the head's global "
+        "pool, in input pixels. map: the feature map pooled there. act mem: what one training "
+        f"step keeps for backward at batch {batch}. ms: CPU latency (--latency)."
+    )
+    if any(item.latency for item in catalog.variants):
+        lat = next(item.latency for item in catalog.variants if item.latency)
+        lines += _wrap(
+            f"latency: median of {lat.repeats} timed passes at batch 1 and {lat.batch_repeats} "
+            f"at batch {lat.batch_size}, eval mode, {lat.threads} threads"
+        )
+    for item in catalog.variants:
+        if item.variant.aliases:
+            lines += _wrap(f"same network: {item.name} = {', '.join(item.variant.aliases)}")
     for item, reason in catalog.dropped:
-        lines.append(f"dropped {item.name}: {reason}")
-    for warning in dict.fromkeys(catalog.warnings):
-        lines.append(f"warning: {warning}")
+        lines += _wrap(f"dropped {item.name}: {reason}")
+    for warning in catalog.warnings:
+        lines += _wrap(f"warning: {warning}")
     return "\n".join(lines)

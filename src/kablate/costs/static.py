@@ -9,15 +9,16 @@ Conventions (also in sweeps/README.md):
 - The receptive field follows the recurrence of Araujo, Norris & Sim 2019 (Distill):
   r ← r + (k_eff − 1)·j and j ← j·s per layer, with k_eff = d·(k − 1) + 1. Residual shortcuts
   never see further than the main path, so the main path gives the receptive field.
+- Activation memory is what autograd keeps for backward in one training step; see
+  `kablate.costs.memory`.
 """
 
 from __future__ import annotations
 
 from dataclasses import dataclass
 
+from kablate.costs.memory import saved_activation_bytes
 from kablate.nets.layout import Layer, Layout
-
-BYTES_PER_VALUE = 4  # fp32
 
 
 @dataclass(frozen=True)
@@ -39,7 +40,7 @@ class StaticCost:
     rf_hw: tuple[int, int]
     jump: int
     out_hw: tuple[int, int]  # the feature map the head pools over
-    act_mem_bytes: int  # one training step at ``batch_size``
+    act_mem_bytes: int  # saved for backward by one training step at ``batch_size``
 
     @property
     def flops(self) -> int:
@@ -63,27 +64,6 @@ def count_macs(layer: Layer) -> int:
     if layer.kind == "linear":
         return layer.in_ch * layer.out_ch
     return 0
-
-
-def activation_values(layout: Layout) -> int:
-    """Values one sample keeps for the backward pass: the input plus every layer's outputs.
-
-    A conv followed by a norm and an activation keeps three maps (conv out, norm out, act
-    out), a max-pool keeps its output and its int64 indices (counted as two values). This is
-    the forward-output total, an upper bound of what autograd saves, and the usual way to
-    budget training memory (common practice).
-    """
-    c, h, w = layout.in_shape
-    total = c * h * w
-    for layer in layout.layers:
-        size = layer.out_ch * layer.out_hw[0] * layer.out_hw[1]
-        if layer.kind == "conv":
-            total += size * (1 + int(layer.norm) + int(layer.act))
-        elif layer.kind == "pool":
-            total += size * (3 if layer.op == "max" else 1)  # int64 indices = 2 fp32 values
-        else:
-            total += size
-    return total
 
 
 def static_cost(layout: Layout, batch_size: int) -> StaticCost:
@@ -116,5 +96,5 @@ def static_cost(layout: Layout, batch_size: int) -> StaticCost:
         rf_hw=head_rf,
         jump=max(head_jump),
         out_hw=(head_hw[0], head_hw[1]),
-        act_mem_bytes=activation_values(layout) * batch_size * BYTES_PER_VALUE,
+        act_mem_bytes=saved_activation_bytes(layout, batch_size),
     )

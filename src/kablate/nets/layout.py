@@ -8,6 +8,7 @@ norm, whose parameters are counted with that conv.
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass, field
 
 from kablate.errors import PlanError
@@ -61,6 +62,15 @@ class Layout:
     @property
     def layers(self) -> tuple[Layer, ...]:
         return tuple(layer for block in self.blocks for layer in block.layers)
+
+    @property
+    def signature(self) -> tuple:
+        """Everything that makes the built network what it is, without names: equal
+        signatures build equal modules (``"3:stack"`` and ``"3"`` both give one 3×3 conv)."""
+        return tuple(
+            (block.residual, tuple(dataclasses.replace(layer, name="") for layer in block.layers))
+            for block in self.blocks
+        )
 
 
 class _Cursor:
@@ -193,14 +203,16 @@ def unit_layers(cur: _Cursor, name: str, spec: KernelSpec, out_ch: int, stride: 
     if spec.form == "dense":
         return [cur.conv(name, out_ch, k, s, d)]
     if spec.form == "stack":
+        # the stride goes on the last 3×3, so that the stack sees exactly what the k×k sees
         n = stack_depth(spec)
         return [
-            cur.conv(f"{name}.s{i}", out_ch, (3, 3), s if i == 0 else (1, 1), d) for i in range(n)
+            cur.conv(f"{name}.s{i}", out_ch, (3, 3), s if i == n - 1 else (1, 1), d)
+            for i in range(n)
         ]
     if spec.form == "split":
         return [
-            cur.conv(f"{name}.v", out_ch, (spec.kh, 1), (stride, 1), d),
-            cur.conv(f"{name}.h", out_ch, (1, spec.kw), (1, stride), d),
+            cur.conv(f"{name}.v", out_ch, (spec.kh, 1), (stride, 1), (spec.dilation, 1)),
+            cur.conv(f"{name}.h", out_ch, (1, spec.kw), (1, stride), (1, spec.dilation)),
         ]
     if spec.form == "depthwise":
         in_ch = cur.ch
@@ -242,8 +254,9 @@ def layout_network(
     for stage, stage_name in zip(network.stages, stage_names(network), strict=True):
         if stage.n_convs == 0 and stage.down not in ("maxpool", "avgpool"):
             raise PlanError(
-                f"stage {stage_name} has no convs, so its `down` must be maxpool or "
-                f"avgpool, but got {stage.down}"
+                f"network stage {stage_name} has no convs (n_convs = 0), so it is a bare "
+                f'pooling step and its `down` must be "maxpool" or "avgpool", but got '
+                f'"{stage.down}"'
             )
         if stage.down in ("maxpool", "avgpool"):
             pool = cur.pool(f"{stage_name}.pool", stage.down[:3])

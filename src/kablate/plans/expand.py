@@ -1,8 +1,10 @@
 """Expand a sweep's explicit plans and grids into variants; drop duplicate networks.
 
-Grid cells are named by their coordinates, e.g. ``stem7+body5:stack``. A variant is identified
-by the kernel spec of every slot, so two plans that resolve to the same network are one
-variant: the first name is kept and the others are listed as its aliases.
+Grid cells are named by their coordinates, e.g. ``stem=7+body=5:stack``. A variant is
+identified by the kernel spec of every slot, so two plans that resolve to the same specs are one
+variant: the first name is kept and the others are listed as its aliases. (Specs that differ
+but build the same layers, such as ``3:stack`` and ``3``, are merged later, once laid out, by
+`kablate.costs.catalog`.)
 """
 
 from __future__ import annotations
@@ -50,7 +52,9 @@ def grid_cells(grid: dict[str, tuple[str, ...]]) -> list[dict[str, str]]:
 
 
 def cell_name(cell: dict[str, str]) -> str:
-    return "+".join(f"{group}{spec}" for group, spec in cell.items())
+    """``{"stem": "7", "stage1.0": "3"}`` → ``stem=7+stage1.0=3`` (the ``=`` keeps stage names
+    that end in a digit apart from the kernel size)."""
+    return "+".join(f"{group}={spec}" for group, spec in cell.items())
 
 
 def expand_plans(sweep: SweepSpec) -> list[Variant]:
@@ -84,13 +88,14 @@ def expand_plans(sweep: SweepSpec) -> list[Variant]:
         if variant.key in by_key:
             first = by_key[variant.key]
             if plan.name != first.name and plan.name not in first.aliases:
-                by_key[variant.key] = _with_alias(first, plan.name)
+                by_key[variant.key] = with_alias(first, plan.name)
             continue
         by_key[variant.key] = variant
     return list(by_key.values())
 
 
-def _with_alias(variant: Variant, alias: str) -> Variant:
+def with_alias(variant: Variant, alias: str) -> Variant:
+    """The same variant, also known as ``alias``."""
     return Variant(
         variant.name,
         variant.plan,

@@ -1,0 +1,105 @@
+"""Training-step activation memory: the bytes autograd keeps from the forward pass for backward.
+
+The estimate walks the layout and, op by op, adds the tensors that PyTorch's autograd formulas
+save (``tools/autograd/derivatives.yaml`` in the PyTorch sources), each tensor once:
+
+- a conv saves its input; an asymmetric (even-kernel) pad makes a padded copy, which it saves
+  instead (the pad itself saves nothing);
+- batch norm saves its input plus a mean and an inverse std per channel (once per batch);
+  group norm saves its input plus a mean and an inverse std per sample and group;
+- ReLU saves its output; GELU and SiLU save their input;
+- max-pool saves its input and int64 indices of its output; avg-pool saves its input;
+- the head's global average pool is a mean, which saves nothing; dropout (on CPU) saves its
+  fp32 noise; the linear layer saves its input;
+- residual additions save nothing.
+
+Parameters, buffers, gradients and optimiser state are not activations and are not counted.
+Tests compare the estimate with what ``torch.autograd.graph.saved_tensors_hooks`` sees.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from kablate.nets.build import norm_groups_for
+from kablate.nets.layout import Layer, Layout
+from kablate.nets.padding import is_symmetric
+
+FLOAT_BYTES = 4  # fp32 activations
+INDEX_BYTES = 8  # int64 max-pool indices
+NOISE_BYTES = 4  # on CPU, dropout multiplies by a saved fp32 noise tensor
+
+
+@dataclass
+class _Tally:
+    """Bytes saved so far, and whether the tensor flowing forward is already among them."""
+
+    per_sample: int
+    per_batch: int = 0
+    current: int = 0  # bytes per sample of the tensor flowing forward
+    current_saved: bool = False
+
+    def flow(self, n_bytes: int) -> None:
+        """A new tensor comes out of an op (not saved yet)."""
+        self.current, self.current_saved = n_bytes, False
+
+    def save_current(self) -> None:
+        if not self.current_saved:
+            self.per_sample += self.current
+            self.current_saved = True
+
+
+def _map_bytes(ch: int, hw: tuple[int, int]) -> int:
+    return ch * hw[0] * hw[1] * FLOAT_BYTES
+
+
+def _conv(tally: _Tally, layout: Layout, layer: Layer) -> None:
+    top, bottom, left, right = layer.padding
+    if not is_symmetric(layer.padding):
+        padded = (layer.in_hw[0] + top + bottom, layer.in_hw[1] + left + right)
+        tally.flow(_map_bytes(layer.in_ch, padded))
+    tally.save_current()  # the conv's input, for the weight gradient
+    out = _map_bytes(layer.out_ch, layer.out_hw)
+    tally.flow(out)
+    if layer.norm and layout.norm == "batch":
+        tally.save_current()
+        tally.per_batch += 2 * layer.out_ch * FLOAT_BYTES
+        tally.flow(out)
+    elif layer.norm and layout.norm == "group":
+        tally.save_current()
+        tally.per_sample += 2 * norm_groups_for(layer.out_ch, layout.norm_groups) * FLOAT_BYTES
+        tally.flow(out)
+    if layer.act and layout.act == "relu":
+        tally.flow(out)
+        tally.save_current()  # ReLU's backward needs only its output
+    elif layer.act:
+        tally.save_current()  # GELU and SiLU need their input
+        tally.flow(out)
+
+
+def saved_activation_bytes(layout: Layout, batch_size: int) -> int:
+    """Bytes of the tensors one training step's forward pass keeps for backward."""
+    c, h, w = layout.in_shape
+    tally = _Tally(per_sample=0)
+    tally.flow(_map_bytes(c, (h, w)))
+    for block in layout.blocks:
+        for layer in block.layers:
+            out = _map_bytes(layer.out_ch, layer.out_hw)
+            if layer.kind == "conv":
+                _conv(tally, layout, layer)
+            elif layer.kind == "pool":
+                tally.save_current()
+                if layer.op == "max":
+                    tally.per_sample += out // FLOAT_BYTES * INDEX_BYTES
+                tally.flow(out)
+            elif layer.kind == "global_pool":
+                tally.flow(out)  # a mean over H and W saves only the shape
+                if layout.dropout:
+                    tally.per_sample += layer.out_ch * NOISE_BYTES
+                    tally.flow(out)
+            elif layer.kind == "linear":
+                tally.save_current()
+                tally.flow(out)
+        if block.residual:
+            tally.flow(tally.current)  # x + y: a new tensor; the addition saves nothing
+    return tally.per_sample * batch_size + tally.per_batch

@@ -1,0 +1,193 @@
+"""`kablate plan` output: JSON fields, an independent recomputation from `layers`, the table."""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+
+import pytest
+
+from kablate.costs.catalog import build_catalog
+from kablate.costs.export import catalog_csv, catalog_json, catalog_table
+from kablate.spec import load_sweep
+from tests.conftest import write_sweep
+
+SWEEP = """
+[sweep]
+name = "export"
+seeds = [0, 1]
+
+[network]
+[network.stem]
+out_ch = 8
+[[network.stages]]
+out_ch = 8
+n_convs = 2
+residual = true
+[[network.stages]]
+out_ch = 12
+n_convs = 2
+down = "stride"
+residual = true
+[[network.stages]]
+out_ch = 12
+n_convs = 1
+down = "avgpool"
+
+[[plan]]
+name = "all-3"
+body = "3"
+
+[[grid]]
+stem = ["4", "5x3", "3d2"]
+body = ["3:stack", "7:stack", "5:split", "3:depthwise", "3:bottleneck/2", "2x4"]
+"""
+
+VARIANT_FIELDS = {
+    "id",
+    "name",
+    "plan",
+    "params",
+    "macs",
+    "flops",
+    "rf",
+    "jump",
+    "out_hw",
+    "act_mem_bytes",
+    "latency_ms",
+    "layers",
+}
+LAYER_FIELDS = {
+    "name",
+    "kind",
+    "in_ch",
+    "out_ch",
+    "kernel",
+    "stride",
+    "padding",
+    "dilation",
+    "groups",
+    "in_hw",
+    "out_hw",
+    "params",
+    "macs",
+}
+
+
+@pytest.fixture(scope="module")
+def catalog(tmp_path_factory):
+    path = write_sweep(tmp_path_factory.mktemp("export"), SWEEP, name="export")
+    return build_catalog(load_sweep(path), in_shape=(1, 16, 16), n_classes=5)
+
+
+@pytest.fixture(scope="module")
+def variants(catalog):
+    return json.loads(catalog_json(catalog))
+
+
+def test_every_variant_has_the_documented_fields(variants):
+    assert len(variants) == 1 + 18
+    for v in variants:
+        assert set(v) >= VARIANT_FIELDS
+        assert v["latency_ms"] is None  # no --latency
+        assert v["flops"] == 2 * v["macs"]
+        for layer in v["layers"]:
+            assert set(layer) >= LAYER_FIELDS
+            assert layer["kind"] in {"conv", "pool", "global_pool", "linear"}
+    assert variants[1]["plan"] == {"stem": "4", "body": "3:stack"}  # as written
+
+
+def test_layers_are_in_forward_order_and_totals_are_their_sums(variants):
+    for v in variants:
+        layers = v["layers"]
+        assert layers[0]["name"] == "stem" and [x["kind"] for x in layers[-2:]] == [
+            "global_pool",
+            "linear",
+        ]
+        for before, after in zip(layers, layers[1:], strict=False):
+            assert after["in_ch"] == before["out_ch"]
+            assert after["in_hw"] == before["out_hw"]
+        assert v["params"] == sum(x["params"] for x in layers)
+        assert v["macs"] == sum(x["macs"] for x in layers)
+
+
+def recompute(layers: list[dict], norm_params_per_channel: int = 2) -> dict:
+    """Standard conv arithmetic, written fresh from the JSON (not kablate's code):
+    output size floor((n + pads − d(k − 1) − 1)/s) + 1 (torch.nn.Conv2d documentation);
+    weights out·(in/groups)·kh·kw plus the folded norm's 2 per channel; MACs = weights per
+    output value × output values; rf r += (d(k − 1))·j, j *= s (Araujo et al. 2019)."""
+    r, j = [1, 1], [1, 1]
+    params = macs = 0
+    rf_at_head = None
+    for x in layers:
+        kh, kw = x["kernel"]
+        if x["kind"] in ("conv", "pool"):
+            top, bottom, left, right = x["padding"]
+            (sh, sw), (dh, dw) = x["stride"], x["dilation"]
+            h, w = x["in_hw"]
+            out = [
+                (h + top + bottom - dh * (kh - 1) - 1) // sh + 1,
+                (w + left + right - dw * (kw - 1) - 1) // sw + 1,
+            ]
+            assert out == x["out_hw"], x["name"]
+            for axis, (k, d, s) in enumerate(((kh, dh, sh), (kw, dw, sw))):
+                r[axis] += d * (k - 1) * j[axis]
+                j[axis] *= s
+        if x["kind"] == "conv":
+            weights = x["out_ch"] * (x["in_ch"] // x["groups"]) * kh * kw
+            assert x["params"] == weights + norm_params_per_channel * x["out_ch"], x["name"]
+            assert x["macs"] == weights * x["out_hw"][0] * x["out_hw"][1], x["name"]
+        elif x["kind"] == "linear":
+            assert x["params"] == x["in_ch"] * x["out_ch"] + x["out_ch"]
+            assert x["macs"] == x["in_ch"] * x["out_ch"]
+        elif x["kind"] == "global_pool":
+            rf_at_head, jump_at_head = max(r), max(j)
+            assert x["out_hw"] == [1, 1] and x["kernel"] == x["in_hw"]
+        else:
+            assert x["params"] == x["macs"] == 0
+        params += x["params"]
+        macs += x["macs"]
+    return {"params": params, "macs": macs, "rf": rf_at_head, "jump": jump_at_head}
+
+
+def test_an_independent_recomputation_from_layers_agrees(variants):
+    for v in variants:
+        again = recompute(v["layers"])
+        assert again == {k: v[k] for k in ("params", "macs", "rf", "jump")}, v["name"]
+        assert v["out_hw"] == v["layers"][-2]["in_hw"]
+
+
+def test_the_table_fits_100_columns_is_sorted_by_cost_and_shows_rf(catalog):
+    lines = catalog_table(catalog).splitlines()
+    assert max(len(line) for line in lines) <= 100
+    header = next(line for line in lines if line.startswith("variant"))
+    assert header.split()[:6] == ["variant", "MACs", "xbase", "params", "rf", "jump"]
+    names = {v.name for v in catalog.variants}
+    # a name that is too long sits on its own line, its numbers on the next
+    listed = [line.split()[0] for line in lines if line.split() and line.split()[0] in names]
+    cheapest_first = sorted(catalog.variants, key=lambda v: (v.cost.macs, v.cost.params, v.name))
+    assert listed == [v.name for v in cheapest_first]
+    base_row = next(line for line in lines if line.startswith("all-3 "))
+    assert f" {catalog.baseline.cost.rf:>4} " in base_row and "*" in base_row
+    # the even stems are named in one warning, wrapped to the width
+    table = "\n".join(lines)
+    assert "warning: layer stem: the even 4×4 kernel" in table and "half a pixel" in table
+
+
+def test_csv_has_a_row_per_variant(catalog):
+    rows = list(csv.DictReader(io.StringIO(catalog_csv(catalog))))
+    assert [r["name"] for r in rows] == [v.name for v in catalog.variants]
+    assert rows[0]["plan"] == "body=3" and rows[0]["latency_ms"] == ""
+    assert int(rows[0]["macs"]) == catalog.variants[0].cost.macs
+
+
+def test_a_very_long_variant_name_still_fits(tmp_path):
+    groups = ["stem", "stage1.0", "stage2.0", "conv1", "conv2"]
+    body = "\n".join(f'"{g}" = ["3d2:depthwise"]' for g in groups)
+    text = SWEEP.split("[[plan]]")[0] + "[[grid]]\n" + body + "\n"
+    catalog = build_catalog(
+        load_sweep(write_sweep(tmp_path, text, name="export")), in_shape=(1, 16, 16), n_classes=5
+    )
+    assert len(catalog.variants[0].name) > 100
+    assert max(len(line) for line in catalog_table(catalog).splitlines()) <= 100

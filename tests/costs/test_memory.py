@@ -1,0 +1,66 @@
+"""Activation memory against what autograd really saves for backward."""
+
+from __future__ import annotations
+
+import itertools
+
+import torch
+
+from kablate.costs.memory import saved_activation_bytes
+from kablate.costs.static import static_cost
+from kablate.nets.build import build_network
+from tests.nets.tiny import tiny_layout, tiny_network
+
+
+def measured_saved_bytes(model: torch.nn.Module, x: torch.Tensor) -> int:
+    """Bytes of the distinct tensors autograd saves in one training forward pass, seen through
+    torch.autograd.graph.saved_tensors_hooks (parameters and buffers left out)."""
+    state = {t.untyped_storage().data_ptr() for t in [*model.parameters(), *model.buffers()]}
+    saved: dict[int, int] = {}
+
+    def pack(tensor: torch.Tensor) -> torch.Tensor:
+        storage = tensor.untyped_storage()
+        if storage.data_ptr() not in state:
+            saved[storage.data_ptr()] = storage.nbytes()
+        return tensor
+
+    with torch.autograd.graph.saved_tensors_hooks(pack, lambda tensor: tensor):
+        model(x)
+    return sum(saved.values())
+
+
+CASES = [
+    # (norm, act, down, residual, dropout, plan)
+    ("batch", "relu", "maxpool", False, 0.0, {}),
+    ("batch", "relu", "avgpool", True, 0.0, {"body": "4"}),
+    ("batch", "gelu", "stride", True, 0.2, {"stem": "4x2", "body": "3:depthwise"}),
+    ("group", "relu", "maxpool", True, 0.0, {"body": "5:stack"}),
+    ("group", "silu", "stride", False, 0.0, {"body": "3:bottleneck/2"}),
+    ("none", "relu", "avgpool", False, 0.3, {"body": "4:split"}),
+    ("none", "gelu", "maxpool", True, 0.0, {"stem": "3d2", "stage2": "3:depthwise"}),
+]
+
+
+def test_the_estimate_equals_what_autograd_saves():
+    for (norm, act, down, residual, dropout, plan), batch in itertools.product(CASES, (1, 5)):
+        net = tiny_network(
+            stages=((8, 2, "none"), (16, 1, down)),
+            residual=residual,
+            norm=norm,
+            act=act,
+            norm_groups=4,
+            dropout=dropout,
+        )
+        layout = tiny_layout(plan, net)
+        model = build_network(layout).train()
+        measured = measured_saved_bytes(model, torch.randn(batch, 1, 8, 8))
+        assert saved_activation_bytes(layout, batch) == measured, (norm, act, down, plan, batch)
+
+
+def test_static_cost_reports_it_at_the_recipes_batch_size():
+    layout = tiny_layout({})
+    assert static_cost(layout, 64).act_mem_bytes == saved_activation_bytes(layout, 64)
+    one, two = saved_activation_bytes(layout, 1), saved_activation_bytes(layout, 2)
+    # batch norm's per-channel mean and inverse std are kept once per batch, not per sample
+    per_channel = 2 * 4 * (4 + 4 + 8)  # two fp32 values per channel of the three convs
+    assert two - one == one - per_channel

@@ -1,0 +1,112 @@
+"""The shipped sweeps, and `kablate plan` on each of them in every format."""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+import tomllib
+from pathlib import Path
+
+import pytest
+from click.testing import CliRunner
+
+from kablate.cli import main
+from kablate.costs.catalog import build_catalog
+from kablate.spec import load_sweep
+from tests.conftest import REPO, write_sweep
+
+SHIPPED = sorted((REPO / "sweeps").glob("*.toml"))
+
+
+def plan(*args: str):
+    return CliRunner().invoke(main, ["plan", *args], catch_exceptions=False)
+
+
+def test_there_are_ready_made_sweeps():
+    assert {"stem-size", "stack-vs-dense", "channel-forms"} <= {p.stem for p in SHIPPED}
+
+
+@pytest.mark.parametrize("path", SHIPPED, ids=lambda p: p.stem)
+def test_a_shipped_sweep_is_named_after_its_file_and_plans_cleanly(path: Path):
+    assert tomllib.loads(path.read_text())["sweep"]["name"] == path.stem
+    catalog = build_catalog(load_sweep(path))
+    assert len(catalog.variants) >= 2
+    assert catalog.baseline in catalog.variants
+
+
+@pytest.mark.parametrize("path", SHIPPED, ids=lambda p: p.stem)
+def test_plan_prints_table_json_and_csv(path: Path):
+    table = plan(str(path))
+    assert table.exit_code == 0 and "variant" in table.stdout and " rf " in table.stdout
+    assert max(len(line) for line in table.stdout.splitlines()) <= 100
+    as_json = json.loads(plan(str(path), "--format", "json").stdout)
+    as_csv = list(csv.DictReader(io.StringIO(plan(str(path), "--format", "csv").stdout)))
+    assert [v["name"] for v in as_json] == [row["name"] for row in as_csv]
+    assert all(v["name"] in table.stdout for v in as_json)
+
+
+def test_the_equal_rf_sweep_compares_at_one_receptive_field():
+    catalog = build_catalog(load_sweep(REPO / "sweeps" / "stack-vs-dense.toml"))
+    assert {v.cost.rf for v in catalog.variants} == {catalog.baseline.cost.rf}
+    assert catalog.dropped  # the grid holds other receptive fields, which equal_rf drops
+    forms = {spec.split(":")[-1] for v in catalog.variants for spec in v.variant.plan.values()}
+    assert {"5", "stack", "3d2"} <= forms
+
+
+REFUSED = """
+[sweep]
+name = "refused"
+[network]
+from = "configs/tiny-net.toml"
+padding = "valid"
+[[plan]]
+name = "huge-stem"
+stem = "9"
+"""
+
+
+def test_a_broken_variant_is_refused_with_exit_code_2(tmp_path):
+    result = plan(str(write_sweep(tmp_path, REFUSED, name="refused")))
+    assert result.exit_code == 2
+    assert "Traceback" not in result.stderr
+    for part in ("variant huge-stem", "layer stem", "9×9 kernel", "input is only 8×8"):
+        assert part in result.stderr
+
+
+EVEN = """
+[sweep]
+name = "even"
+baseline = "even-stem"
+[network]
+from = "configs/tiny-net.toml"
+[[plan]]
+name = "even-stem"
+stem = "4"
+[[plan]]
+name = "wide-stem"
+stem = "7"
+[filter]
+max_macs = 1
+"""
+
+
+def test_json_stays_parseable_while_warnings_and_drops_go_to_stderr(tmp_path):
+    result = plan(str(write_sweep(tmp_path, EVEN, name="even")), "--format", "json")
+    assert result.exit_code == 0
+    assert [v["name"] for v in json.loads(result.stdout)] == ["even-stem"]
+    assert "warning: layer stem: the even 4×4 kernel" in result.stderr
+    assert "dropped wide-stem: MACs" in result.stderr
+
+
+def test_latency_flag_fills_latency_ms(tmp_path):
+    result = plan(
+        str(write_sweep(tmp_path, EVEN, name="even")),
+        "--format",
+        "json",
+        "--latency",
+        "--threads",
+        "1",
+    )
+    v = json.loads(result.stdout)[0]
+    assert v["latency_ms"] > 0 and v["latency_batch_ms"] > 0 and v["latency_threads"] == 1

@@ -1,0 +1,78 @@
+"""The kernel-spec grammar: sizes, dilation, the five forms and the messages for bad specs."""
+
+from __future__ import annotations
+
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from kablate.plans.grammar import KernelSpec, KernelSpecError, parse_kernel, stack_depth
+
+
+@pytest.mark.parametrize(
+    ("text", "expected"),
+    [
+        ("3", KernelSpec(3, 3)),
+        ("5x3", KernelSpec(5, 3)),
+        ("5×3", KernelSpec(5, 3)),
+        (" 4 ", KernelSpec(4, 4)),
+        ("3d2", KernelSpec(3, 3, 2)),
+        ("7:stack", KernelSpec(7, 7, 1, "stack")),
+        ("5x3:split", KernelSpec(5, 3, 1, "split")),
+        ("3d2:depthwise", KernelSpec(3, 3, 2, "depthwise")),
+        ("3:bottleneck", KernelSpec(3, 3, 1, "bottleneck", 4)),
+        ("3:bottleneck/2", KernelSpec(3, 3, 1, "bottleneck", 2)),
+        ("1d3", KernelSpec(1, 1, 1)),  # dilation means nothing on a 1×1: one spelling
+    ],
+)
+def test_specs_parse(text, expected):
+    assert parse_kernel(text) == expected
+
+
+@pytest.mark.parametrize(
+    ("text", "phrase"),
+    [
+        ("", "must be a kernel spec"),
+        ("3:wide", "names form `wide`"),
+        ("0", "≥ 1"),
+        ("3d0", "≥ 1"),
+        ("4:stack", "square odd kernel"),
+        ("5x3:stack", "square odd kernel"),
+        ("5x1:split", "both sizes ≥ 2"),
+        ("3/2", "must be a kernel spec"),
+        ("3:depthwise/2", "only the bottleneck form"),
+        ("3:bottleneck/0", "ratio ≥ 1"),
+    ],
+)
+def test_bad_specs_say_what_is_allowed(text, phrase):
+    with pytest.raises(KernelSpecError, match=phrase):
+        parse_kernel(text)
+
+
+def test_stack_depth_keeps_the_receptive_field():
+    # (k − 1)/2 stacked 3×3 convs see k×k (Simonyan & Zisserman 2014, section 2.3)
+    for k in (3, 5, 7, 9, 11):
+        spec = parse_kernel(f"{k}:stack")
+        assert 1 + 2 * stack_depth(spec) == k == spec.extent[0]
+
+
+def test_extent_of_a_dilated_kernel():
+    # d·(k − 1) + 1 (Dumoulin & Visin 2016, section 5.1)
+    assert parse_kernel("3d2").extent == (5, 5)
+    assert parse_kernel("5x3d3").extent == (13, 7)
+
+
+specs = st.builds(
+    KernelSpec,
+    kh=st.integers(2, 9),
+    kw=st.integers(2, 9),
+    dilation=st.integers(1, 3),
+    form=st.sampled_from(["dense", "split", "depthwise", "bottleneck"]),
+    ratio=st.just(4),
+)
+
+
+@settings(max_examples=60, deadline=None)
+@given(specs)
+def test_written_specs_read_back_the_same(spec):
+    assert parse_kernel(str(spec)) == spec
