@@ -34,7 +34,8 @@ Example:
 EPILOG_REPORT = """\b
 Example:
   kablate report results/quickstart
-  kablate report results/quickstart --cost params --out /tmp/card
+  kablate report results/quickstart --cost params --within-se 0.5 --out card
+The rule's cost and tolerance default to the sweep file's [pick] table.
 """
 
 
@@ -240,16 +241,15 @@ def status(results: Path, fmt: str, storage: str | None) -> None:
 @click.option(
     "--cost",
     type=click.Choice(["macs", "params", "latency"]),
-    default="macs",
-    show_default=True,
-    help="The cost the recommended plan minimises.",
+    default=None,
+    help="The cost the recommended plan minimises (default: the sweep's [pick] cost, else macs).",
 )
 @click.option(
     "--within-se",
     type=click.FloatRange(min=0),
-    default=1.0,
-    show_default=True,
-    help="Tolerance of the selection rule, in standard errors of the best variant.",
+    default=None,
+    help="Tolerance of the selection rule, in standard errors of the best variant "
+    "(default: the sweep's [pick] within_se, else 1).",
 )
 @click.option(
     "--storage",
@@ -257,12 +257,22 @@ def status(results: Path, fmt: str, storage: str | None) -> None:
     metavar="URL",
     help="Study storage URL, if not the one recorded in the folder.",
 )
+@click.option(
+    "--no-erf",
+    is_flag=True,
+    help="Skip the effective-receptive-field maps (they load checkpoints and data).",
+)
 def report(
-    results: Path, out: Path | None, cost: str, within_se: float, storage: str | None
+    results: Path,
+    out: Path | None,
+    cost: str | None,
+    within_se: float | None,
+    storage: str | None,
+    no_erf: bool,
 ) -> None:
     """Rebuild the tables, plots and model-card section of a results folder."""
     from kablate.report.build import write_report
     from kablate.trials.results import open_results
 
-    path = write_report(open_results(results, storage), out, cost, within_se)
+    path = write_report(open_results(results, storage), out, cost, within_se, not no_erf)
     click.echo(f"report: {path}")

@@ -1,7 +1,12 @@
-"""Pareto fronts: variants that no other variant beats on accuracy and cost at once."""
+"""Pareto fronts: variants that no other variant beats on accuracy and cost at once.
+
+Accuracy is maximised and every cost minimised. A point is on the front when no other point
+is at least as good on every axis and strictly better on one (Pareto dominance).
+"""
 
 from __future__ import annotations
 
+import math
 from collections.abc import Sequence
 
 
@@ -19,20 +24,35 @@ def pareto_front(
 ) -> list[bool]:
     """Which points are on the front (accuracy ↑, every cost ↓).
 
+    Points are visited best-first: by accuracy (descending), then costs, then name. A point
+    can only be dominated by one visited before it, and if it is dominated at all it is
+    dominated by a point already on the front, so comparing with the front so far suffices.
+
     Ties are broken deterministically: among points with identical accuracy and costs, only
-    the one with the smallest name is on the front.
+    the one with the smallest name is on the front. A point with a NaN accuracy or cost is
+    never on the front.
+
+    Args:
+        acc: accuracy per point.
+        costs: per point, its costs (one or more, the same number for every point).
+        names: per point, a unique name (the tie-breaker).
     """
     n = len(acc)
-    on = []
-    for i in range(n):
-        beaten = any(dominates(acc[j], costs[j], acc[i], costs[i]) for j in range(n) if j != i)
-        twin_first = any(
-            acc[j] == acc[i] and list(costs[j]) == list(costs[i]) and names[j] < names[i]
-            for j in range(n)
-            if j != i
-        )
-        on.append(not beaten and not twin_first)
-    return on
+    ok = [math.isfinite(acc[i]) and all(math.isfinite(c) for c in costs[i]) for i in range(n)]
+    order = sorted(
+        (i for i in range(n) if ok[i]), key=lambda i: (-acc[i], tuple(costs[i]), names[i])
+    )
+    front: list[int] = []
+    for i in order:
+        ci = tuple(costs[i])
+        if any(
+            dominates(acc[j], costs[j], acc[i], ci) or (acc[j] == acc[i] and tuple(costs[j]) == ci)
+            for j in front
+        ):
+            continue
+        front.append(i)
+    on = set(front)
+    return [i in on for i in range(n)]
 
 
 def staircase(

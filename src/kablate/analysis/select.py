@@ -3,8 +3,8 @@
 Breiman, Friedman, Olshen & Stone 1984; Hastie, Tibshirani & Friedman, *The Elements of
 Statistical Learning*, 2nd ed., §7.10: among models whose estimated score is within one
 standard error of the best one's, prefer the simplest. Here "simplest" is "cheapest by the
-chosen cost" (MACs by default), and the score is mean validation accuracy over seeds.
-Test accuracy is never looked at.
+chosen cost" (MACs by default), the score is mean validation accuracy over seeds and the
+standard error is the best variant's s / √n. Test accuracy is never looked at.
 """
 
 from __future__ import annotations
@@ -14,6 +14,11 @@ from dataclasses import dataclass
 
 import pandas as pd
 
+from kablate.errors import UsageError
+
+# Only these columns may be read: validation statistics, costs and the name.
+SELECTION_COLUMNS = ("variant", "n_seeds", "val_acc_mean", "val_acc_std")
+
 
 @dataclass(frozen=True)
 class Selection:
@@ -21,16 +26,36 @@ class Selection:
     best: str  # highest mean validation accuracy
     threshold: float  # best mean − tolerance × best's standard error
     best_se: float
-    cost: str
+    cost: str  # the column minimised: macs, params or latency_ms
     within_se: float
     reason: str
+    candidates: tuple[str, ...] = ()  # variants within the tolerance, cheapest first
+
+
+def pct(x: float) -> str:
+    return f"{100 * x:.2f}%"
 
 
 def one_se_rule(variants: pd.DataFrame, cost: str = "macs", within_se: float = 1.0) -> Selection:
-    """Apply the rule to a variants table with ``val_acc_mean``, ``val_acc_std``,
-    ``n_seeds``, ``variant`` and the ``cost`` column. Variants with no finished seed are
-    ignored; ties in cost go to the more accurate, then to the smaller name."""
-    pool = variants[variants["n_seeds"] > 0].copy()
+    """Apply the rule to a variants table with ``variant``, ``n_seeds``, ``val_acc_mean``,
+    ``val_acc_std`` and the ``cost`` column.
+
+    Variants with no finished seed are ignored. Ties in cost go to the more accurate, then to
+    the smaller name. If the best variant has fewer than two seeds there is no standard error,
+    and the most accurate variant is recommended.
+
+    Raises:
+        ValueError: no variant has a finished seed.
+        UsageError: the cost column is missing or not measured (e.g. latency).
+    """
+    label = {"macs": "MACs", "latency_ms": "latency"}.get(cost, cost)
+    if cost not in variants.columns or variants[cost].isna().all():
+        raise UsageError(
+            f"the selection cost {label} was not measured for this sweep's variants; "
+            "choose --cost macs or params (or [pick] cost in the sweep file)"
+        )
+    pool = variants[list(SELECTION_COLUMNS) + ([cost] if cost not in SELECTION_COLUMNS else [])]
+    pool = pool[pool["n_seeds"] > 0]
     if pool.empty:
         raise ValueError("no variant has a finished trial yet")
     pool = pool.sort_values(["val_acc_mean", "variant"], ascending=[False, True])
@@ -45,22 +70,35 @@ def one_se_rule(variants: pd.DataFrame, cost: str = "macs", within_se: float = 1
             se,
             cost,
             within_se,
-            "the best variant has fewer than 2 seeds, so no standard error: the "
-            "most accurate variant is recommended",
+            "the best variant has fewer than 2 finished seeds, so there is no standard error: "
+            "the most accurate variant is recommended",
+            (best["variant"],),
         )
     threshold = float(best["val_acc_mean"]) - within_se * se
-    ok = pool[pool["val_acc_mean"] >= threshold - 1e-12]
+    # The small slack keeps a variant whose mean equals the threshold up to rounding.
+    ok = pool[(pool["val_acc_mean"] >= threshold - 1e-12) & pool[cost].notna()]
     ok = ok.sort_values([cost, "val_acc_mean", "variant"], ascending=[True, False, True])
     pick = ok.iloc[0]
+    unit = "standard error" if within_se == 1 else "standard errors"
     if pick["variant"] == best["variant"]:
         reason = (
-            f"it has the best mean validation accuracy, and no cheaper variant (by "
-            f"{cost}) comes within {within_se:g} standard error of it"
+            f"it has the best mean validation accuracy ({pct(best['val_acc_mean'])}), and no "
+            f"cheaper variant by {label} comes within {within_se:g} {unit} "
+            f"({100 * se:.2f} pp) of it"
         )
     else:
         reason = (
-            f"it is the cheapest variant by {cost} whose mean validation accuracy "
-            f"({pick['val_acc_mean']:.4f}) is within {within_se:g} standard error "
-            f"({se:.4f}) of the best, {best['variant']} ({best['val_acc_mean']:.4f})"
+            f"it is the cheapest variant by {label} whose mean validation accuracy "
+            f"({pct(pick['val_acc_mean'])}) is within {within_se:g} {unit} "
+            f"({100 * se:.2f} pp) of the best, {best['variant']} ({pct(best['val_acc_mean'])})"
         )
-    return Selection(pick["variant"], best["variant"], threshold, se, cost, within_se, reason)
+    return Selection(
+        pick["variant"],
+        best["variant"],
+        threshold,
+        se,
+        cost,
+        within_se,
+        reason,
+        tuple(ok["variant"]),
+    )

@@ -22,8 +22,20 @@ class Interval:
         return self.std / math.sqrt(self.n) if self.n >= 2 else float("nan")
 
 
+def t_interval_from_summary(
+    mean: float, std: float, n: int, confidence: float = 0.95
+) -> tuple[float, float]:
+    """Mean ± t(1 − α/2, n − 1) · s / √n, the Student-t confidence limits for a mean.
+
+    The formula of the NIST/SEMATECH e-Handbook of Statistical Methods, §1.3.5.2.
+    """
+    half = float(stats.t.ppf(0.5 + confidence / 2, df=n - 1)) * std / math.sqrt(n)
+    return mean - half, mean + half
+
+
 def t_interval(values: list[float] | np.ndarray, confidence: float = 0.95) -> Interval:
-    """Mean ± t·s/√n, the Student-t confidence interval for a mean from n seeds."""
+    """The Student-t confidence interval for a mean from n seeds (NaN or None values are
+    dropped; n < 2 gives a mean with no interval)."""
     x = np.asarray([v for v in values if v is not None and math.isfinite(v)], dtype=float)
     n = len(x)
     if n == 0:
@@ -33,18 +45,28 @@ def t_interval(values: list[float] | np.ndarray, confidence: float = 0.95) -> In
     if n < 2:
         return Interval(mean, float("nan"), float("nan"), float("nan"), 1)
     std = float(x.std(ddof=1))
-    half = float(stats.t.ppf(0.5 + confidence / 2, df=n - 1)) * std / math.sqrt(n)
-    return Interval(mean, std, mean - half, mean + half, n)
+    low, high = t_interval_from_summary(mean, std, n, confidence)
+    return Interval(mean, std, low, high, n)
 
 
 @dataclass(frozen=True)
 class PairedResult:
-    n: int
+    n: int  # seeds both variants finished
     mean_diff: float  # variant − baseline
     ci_low: float
     ci_high: float
     p_value: float
     verdict: str
+    t_stat: float = float("nan")
+
+    @property
+    def too_few(self) -> bool:
+        return self.n < 2
+
+    @property
+    def half_width(self) -> float:
+        """Half the CI's width: differences smaller than this cannot be told from zero."""
+        return (self.ci_high - self.ci_low) / 2
 
 
 def paired_comparison(
@@ -56,25 +78,38 @@ def paired_comparison(
     """Per-seed paired differences (variant − baseline) on the seeds both have.
 
     The trainer's paired design (same seed → same data order and augmentation) makes the
-    per-seed difference the right unit. The p-value is ``scipy.stats.ttest_rel``'s.
+    per-seed difference the right unit. The p-value is ``scipy.stats.ttest_rel``'s (two-sided)
+    and the interval is the t-interval of the differences, so the two always agree.
     """
     seeds = sorted(set(variant) & set(baseline))
     diffs = np.array([variant[s] - baseline[s] for s in seeds], dtype=float)
     n = len(diffs)
+    nan = float("nan")
     if n < 2:
-        nan = float("nan")
         mean = float(diffs.mean()) if n else nan
         return PairedResult(
-            n, mean, nan, nan, nan, f"too few paired seeds (n = {n}) to tell them apart"
+            n,
+            mean,
+            nan,
+            nan,
+            nan,
+            f"too few paired seeds (n = {n}; at least 2 are needed) to tell them apart",
         )
     interval = t_interval(diffs, confidence)
-    if np.allclose(diffs, diffs[0]):
-        p = 0.0 if diffs[0] != 0 else 1.0  # ttest_rel is undefined when every diff is equal
+    if np.allclose(diffs, diffs[0], rtol=0, atol=1e-12):
+        # ttest_rel is undefined when every difference is the same (zero spread).
+        p, t_stat = (1.0, 0.0) if diffs[0] == 0 else (0.0, math.copysign(math.inf, diffs[0]))
+        low = high = float(diffs[0])
     else:
-        p = float(stats.ttest_rel([variant[s] for s in seeds], [baseline[s] for s in seeds]).pvalue)
+        test = stats.ttest_rel([variant[s] for s in seeds], [baseline[s] for s in seeds])
+        p, t_stat = float(test.pvalue), float(test.statistic)
+        low, high = interval.low, interval.high
     if p < alpha:
         word = "better" if interval.mean > 0 else "worse"
         verdict = f"{word} than the baseline (p = {p:.3g}, n = {n})"
     else:
-        verdict = f"not distinguishable from the baseline at n = {n} (p = {p:.3g})"
-    return PairedResult(n, interval.mean, interval.low, interval.high, p, verdict)
+        verdict = (
+            f"not distinguishable from the baseline at n = {n}: the 95% CI of the difference "
+            f"spans ±{100 * (high - low) / 2:.2f} pp"
+        )
+    return PairedResult(n, interval.mean, low, high, p, verdict, t_stat)

@@ -9,19 +9,28 @@ import pandas as pd
 from kablate.analysis.pareto import pareto_front
 from kablate.analysis.stats import t_interval
 
+# Selection and front costs → their column in the variants table.
 COST_COLUMNS = {"params": "params", "macs": "macs", "latency": "latency_ms"}
+# A trial in one of these states has a result (diverged: trained, but its loss blew up).
+FINISHED = ("done", "diverged")
 
 
 def trial_frame(rows: list[dict]) -> pd.DataFrame:
+    """One row per (variant, seed) of the plan, whatever its status."""
     frame = pd.DataFrame(rows)
     for col in ("val_acc", "test_acc", "train_seconds", "samples_per_second"):
+        if col not in frame:
+            frame[col] = math.nan
         frame[col] = pd.to_numeric(frame[col], errors="coerce")
+    for col in ("variant_id", "status"):
+        if col not in frame:
+            frame[col] = pd.Series(dtype=object)
     return frame
 
 
 def variant_frame(trials: pd.DataFrame, plan: dict, confidence: float = 0.95) -> pd.DataFrame:
     """One row per variant of ``plan``: accuracy statistics over finished seeds, costs and
-    Pareto flags. Unfinished trials are counted in ``n_missing``."""
+    Pareto flags. ``n_missing`` counts the planned trials with no result yet."""
     out = []
     for v in plan["variants"]:
         mine = trials[trials["variant_id"] == v["id"]]
@@ -33,12 +42,15 @@ def variant_frame(trials: pd.DataFrame, plan: dict, confidence: float = 0.95) ->
                 "variant": v["name"],
                 "variant_id": v["id"],
                 "n_seeds": val.n,
-                "n_missing": int((~mine["status"].isin(["done", "diverged"])).sum()),
+                "n_planned": len(plan["seeds"]),
+                "n_missing": int((~mine["status"].isin(FINISHED)).sum()),
                 "n_diverged": int((mine["status"] == "diverged").sum()),
                 "val_acc_mean": val.mean,
                 "val_acc_std": val.std,
+                "val_acc_se": val.se,
                 "val_acc_ci_low": val.low,
                 "val_acc_ci_high": val.high,
+                "test_acc_n": test.n,
                 "test_acc_mean": test.mean,
                 "test_acc_std": test.std,
                 "test_acc_ci_low": test.low,
@@ -47,7 +59,7 @@ def variant_frame(trials: pd.DataFrame, plan: dict, confidence: float = 0.95) ->
                 "macs": v["macs"],
                 "flops": v["flops"],
                 "rf": v["rf"],
-                "act_mem_bytes": v["act_mem_bytes"],
+                "act_mem_bytes": v.get("act_mem_bytes"),
                 "latency_ms": v.get("latency_ms"),
                 "train_seconds_mean": float(done["train_seconds"].mean())
                 if len(done)
@@ -61,20 +73,32 @@ def variant_frame(trials: pd.DataFrame, plan: dict, confidence: float = 0.95) ->
     return frame
 
 
+def measured_costs(frame: pd.DataFrame) -> list[str]:
+    """The costs a front is drawn for: params and MACs always, latency when measured."""
+    ready = frame[frame["n_seeds"] > 0]
+    has_latency = len(ready) > 0 and ready["latency_ms"].notna().all()
+    return ["params", "macs"] + (["latency"] if has_latency else [])
+
+
 def add_fronts(frame: pd.DataFrame) -> None:
-    """Add ``front_params``, ``front_macs``, ``front_latency`` (when measured) and
-    ``front_all`` (all measured costs at once); only variants with a finished seed count."""
-    ready = frame["n_seeds"] > 0
-    costs = ["params", "macs"] + (["latency"] if frame["latency_ms"].notna().all() else [])
-    sub = frame[ready]
+    """Add boolean ``front_params``, ``front_macs``, ``front_all`` (every measured cost at
+    once) and ``front_latency`` (None when latency was not measured). Only variants with a
+    finished seed can be on a front."""
+    sub = frame[frame["n_seeds"] > 0]
     names = sub["variant"].tolist()
     acc = sub["val_acc_mean"].tolist()
-    for cost in costs:
-        col = COST_COLUMNS[cost]
-        flags = pareto_front(acc, [[c] for c in sub[col].tolist()], names)
-        frame[f"front_{cost}"] = False
-        frame.loc[sub.index, f"front_{cost}"] = flags
+    costs = measured_costs(frame)
+    for cost in ("params", "macs", "latency"):
+        col = f"front_{cost}"
+        if cost not in costs:
+            frame[col] = None
+            continue
+        flags = pareto_front(acc, [[float(c)] for c in sub[COST_COLUMNS[cost]]], names)
+        frame[col] = False
+        frame.loc[sub.index, col] = flags
+        frame[col] = frame[col].astype(bool)
     cols = [COST_COLUMNS[c] for c in costs]
-    flags = pareto_front(acc, sub[cols].values.tolist(), names)
+    flags = pareto_front(acc, sub[cols].astype(float).values.tolist(), names)
     frame["front_all"] = False
     frame.loc[sub.index, "front_all"] = flags
+    frame["front_all"] = frame["front_all"].astype(bool)

@@ -3,17 +3,24 @@
 from __future__ import annotations
 
 import json
+import math
+import re
 from pathlib import Path
 
 from kablate import __version__
 from kablate.analysis.summary import Analysis, analyze
-from kablate.report.card import render_card
+from kablate.analysis.tables import COST_COLUMNS
+from kablate.errors import KablateError, UsageError
+from kablate.report.card import PLOT_CAPTIONS, CardContext, render_card
 from kablate.report.plots import (
     plot_accuracy_vs_cost,
+    plot_effective_rf,
     plot_grid_heatmap,
     plot_learning_curves,
     plot_rf_vs_accuracy,
+    rendering,
 )
+from kablate.trials.environment import sanitize
 from kablate.trials.export import CURVE_COLUMNS, TRIAL_COLUMNS, write_csv
 from kablate.trials.meta import read_json, write_json
 from kablate.trials.results import DATA_FILE, ResultsFolder
@@ -22,12 +29,15 @@ VARIANT_COLUMNS = (
     "variant",
     "variant_id",
     "n_seeds",
+    "n_planned",
     "n_missing",
     "n_diverged",
     "val_acc_mean",
     "val_acc_std",
+    "val_acc_se",
     "val_acc_ci_low",
     "val_acc_ci_high",
+    "test_acc_n",
     "test_acc_mean",
     "test_acc_std",
     "test_acc_ci_low",
@@ -41,59 +51,130 @@ VARIANT_COLUMNS = (
     "train_seconds_mean",
     "front_macs",
     "front_params",
+    "front_latency",
     "front_all",
     "recommended",
     "plan",
 )
+COST_LABELS = {"macs": "MACs", "params": "params", "latency": "latency"}
 
 
 def subtitle(meta: dict, data: dict) -> str:
+    """Sweep, dataset, seeds and budget, for every plot."""
     recipe = meta["resolved"].get("recipe", {})
     seeds = ",".join(map(str, meta["seeds"]))
+    budget = f"{recipe.get('epochs')} epochs"
+    if recipe.get("max_steps"):
+        budget += f" (≤ {recipe['max_steps']} steps)"
+    if meta.get("budget_seconds"):
+        budget += f", {meta['budget_seconds'] / 3600:.2g} h budget"
     return (
-        f"sweep {meta['name']} · {data['source']} ({data['sizes']['train']} train) · "
-        f"seeds {seeds} · {recipe.get('epochs')} epochs"
+        f"sweep {meta['name']} · {data['source']} ({data['sizes']['train']} train, "
+        f"{data['sizes']['val']} val) · seeds {seeds} · {budget}"
     )
 
 
+def selection_settings(meta: dict, cost: str | None, within_se: float | None) -> tuple[str, float]:
+    """The selection rule's cost and tolerance: the command line's, else the sweep file's
+    ``[pick]`` table, else MACs and one standard error."""
+    pick = meta.get("resolved", {}).get("pick", {})
+    cost = cost or pick.get("cost", "macs")
+    within_se = within_se if within_se is not None else float(pick.get("within_se", 1.0))
+    if cost not in COST_COLUMNS:
+        raise UsageError(f"the selection cost must be one of macs, params, latency; got {cost}")
+    if not (math.isfinite(within_se) and within_se >= 0):
+        raise UsageError(f"the selection tolerance must be ≥ 0 standard errors; got {within_se}")
+    return cost, within_se
+
+
 def write_tables(folder: ResultsFolder, analysis: Analysis) -> None:
+    """trials.csv/json, variants.csv/json and curves.csv in the results folder."""
     out = folder.path
     write_csv(out / "trials.csv", analysis.trials.to_dict("records"), TRIAL_COLUMNS)
     write_csv(out / "curves.csv", analysis.curves.to_dict("records"), CURVE_COLUMNS)
     table = analysis.variants.reindex(columns=list(VARIANT_COLUMNS))
     write_csv(out / "variants.csv", table.to_dict("records"), VARIANT_COLUMNS)
     write_json(out / "variants.json", json.loads(table.to_json(orient="records")))
-    write_json(out / "trials.json", json.loads(analysis.trials.to_json(orient="records")))
+    trials = analysis.trials.reindex(columns=list(TRIAL_COLUMNS))
+    write_json(out / "trials.json", json.loads(trials.to_json(orient="records")))
+
+
+def draw_plots(analysis: Analysis, out: Path, sub: str) -> list[Path]:
+    """Every plot the data supports; returns the files written (PNG and SVG)."""
+    plots: list[Path] = []
+    for stem in PLOT_CAPTIONS:  # a plot the data no longer supports must not linger
+        for ext in ("png", "svg"):
+            (out / f"{stem}.{ext}").unlink(missing_ok=True)
+    if not (analysis.variants["n_seeds"] > 0).any():
+        return plots
+    with rendering():
+        plots += plot_accuracy_vs_cost(analysis, "params", "parameters", out, sub)
+        plots += plot_accuracy_vs_cost(analysis, "macs", "MACs", out, sub)
+        if analysis.variants["front_latency"].notna().all():
+            plots += plot_accuracy_vs_cost(analysis, "latency_ms", "latency (ms)", out, sub)
+        plots += plot_rf_vs_accuracy(analysis, out, sub)
+        if len(analysis.curves):
+            plots += plot_learning_curves(analysis, out, sub)
+        if analysis.grid is not None:
+            plots += plot_grid_heatmap(analysis, out, sub)
+        if analysis.erf:
+            rec = analysis.selection.recommended if analysis.selection else ""
+            roles = ["recommended" if m.variant == rec else "baseline" for m in analysis.erf]
+            if len(analysis.erf) == 1 and rec == analysis.baseline:
+                roles = ["recommended and baseline"]
+            plots += plot_effective_rf(analysis.erf, roles, out, sub)
+    return plots
+
+
+def scrub(text: str) -> str:
+    """No storage password and no absolute home or working path in what we write."""
+    text = re.sub(r"(://[^:/@\s]+):[^@\s]*@", r"\1:***@", text)
+    return sanitize(text)
 
 
 def write_report(
-    folder: ResultsFolder, out: Path | None = None, cost: str = "macs", within_se: float = 1.0
+    folder: ResultsFolder,
+    out: Path | None = None,
+    cost: str | None = None,
+    within_se: float | None = None,
+    with_erf: bool = True,
 ) -> Path:
     """Analyse the folder's trials and write tables, plots and ``model_card.md``.
+
+    Args:
+        cost, within_se: the selection rule's settings; None takes the sweep's ``[pick]``.
+        with_erf: compute the effective-receptive-field maps (needs checkpoints and data).
 
     Returns:
         The path of the Markdown file.
     """
+    cost, within_se = selection_settings(folder.meta, cost, within_se)
     rows, curves = folder.rows()
     analysis = analyze(rows, curves, folder.plan, folder.meta.get("grids", []), cost, within_se)
     write_tables(folder, analysis)
     out = out or folder.path / "report"
     out.mkdir(parents=True, exist_ok=True)
     data = read_json(folder.path / DATA_FILE)
-    sub = subtitle(folder.meta, data)
-    plots: list[Path] = []
-    if (analysis.variants["n_seeds"] > 0).any():
-        plots += plot_accuracy_vs_cost(analysis, "params", "parameters", out, sub)
-        plots += plot_accuracy_vs_cost(analysis, "macs", "MACs", out, sub)
-        plots += plot_rf_vs_accuracy(analysis, out, sub)
-        if len(analysis.curves):
-            plots += plot_learning_curves(analysis, out, sub)
-        if analysis.grid is not None:
-            plots += plot_grid_heatmap(analysis, out, sub)
-    pngs = [p.name for p in plots if p.suffix == ".png"]
-    card = render_card(
-        analysis, folder.meta, data, pngs, __version__, folder.meta.get("environment", {})
+    if with_erf:
+        from kablate.report.trained import erf_maps
+
+        try:
+            analysis.erf, analysis.erf_note = erf_maps(folder, analysis, data)
+        except Exception as exc:  # the maps are an extra: never lose the report over them
+            note = str(exc) if isinstance(exc, KablateError) else f"{type(exc).__name__}: {exc}"
+            analysis.erf, analysis.erf_note = [], note.splitlines()[0] if note else "failed"
+    else:
+        analysis.erf_note = "skipped on request"
+    plots = draw_plots(analysis, out, subtitle(folder.meta, data))
+    ctx = CardContext(
+        folder.meta,
+        data,
+        __version__,
+        tuple(p.name for p in plots if p.suffix == ".png"),
+        COST_LABELS[cost],
     )
     path = out / "model_card.md"
-    path.write_text(card)
+    tmp = path.with_suffix(".md.tmp")
+    tmp.write_text(scrub(render_card(analysis, ctx)))
+    tmp.replace(path)
     return path

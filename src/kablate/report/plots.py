@@ -1,11 +1,13 @@
 """Plots of an `Analysis`. They only draw: every number comes from the analysis tables.
 
 Colours are the Okabe–Ito palette (colour-blind safe); markers also differ, so the plots read
-in greyscale. Every figure carries a subtitle naming the sweep, data, seeds and budget.
+in greyscale. Every figure carries a subtitle naming the sweep, data, seeds and budget, and is
+sized for a model card (6.4 in wide; text no smaller than 7.5 pt at that width).
 """
 
 from __future__ import annotations
 
+import math
 from pathlib import Path
 
 import matplotlib
@@ -14,24 +16,52 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 import pandas as pd  # noqa: E402
+from matplotlib.patches import Rectangle  # noqa: E402
+from matplotlib.ticker import (  # noqa: E402
+    FuncFormatter,
+    LogLocator,
+    MaxNLocator,
+    NullFormatter,
+    PercentFormatter,
+)
 
+from kablate.analysis.erf import ErfMap  # noqa: E402
 from kablate.analysis.pareto import staircase  # noqa: E402
 from kablate.analysis.summary import Analysis  # noqa: E402
+from kablate.costs.export import human  # noqa: E402
 
 OKABE_ITO = ["#0072B2", "#E69F00", "#009E73", "#D55E00", "#CC79A7", "#56B4E9", "#F0E442", "#000000"]
 MARKERS = ["o", "s", "^", "D", "v", "P", "X", "<", ">", "h"]
-WIDTH_IN, HEIGHT_IN, DPI = 6.4, 4.2, 150
-# No dates or versions in the files, so the same analysis gives the same bytes.
+WIDTH_IN, HEIGHT_IN, DPI = 6.4, 4.4, 150
+# No dates, versions or random ids in the files, so the same analysis gives the same bytes.
 METADATA = {"png": {"Software": None}, "svg": {"Date": None, "Creator": None}}
+STYLE = {
+    "svg.hashsalt": "kablate",
+    "svg.fonttype": "path",
+    "font.size": 8.5,
+    "axes.titlesize": 8,
+    "axes.labelsize": 8.5,
+    "xtick.labelsize": 8,
+    "ytick.labelsize": 8,
+    "legend.fontsize": 7.5,
+}
 
 
-def _figure(title: str, subtitle: str) -> tuple[plt.Figure, plt.Axes]:
-    fig, ax = plt.subplots(figsize=(WIDTH_IN, HEIGHT_IN), dpi=DPI, layout="constrained")
-    fig.suptitle(title, fontsize=12, fontweight="bold")
-    ax.set_title(subtitle, fontsize=8.5, color="#444444")
-    ax.grid(True, color="#dddddd", linewidth=0.6)
-    ax.set_axisbelow(True)
-    return fig, ax
+def style(i: int) -> tuple[str, str]:
+    """Colour and marker of the i-th variant (the same in every plot)."""
+    return OKABE_ITO[i % len(OKABE_ITO)], MARKERS[i % len(MARKERS)]
+
+
+def _figure(title: str, subtitle: str, ncols: int = 1) -> tuple[plt.Figure, list[plt.Axes]]:
+    fig, axes = plt.subplots(
+        1, ncols, figsize=(WIDTH_IN, HEIGHT_IN), dpi=DPI, layout="constrained", squeeze=False
+    )
+    fig.suptitle(f"{title}\n", fontsize=11, fontweight="bold")
+    fig.text(0.5, 0.935, subtitle, ha="center", va="top", fontsize=8, color="#444444")
+    for ax in axes[0]:
+        ax.grid(True, color="#dddddd", linewidth=0.6)
+        ax.set_axisbelow(True)
+    return fig, list(axes[0])
 
 
 def _save(fig: plt.Figure, out: Path, stem: str) -> list[Path]:
@@ -44,42 +74,63 @@ def _save(fig: plt.Figure, out: Path, stem: str) -> list[Path]:
     return paths
 
 
-def plot_accuracy_vs_cost(
-    analysis: Analysis, cost: str, label: str, out: Path, subtitle: str
-) -> list[Path]:
-    """Mean validation accuracy (95% CI) against a cost on a log axis, with the front's
-    staircase, the baseline and the recommended plan marked."""
-    v = analysis.variants[analysis.variants["n_seeds"] > 0]
-    fig, ax = _figure(f"Validation accuracy vs {label}", subtitle)
-    front_col = f"front_{'params' if cost == 'params' else 'macs'}"
-    steps = staircase(v["val_acc_mean"].tolist(), v[cost].tolist(), v[front_col].tolist())
-    if steps:
-        xs, ys = zip(*steps, strict=True)
-        ax.step(
-            xs, ys, where="post", color="#999999", linewidth=1.2, zorder=1, label="Pareto front"
-        )
-    for i, row in enumerate(v.itertuples()):
-        err = np.array(
-            [[row.val_acc_mean - row.val_acc_ci_low], [row.val_acc_ci_high - row.val_acc_mean]]
-        )
-        err = np.nan_to_num(err, nan=0.0)
+def _legend_below(fig: plt.Figure, ax: plt.Axes, n_items: int) -> None:
+    """One legend under the plot, so it never hides a point."""
+    handles, labels = ax.get_legend_handles_labels()
+    fig.legend(
+        handles,
+        labels,
+        loc="outside lower center",
+        ncol=min(4, max(1, n_items)),
+        frameon=False,
+        markerscale=0.8,
+        handletextpad=0.4,
+        columnspacing=1.2,
+    )
+
+
+def _percent_axis(ax: plt.Axes, label: str) -> None:
+    ax.yaxis.set_major_formatter(PercentFormatter(xmax=1.0, decimals=1))
+    ax.set_ylabel(label)
+
+
+def _log_cost_axis(ax: plt.Axes, label: str) -> None:
+    """A log axis with few, short tick labels (10k, 20k, 50k, …); no crowded minor labels."""
+    ax.set_xscale("log")
+    ax.xaxis.set_major_locator(LogLocator(base=10, subs=(1.0, 2.0, 5.0)))
+    ax.xaxis.set_major_formatter(FuncFormatter(lambda x, _: human(x).replace(".0", "")))
+    ax.xaxis.set_minor_formatter(NullFormatter())
+    ax.set_xlabel(f"{label} (log scale)")
+
+
+def _trained(analysis: Analysis) -> pd.DataFrame:
+    v = analysis.variants.reset_index(drop=True)
+    v["order"] = range(len(v))  # colour index: fixed by plan order, the same in every plot
+    return v[v["n_seeds"] > 0]
+
+
+def _ci_error(row) -> np.ndarray:
+    """Error-bar lengths of the 95% CI, clipped to accuracy's own range [0, 1]."""
+    low = max(row.val_acc_ci_low, 0.0) if math.isfinite(row.val_acc_ci_low) else row.val_acc_mean
+    high = min(row.val_acc_ci_high, 1.0) if math.isfinite(row.val_acc_ci_high) else row.val_acc_mean
+    return np.array([[row.val_acc_mean - low], [high - row.val_acc_mean]])
+
+
+def _points(ax: plt.Axes, v: pd.DataFrame, x: str) -> None:
+    for row in v.itertuples():
+        colour, marker = style(row.order)
         ax.errorbar(
-            getattr(row, cost),
+            getattr(row, x),
             row.val_acc_mean,
-            yerr=err,
-            fmt=MARKERS[i % 10],
-            color=OKABE_ITO[i % 8],
+            yerr=_ci_error(row),
+            fmt=marker,
+            color=colour,
             markersize=6,
             capsize=3,
-            label=row.variant,
+            elinewidth=1.1,
+            label=f"{row.variant} (n={row.n_seeds})",
             zorder=3,
         )
-    _mark(ax, v, cost, analysis)
-    ax.set_xscale("log")
-    ax.set_xlabel(f"{label} (log scale)")
-    ax.set_ylabel("validation accuracy (mean, 95% CI)")
-    ax.legend(fontsize=7, loc="lower right", ncol=2, framealpha=0.9)
-    return _save(fig, out, f"accuracy_vs_{cost}")
 
 
 def _mark(ax: plt.Axes, v: pd.DataFrame, x: str, analysis: Analysis) -> None:
@@ -88,10 +139,10 @@ def _mark(ax: plt.Axes, v: pd.DataFrame, x: str, analysis: Analysis) -> None:
         ax.scatter(
             rec[x],
             rec["val_acc_mean"],
-            s=260,
+            s=220,
             facecolors="none",
             edgecolors="#000000",
-            linewidths=1.6,
+            linewidths=1.5,
             zorder=4,
             label="recommended",
         )
@@ -100,78 +151,104 @@ def _mark(ax: plt.Axes, v: pd.DataFrame, x: str, analysis: Analysis) -> None:
         ax.scatter(
             base[x],
             base["val_acc_mean"],
-            s=140,
+            s=120,
             marker="s",
             facecolors="none",
             edgecolors="#555555",
-            linewidths=1.2,
+            linewidths=1.1,
             linestyle="--",
             zorder=4,
             label="baseline",
         )
 
 
+def plot_accuracy_vs_cost(
+    analysis: Analysis, cost: str, label: str, out: Path, subtitle: str
+) -> list[Path]:
+    """Mean validation accuracy (95% CI) against a cost on a log axis, with the front's
+    staircase, the baseline and the recommended plan marked."""
+    v = _trained(analysis)
+    fig, (ax,) = _figure(f"Validation accuracy vs {label}", subtitle)
+    front_col = {"params": "front_params", "macs": "front_macs", "latency_ms": "front_latency"}
+    steps = staircase(v["val_acc_mean"].tolist(), v[cost].tolist(), v[front_col[cost]].tolist())
+    if steps:
+        xs, ys = zip(*steps, strict=True)
+        ax.step(
+            xs, ys, where="post", color="#888888", linewidth=1.2, zorder=1, label="Pareto front"
+        )
+    _points(ax, v, cost)
+    _mark(ax, v, cost, analysis)
+    _log_cost_axis(ax, label)
+    lo, hi = v[cost].min(), v[cost].max()
+    ax.set_xlim(lo / 1.6, hi * 1.6)  # room for markers at both ends of a log axis
+    _percent_axis(ax, "validation accuracy (mean, 95% CI)")
+    _legend_below(fig, ax, len(v) + 3)
+    return _save(fig, out, f"accuracy_vs_{cost.removesuffix('_ms')}")
+
+
 def plot_rf_vs_accuracy(analysis: Analysis, out: Path, subtitle: str) -> list[Path]:
-    v = analysis.variants[analysis.variants["n_seeds"] > 0]
-    fig, ax = _figure("Validation accuracy vs receptive field", subtitle)
-    for i, row in enumerate(v.itertuples()):
-        err = np.nan_to_num(
-            [[row.val_acc_mean - row.val_acc_ci_low], [row.val_acc_ci_high - row.val_acc_mean]],
-            nan=0.0,
-        )
-        ax.errorbar(
-            row.rf,
-            row.val_acc_mean,
-            yerr=err,
-            fmt=MARKERS[i % 10],
-            color=OKABE_ITO[i % 8],
-            capsize=3,
-            label=row.variant,
-        )
-    _mark(ax, v, "rf", analysis)
-    ax.set_xlabel("theoretical receptive field at the head (input pixels)")
-    ax.set_ylabel("validation accuracy (mean, 95% CI)")
-    ax.legend(fontsize=7, loc="lower right", ncol=2, framealpha=0.9)
+    v = _trained(analysis).copy()
+    # Variants with the same rf are drawn side by side (a small dodge), not on top of each other.
+    rank = v.groupby("rf").cumcount()
+    size = v.groupby("rf")["rf"].transform("size")
+    v["rf_drawn"] = v["rf"] + 0.25 * (rank - (size - 1) / 2)
+    fig, (ax,) = _figure("Validation accuracy vs receptive field", subtitle)
+    _points(ax, v, "rf_drawn")
+    _mark(ax, v, "rf_drawn", analysis)
+    ax.xaxis.set_major_locator(MaxNLocator(integer=True))
+    ax.set_xlabel("theoretical receptive field at the head (input pixels; equal values dodged)")
+    _percent_axis(ax, "validation accuracy (mean, 95% CI)")
+    _legend_below(fig, ax, len(v) + 2)
     return _save(fig, out, "rf_vs_accuracy")
 
 
 def plot_learning_curves(analysis: Analysis, out: Path, subtitle: str) -> list[Path]:
-    """Mean validation accuracy per epoch, one line per variant (band: min–max over seeds)."""
-    fig, ax = _figure("Learning curves", subtitle)
+    """Mean validation accuracy per epoch, one line per variant (band: min–max over seeds);
+    the right panel zooms into the second half of training, where the plans separate."""
+    fig, (full, zoom) = _figure("Learning curves", subtitle, ncols=2)
     curves = analysis.curves
+    last = int(curves["epoch"].max()) + 1 if len(curves) else 1
+    start = max(1, last // 2)
+    lows = []
     for i, name in enumerate(analysis.variants["variant"]):
-        mine = curves[curves["variant"] == name] if len(curves) else curves
+        mine = curves[curves["variant"] == name]
         if not len(mine):
             continue
+        colour, marker = style(i)
         g = mine.groupby("epoch")["val_acc"]
         epochs = g.mean().index.to_numpy() + 1
-        ax.plot(
-            epochs,
-            g.mean().to_numpy(),
-            marker=MARKERS[i % 10],
-            markersize=3,
-            color=OKABE_ITO[i % 8],
-            label=name,
-            linewidth=1.3,
-        )
-        ax.fill_between(
-            epochs,
-            g.min().to_numpy(),
-            g.max().to_numpy(),
-            color=OKABE_ITO[i % 8],
-            alpha=0.12,
-            linewidth=0,
-        )
-    ax.set_xlabel("epoch")
-    ax.set_ylabel("validation accuracy (mean over seeds)")
-    ax.legend(fontsize=7, loc="lower right", ncol=2, framealpha=0.9)
+        mean, low, high = g.mean().to_numpy(), g.min().to_numpy(), g.max().to_numpy()
+        n = int(mine["seed"].nunique())
+        for ax in (full, zoom):
+            ax.plot(
+                epochs,
+                mean,
+                marker=marker,
+                markersize=3,
+                color=colour,
+                linewidth=1.2,
+                label=f"{name} (n={n})" if ax is full else None,
+            )
+            ax.fill_between(epochs, low, high, color=colour, alpha=0.12, linewidth=0)
+        lows.append(low[epochs >= start].min() if (epochs >= start).any() else 1.0)
+    zoom.set_xlim(start - 0.3, last + 0.3)
+    if lows:
+        zoom.set_ylim(max(0.0, min(lows) - 0.005), 1.0005)
+    for ax in (full, zoom):
+        ax.set_xlabel("epoch")
+        ax.xaxis.set_major_locator(MaxNLocator(integer=True))
+        ax.yaxis.set_major_formatter(PercentFormatter(xmax=1.0, decimals=0 if ax is full else 1))
+    full.set_ylabel("validation accuracy (mean; band: min–max over seeds)")
+    full.set_title("all epochs")
+    zoom.set_title(f"epochs {start}–{last}")
+    _legend_below(fig, full, len(analysis.variants))
     return _save(fig, out, "learning_curves")
 
 
 def plot_grid_heatmap(analysis: Analysis, out: Path, subtitle: str) -> list[Path]:
     table = analysis.grid
     assert table is not None
-    fig, ax = _figure("Mean validation accuracy over the grid", subtitle)
+    fig, (ax,) = _figure("Mean validation accuracy over the grid", subtitle)
     ax.grid(False)
     data = table.to_numpy(dtype=float)
     image = ax.imshow(data, cmap="cividis", aspect="auto")
@@ -182,8 +259,72 @@ def plot_grid_heatmap(analysis: Analysis, out: Path, subtitle: str) -> list[Path
     finite = data[np.isfinite(data)]
     middle = (finite.min() + finite.max()) / 2 if finite.size else 0
     for (r, c), value in np.ndenumerate(data):
-        text = "n/a" if not np.isfinite(value) else f"{value:.3f}"
+        text = "not trained" if not np.isfinite(value) else f"{100 * value:.2f}%"
         colour = "white" if np.isfinite(value) and value < middle else "black"
         ax.text(c, r, text, ha="center", va="center", fontsize=8, color=colour)
-    fig.colorbar(image, ax=ax, label="validation accuracy")
+    bar = fig.colorbar(image, ax=ax, label="validation accuracy (mean over seeds)")
+    bar.formatter = PercentFormatter(xmax=1.0, decimals=1)
+    bar.update_ticks()
     return _save(fig, out, "grid_heatmap")
+
+
+def plot_effective_rf(maps: list[ErfMap], roles: list[str], out: Path, subtitle: str) -> list[Path]:
+    """One panel per map: the mean input-gradient magnitude of the centre output (Luo et al.
+    2016), with the theoretical receptive field drawn as a dashed square (clipped to the
+    image) and the squares holding 50% and 95% of the gradient mass as solid ones."""
+    fig, axes = _figure("Effective vs theoretical receptive field", subtitle, ncols=len(maps))
+    image = None
+    for ax, erf, role in zip(axes, maps, roles, strict=True):
+        ax.grid(False)
+        image = ax.imshow(erf.grad, cmap="cividis", vmin=0, vmax=1, interpolation="nearest")
+        cy, cx = erf.geometry.centre
+        for side, colour, dash in (
+            (erf.geometry.rf[0], "#E69F00", "--"),
+            (erf.extent95, "#FFFFFF", "-"),
+            (erf.extent50, "#D55E00", "-"),
+        ):
+            half = side / 2
+            ax.add_patch(
+                Rectangle(
+                    (cx - half, cy - half),
+                    side,
+                    side,
+                    fill=False,
+                    edgecolor=colour,
+                    linestyle=dash,
+                    linewidth=1.4,
+                    clip_on=True,
+                )
+            )
+        ax.plot([cx], [cy], marker="+", color="#D55E00", markersize=8)
+        h, w = erf.grad.shape
+        ax.set_xlim(-0.5, w - 0.5)
+        ax.set_ylim(h - 0.5, -0.5)
+        beyond = " (beyond the input)" if erf.geometry.rf[0] > max(h, w) else ""
+        ax.set_title(
+            f"{role}: {erf.variant}\ntheoretical rf {erf.geometry.rf[0]} px{beyond}\n"
+            f"50% of the mass in {erf.extent50} px · 95% in {erf.extent95} px",
+            fontsize=7.5,
+        )
+        ax.set_xlabel("input column (px)")
+        ax.set_ylabel("input row (px)")
+    if image is not None:
+        fig.colorbar(
+            image, ax=axes, shrink=0.8, label="mean |input gradient| of the centre output (max = 1)"
+        )
+    fig.text(
+        0.5,
+        0.005,
+        "dashed: theoretical receptive field · solid white / red: squares holding 95% / 50% "
+        "of the gradient mass",
+        ha="center",
+        va="bottom",
+        fontsize=7,
+        color="#444444",
+    )
+    return _save(fig, out, "effective_rf")
+
+
+def rendering():
+    """The rc settings every plot is drawn and saved under (fonts, deterministic SVG ids)."""
+    return plt.rc_context(STYLE)

@@ -19,6 +19,7 @@ from kablate.spec.schema import (
     DataSpec,
     FilterSpec,
     NetworkSpec,
+    PickSpec,
     PlanSpec,
     RecipeSpec,
     SweepSpec,
@@ -49,7 +50,7 @@ class SweepTable:
     story: str = ""
 
 
-TOP_LEVEL = ("sweep", "data", "network", "recipe", "plan", "grid", "filter")
+TOP_LEVEL = ("sweep", "data", "network", "recipe", "plan", "grid", "filter", "pick")
 
 
 def load_sweep(path: str | Path) -> SweepSpec:
@@ -81,6 +82,7 @@ def sweep_from_dict(raw: dict, path: Path) -> SweepSpec:
     network = read_table(NetworkSpec, network_raw, where.key("network"))
     recipe = read_table(RecipeSpec, recipe_raw, where.key("recipe"))
     filters = read_table(FilterSpec, raw.get("filter", {}), where.key("filter"))
+    pick = read_table(PickSpec, raw.get("pick", {}), where.key("pick"))
     plans = read_plans(raw.get("plan", []), where.key("plan"))
     grids = read_grids(raw.get("grid", []), where.key("grid"))
     if not plans and not grids:
@@ -98,6 +100,7 @@ def sweep_from_dict(raw: dict, path: Path) -> SweepSpec:
         filters=filters,
         baseline=head.baseline,
         story=head.story,
+        pick=pick,
         raw=resolved,
     )
 
@@ -111,6 +114,7 @@ class _TopLevel:
     plan: Any = None
     grid: Any = None
     filter: Any = None
+    pick: Any = None
 
 
 def read_toml(path: Path, source: str) -> dict:

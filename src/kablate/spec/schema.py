@@ -102,6 +102,16 @@ class FilterSpec:
 
 
 @dataclass(frozen=True)
+class PickSpec:
+    """How the report picks the recommended plan: the cheapest variant by ``cost`` whose mean
+    validation accuracy is within ``within_se`` standard errors of the best one's (the
+    one-standard-error rule). ``kablate report --cost/--within-se`` override it."""
+
+    cost: Literal["macs", "params", "latency"] = "macs"
+    within_se: float = check(between(0.0, 10.0), 1.0)
+
+
+@dataclass(frozen=True)
 class PlanSpec:
     """One explicit kernel plan: a name and a kernel spec per layer group."""
 
@@ -125,4 +135,5 @@ class SweepSpec:
     filters: FilterSpec
     baseline: str = ""  # a plan name; default: the all-3×3 variant
     story: str = ""
+    pick: PickSpec = field(default_factory=PickSpec)  # the selection rule's cost and tolerance
     raw: dict = field(default_factory=dict, compare=False, repr=False)  # resolved TOML

@@ -1,0 +1,143 @@
+"""Per-variant tables from synthetic trial rows: statistics, fronts and partial sweeps."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from scipy import stats
+
+from kablate.analysis.summary import analyze
+
+
+def plan(latency: bool = False) -> dict:
+    def v(i, name, params, macs, rf):
+        return {
+            "id": f"v{i}",
+            "name": name,
+            "plan": {"body": name},
+            "params": params,
+            "macs": macs,
+            "flops": 2 * macs,
+            "rf": rf,
+            "act_mem_bytes": 1000,
+            "latency_ms": (1.0 + i) if latency else None,
+            "axes": [],
+            "grid": None,
+        }
+
+    return {
+        "seeds": [0, 1, 2],
+        "baseline": "v0",
+        "variants": [
+            v(0, "base", 100, 1000, 9),
+            v(1, "cheap", 50, 400, 9),
+            v(2, "big", 300, 5000, 15),
+            v(3, "never", 10, 10, 5),
+        ],
+    }
+
+
+VAL = {"v0": [0.90, 0.91, 0.92], "v1": [0.89, 0.91, 0.90], "v2": [0.93, 0.94]}
+
+
+def rows() -> list[dict]:
+    out = []
+    for seed in (0, 1, 2):
+        for vid, name in (("v0", "base"), ("v1", "cheap"), ("v2", "big"), ("v3", "never")):
+            accs = VAL.get(vid, [])
+            done = seed < len(accs)
+            out.append(
+                {
+                    "variant": name,
+                    "variant_id": vid,
+                    "seed": seed,
+                    "status": "done" if done else ("running" if vid == "v2" else "waiting"),
+                    "val_acc": accs[seed] if done else None,
+                    "test_acc": accs[seed] - 0.01 if done else None,
+                    "train_seconds": 1.0 if done else None,
+                    "samples_per_second": None,
+                }
+            )
+    return out
+
+
+def test_variant_statistics_match_scipy_and_missing_trials_are_counted():
+    a = analyze(rows(), [], plan(), [])
+    v = a.variants.set_index("variant")
+    x = np.array(VAL["v0"])
+    low, high = stats.t.interval(0.95, df=2, loc=x.mean(), scale=stats.sem(x))  # reference
+    assert v.loc["base", "val_acc_mean"] == pytest.approx(x.mean())
+    assert v.loc["base", "val_acc_std"] == pytest.approx(x.std(ddof=1))
+    assert (v.loc["base", "val_acc_ci_low"], v.loc["base", "val_acc_ci_high"]) == (
+        pytest.approx(low),
+        pytest.approx(high),
+    )
+    assert v.loc["base", "test_acc_mean"] == pytest.approx(x.mean() - 0.01)
+    assert v["n_seeds"].to_dict() == {"base": 3, "cheap": 3, "big": 2, "never": 0}
+    assert v["n_missing"].to_dict() == {"base": 0, "cheap": 0, "big": 1, "never": 3}
+    assert a.n_missing == 4
+    assert sorted(map(tuple, a.missing[["variant", "seed"]].values.tolist()))[:2] == [
+        ("big", 2),
+        ("never", 0),
+    ]
+    assert math.isnan(v.loc["never", "val_acc_mean"])
+
+
+def test_fronts_are_booleans_and_ignore_untrained_variants():
+    a = analyze(rows(), [], plan(), [])
+    v = a.variants.set_index("variant")
+    # cheap (0.900, 400 MACs) and big (0.935, 5000) are on the MACs front; base (0.91 at
+    # 1000 MACs) is not beaten by cheap (less accurate) nor by big (costlier): also on it.
+    assert v["front_macs"].to_dict() == {"base": True, "cheap": True, "big": True, "never": False}
+    assert v["front_macs"].dtype == bool and v["front_params"].dtype == bool
+    assert v["front_latency"].isna().all()  # not measured: no latency front
+    assert v.loc["never", "front_all"] == False  # noqa: E712 (numpy bool)
+    assert int(v["recommended"].sum()) == 1
+
+
+def test_latency_front_when_measured():
+    a = analyze(rows(), [], plan(latency=True), [], cost="latency")
+    v = a.variants.set_index("variant")
+    # latency: base 1 ms, cheap 2 ms, big 3 ms; base dominates cheap on latency.
+    assert v["front_latency"].to_dict() == {
+        "base": True,
+        "cheap": False,
+        "big": True,
+        "never": False,
+    }
+    assert a.selection.cost == "latency_ms"
+
+
+def test_baseline_comparison_is_paired_by_seed():
+    a = analyze(rows(), [], plan(), [])
+    big = a.comparisons["big"]
+    assert big.n == 2  # seeds 0 and 1 only: big's seed 2 is still running
+    assert big.mean_diff == pytest.approx(np.mean([0.93 - 0.90, 0.94 - 0.91]))
+    assert a.comparisons["never"].too_few
+    assert set(a.comparisons) == {"cheap", "big", "never"}
+
+
+def test_grid_table_for_a_two_axis_grid():
+    p = plan()
+    for v, axes in zip(
+        p["variants"], [("3", "3"), ("3", "5"), ("5", "3"), ("5", "5")], strict=True
+    ):
+        v["grid"], v["axes"] = 0, [["stem", axes[0]], ["body", axes[1]]]
+    a = analyze(rows(), [], p, [{"stem": ["3", "5"], "body": ["3", "5"]}])
+    assert a.grid.loc["3", "3"] == pytest.approx(0.91)
+    assert a.grid.loc["5", "3"] == pytest.approx(0.935)
+    assert math.isnan(a.grid.loc["5", "5"])
+    assert analyze(rows(), [], p, [{"stem": ["3", "5"]}]).grid is None
+
+
+def test_grid_cell_kept_under_an_earlier_plan_name_is_found_by_its_alias():
+    p = plan()
+    # "base" is an explicit plan; the grid cell stem=3+body=3 built the same network.
+    p["variants"][0]["aliases"] = ["stem=3+body=3"]
+    for v, axes in zip(p["variants"][1:3], [("3", "5"), ("5", "3")], strict=True):
+        v["grid"], v["axes"] = 0, [["stem", axes[0]], ["body", axes[1]]]
+    a = analyze(rows(), [], p, [{"stem": ["3", "5"], "body": ["3", "5"]}])
+    assert a.grid.loc["3", "3"] == pytest.approx(0.91)
+    assert a.grid.loc["3", "5"] == pytest.approx(0.90)

@@ -1,0 +1,165 @@
+"""`kablate report` after a tiny real run: the card, its links, its tables, determinism."""
+
+from __future__ import annotations
+
+import csv
+import json
+import re
+import shutil
+from pathlib import Path
+
+import pytest
+from click.testing import CliRunner
+
+from kablate.cli import main
+from kablate.errors import SweepError
+from kablate.report import write_report
+from kablate.report.build import selection_settings
+from kablate.spec import load_sweep
+from kablate.trials import RunOptions, open_results, run_sweep
+from tests.conftest import TINY_SWEEP, write_sweep
+
+
+@pytest.fixture(scope="module")
+def results(tmp_path_factory) -> Path:
+    """A finished tiny sweep (2 plans × 2 seeds, 2 epochs) with its report written."""
+    root = tmp_path_factory.mktemp("report")
+    sweep = write_sweep(root, TINY_SWEEP)
+    summary = run_sweep(
+        sweep, RunOptions(results_root=root / "results", workers=1, show_progress=False)
+    )
+    assert summary.counts == {"done": 4}
+    write_report(open_results(summary.results_dir))
+    return summary.results_dir
+
+
+def card_text(folder: Path) -> str:
+    return (folder / "report" / "model_card.md").read_text()
+
+
+@pytest.mark.slow
+def test_card_links_images_that_exist_and_holds_the_table_and_recommendation(results):
+    text = card_text(results)
+    links = re.findall(r"\]\(([^)]+)\)", text)
+    assert any(link.endswith(".png") for link in links)
+    for link in links:
+        assert not link.startswith("/"), "links must be relative"
+        assert (results / "report" / link).is_file(), link
+    for heading in (
+        "### Model details",
+        "### Intended use",
+        "### Metrics",
+        "### Training data",
+        "### Evaluation data",
+        "### Quantitative analyses",
+        "### Caveats and recommendations",
+    ):
+        assert heading in text  # Mitchell et al. 2019's section headings
+    assert "#### Variants and Pareto fronts" in text
+    assert "| all-3" in text and "| stem-5" in text
+    rows = list(csv.DictReader((results / "variants.csv").open()))
+    rec = [r["variant"] for r in rows if r["recommended"] == "True"]
+    assert len(rec) == 1
+    assert f"**Recommended kernel plan: {rec[0]}**" in text
+    assert "one-standard-error rule" in text and "§7.10" in text
+    assert "#### Comparison with the baseline" in text and "ttest_rel" in text
+    assert "safety-related" in text
+    assert "fingerprint `" in text and "Command: `" in text and "thread(s)" in text
+    # The effective receptive field was computed from the trials' checkpoints.
+    erf = text.split("#### Effective receptive field", 1)[1].split("####", 1)[0]
+    assert "Not computed" not in erf and "images × seeds" in erf
+    assert re.search(r"\| all-3 \| \d+ px \| \d+ px \| \d+ px \| 8×8 px \| 100 × 2 \|", erf)
+    assert "(effective_rf.png)" in text
+
+
+@pytest.mark.slow
+def test_variants_csv_has_the_contract_and_an_independent_front_agrees(results):
+    with (results / "variants.csv").open() as fh:
+        rows = list(csv.DictReader(fh))
+    contract = [
+        "variant",
+        "n_seeds",
+        "val_acc_mean",
+        "val_acc_std",
+        "val_acc_ci_low",
+        "val_acc_ci_high",
+        "test_acc_mean",
+        "test_acc_std",
+        "params",
+        "macs",
+        "rf",
+        "front_macs",
+        "front_params",
+        "recommended",
+    ]
+    assert set(contract) <= set(rows[0])
+    for cost in ("macs", "params"):
+        # Independent recomputation from the CSV alone (definition of Pareto dominance,
+        # common practice): on the front iff no other row is at least as accurate and as
+        # cheap and better on one; exact twins keep the smaller name.
+        pts = [(float(r["val_acc_mean"]), float(r[cost]), r["variant"]) for r in rows]
+        for acc, c, name in pts:
+            beaten = any(
+                (a2 >= acc and c2 <= c and (a2 > acc or c2 < c))
+                or (a2 == acc and c2 == c and n2 < name)
+                for a2, c2, n2 in pts
+                if n2 != name
+            )
+            row = next(r for r in rows if r["variant"] == name)
+            assert row[f"front_{cost}"] == str(not beaten), (cost, name)
+    assert json.loads((results / "variants.json").read_text())[0]["variant"] == rows[0]["variant"]
+    assert (results / "trials.json").is_file()
+
+
+@pytest.mark.slow
+def test_rebuilding_gives_the_same_markdown_apart_from_the_timestamp(results, tmp_path):
+    second = write_report(open_results(results), out=tmp_path / "again")
+    first = (results / "report" / "model_card.md").read_text().splitlines()
+    again = second.read_text().splitlines()
+    assert len(first) == len(again)
+    differ = [(a, b) for a, b in zip(first, again, strict=True) if a != b]
+    assert all(a.startswith("Generated ") for a, _ in differ) and len(differ) <= 1
+    for png in (results / "report").glob("*.[ps][nv]g"):
+        assert (tmp_path / "again" / png.name).read_bytes() == png.read_bytes(), png.name
+
+
+@pytest.mark.slow
+def test_no_password_or_home_path_is_written(results, tmp_path):
+    copy = tmp_path / "copy"
+    shutil.copytree(results, copy)
+    meta = json.loads((copy / "sweep.json").read_text())
+    home = str(Path.home())
+    meta["command"] = f"kablate run {home}/sweeps/x.toml --storage postgresql://kb:s3cret@db/kb"
+    meta["storage"] = "postgresql://kb:s3cret@db/kb"
+    (copy / "sweep.json").write_text(json.dumps(meta))
+    shutil.rmtree(copy / "trials")  # also: no checkpoints here → the maps are skipped
+    text = write_report(open_results(copy)).read_text()
+    assert "s3cret" not in text and "kb:***@db" in text
+    assert home not in text and "~/sweeps/x.toml" in text
+    assert "Not computed: no checkpoints" in text
+
+
+@pytest.mark.slow
+def test_cli_report_writes_to_out_and_refuses_an_unmeasured_cost(results, tmp_path):
+    runner = CliRunner()
+    ok = runner.invoke(main, ["report", str(results), "--out", str(tmp_path / "o"), "--no-erf"])
+    assert ok.exit_code == 0, ok.output
+    assert (tmp_path / "o" / "model_card.md").is_file()
+    bad = runner.invoke(
+        main, ["report", str(results), "--out", str(tmp_path / "b"), "--cost", "latency"]
+    )
+    assert bad.exit_code == 2 and "latency" in bad.output
+
+
+def test_pick_table_sets_the_rule_and_the_command_line_overrides_it(tmp_path):
+    body = TINY_SWEEP + '\n[pick]\ncost = "params"\nwithin_se = 2\n'
+    sweep = load_sweep(write_sweep(tmp_path, body))
+    assert (sweep.pick.cost, sweep.pick.within_se) == ("params", 2.0)
+    meta = {"resolved": sweep.raw}
+    assert selection_settings(meta, None, None) == ("params", 2.0)
+    assert selection_settings(meta, "macs", 0.5) == ("macs", 0.5)
+    assert selection_settings({"resolved": {}}, None, None) == ("macs", 1.0)
+    with pytest.raises(SweepError, match="pick.within_se"):
+        load_sweep(write_sweep(tmp_path, TINY_SWEEP + "\n[pick]\nwithin_se = -1\n"))
+    with pytest.raises(SweepError, match="pick.cost"):
+        load_sweep(write_sweep(tmp_path, TINY_SWEEP + '\n[pick]\ncost = "flops"\n'))
