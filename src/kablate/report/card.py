@@ -95,7 +95,7 @@ def render_card(a: Analysis, ctx: CardContext, now: datetime | None = None) -> s
         "",
         CAUTION,
         "",
-        *_caveats(a),
+        *_caveats(a, int(ctx.data["sizes"]["val"])),
         *_reproducing(meta),
     ]
     return "\n".join(out)
@@ -362,7 +362,34 @@ def _plots(plots: tuple[str, ...]) -> list[str]:
     return out
 
 
-def _caveats(a: Analysis) -> list[str]:
+def _resolution_caveat(a: Analysis, val_size: int) -> list[str]:
+    """Warn when the seed-to-seed standard error is finer than one validation image.
+
+    The standard error over seeds measures training noise only. The validation set adds its
+    own: accuracy moves in steps of 1/val_size, and a binomial standard error of
+    sqrt(p(1 − p)/val_size) (common practice). When the seed SE is below one step, the
+    selection rule's tolerance is narrower than a single image.
+    """
+    sel = a.selection
+    if sel is None or not val_size or not math.isfinite(sel.best_se):
+        return []
+    step = 1.0 / val_size
+    if sel.best_se >= step:
+        return []
+    best = a.variants.loc[a.variants["variant"] == sel.best, "val_acc_mean"].iloc[0]
+    binomial = math.sqrt(max(best * (1 - best), 0.0) / val_size)
+    return [
+        f"- The standard error over seeds of the best variant ({100 * sel.best_se:.2f} pp) is "
+        "smaller "
+        f"than one validation image ({100 * step:.2f} pp of {val_size}); the validation set's "
+        f"own sampling error is about {100 * binomial:.2f} pp (binomial). The rule may therefore "
+        "separate variants that differ by a single image: treat the variants within "
+        "about one validation image of the best as tied, or raise `val_size` or "
+        "`within_se` (`[pick]`)."
+    ]
+
+
+def _caveats(a: Analysis, val_size: int = 0) -> list[str]:
     out = []
     n = a.variants.loc[a.variants["n_seeds"] > 0, "n_seeds"]
     if len(n) and n.min() < 3:
@@ -372,6 +399,7 @@ def _caveats(a: Analysis) -> list[str]:
         )
     if a.n_missing:
         out.append(f"- {a.n_missing} planned trials have no result: see the list above.")
+    out += _resolution_caveat(a, val_size)
     unclear = [name for name, c in a.comparisons.items() if c.too_few or c.p_value >= 0.05]
     if unclear:
         out.append(
