@@ -14,12 +14,13 @@ import torch
 
 from kablate.data.sources import SOURCES, ImageSet
 from kablate.data.splits import balanced_subset, stratified_split
+from kablate.errors import DataError
 from kablate.spec.schema import DataSpec
 
 
 @dataclass(frozen=True)
 class Split:
-    images: torch.Tensor  # normalised float32, (N, C, H, W)
+    images: torch.Tensor  # normalised float32, (N, C, H, W) in channels_last memory format
     labels: torch.Tensor
     indices: np.ndarray  # into the source's pool it came from
 
@@ -46,29 +47,51 @@ class PreparedData:
 
     def manifest(self) -> dict:
         """What data was used, for the results folder and the report."""
+
         def digest(split: Split) -> str:
             return hashlib.sha1(split.indices.astype(np.int64).tobytes()).hexdigest()[:12]
 
         return {
             "source": self.spec.source,
             "test_pool": self.test_pool,
-            "sizes": {"train": len(self.train.labels), "val": len(self.val.labels),
-                      "test": len(self.test.labels)},
+            "sizes": {
+                "train": len(self.train.labels),
+                "val": len(self.val.labels),
+                "test": len(self.test.labels),
+            },
             "n_classes": self.n_classes,
             "in_shape": list(self.in_shape),
             "mean": list(self.mean),
             "std": list(self.std),
-            "indices_sha1": {"train": digest(self.train), "val": digest(self.val),
-                             "test": digest(self.test)},
-            "indices": {"train": self.train.indices.tolist(), "val": self.val.indices.tolist(),
-                        "test": self.test.indices.tolist()},
+            "indices_sha1": {
+                "train": digest(self.train),
+                "val": digest(self.val),
+                "test": digest(self.test),
+            },
+            "indices": {
+                "train": self.train.indices.tolist(),
+                "val": self.val.indices.tolist(),
+                "test": self.test.indices.tolist(),
+            },
         }
 
 
 def prepare_data(spec: DataSpec) -> PreparedData:
-    """Load the source and cut the fixed-seed, class-balanced splits."""
-    pools = SOURCES[spec.source].read(spec)
+    """Load the source and cut the fixed-seed, class-balanced splits.
+
+    Raises:
+        DataError: the dataset is missing or unreadable, a subset asks for more images than
+            there are, or the images do not have the source's shape.
+    """
+    source = SOURCES[spec.source]
+    pools = source.read(spec)
     pool = pools.train
+    shape = tuple(pool.images.shape[1:])
+    if source.shape is not None and shape != source.shape:
+        raise DataError(
+            f"dataset {spec.source} under {spec.root} has images of shape {shape}, but "
+            f"{spec.source} images are {source.shape} (channels, height, width)"
+        )
     labels = pool.labels.numpy()
     if pools.test is None:
         rest, test_idx = stratified_split(labels, spec.test_fraction, spec.split_seed)
@@ -77,22 +100,30 @@ def prepare_data(spec: DataSpec) -> PreparedData:
         rest, test_set = np.arange(len(labels)), pools.test
         test_idx, test_pool = np.arange(len(test_set.labels)), "the source's test split"
     val_idx, rest = balanced_subset(labels, rest, spec.val_size, spec.split_seed + 1, "val_size")
-    train_idx, _ = balanced_subset(labels, rest, spec.train_size, spec.split_seed + 2,
-                                   "train_size")
-    test_idx, _ = balanced_subset(test_set.labels.numpy(), test_idx, spec.test_size,
-                                  spec.split_seed + 3, "test_size")
-    train_images = pool.images[torch.from_numpy(train_idx)]
-    mean = train_images.mean(dim=(0, 2, 3))
-    std = train_images.std(dim=(0, 2, 3)).clamp_min(1e-6)
+    train_idx, _ = balanced_subset(labels, rest, spec.train_size, spec.split_seed + 2, "train_size")
+    test_idx, _ = balanced_subset(
+        test_set.labels.numpy(), test_idx, spec.test_size, spec.split_seed + 3, "test_size"
+    )
+    # Normalisation statistics from the training subset only (no peeking at val or test).
+    train_images = pool.as_float(torch.from_numpy(train_idx)).double()
+    mean = train_images.mean(dim=(0, 2, 3)).float()
+    std = train_images.std(dim=(0, 2, 3)).float().clamp_min(1e-6)
+    del train_images
 
     def cut(source: ImageSet, idx: np.ndarray) -> Split:
         t = torch.from_numpy(idx)
-        images = (source.images[t] - mean[None, :, None, None]) / std[None, :, None, None]
-        return Split(images.contiguous(), source.labels[t].clone(), idx)
+        images = (source.as_float(t) - mean[None, :, None, None]) / std[None, :, None, None]
+        # channels_last once here, so that batches are sliced without a layout copy.
+        images = images.contiguous(memory_format=torch.channels_last)
+        return Split(images, source.labels[t].clone(), idx)
 
     return PreparedData(
-        spec=spec, train=cut(pool, train_idx), val=cut(pool, val_idx),
-        test=cut(test_set, test_idx), classes=pool.classes,
-        mean=tuple(float(m) for m in mean), std=tuple(float(s) for s in std),
+        spec=spec,
+        train=cut(pool, train_idx),
+        val=cut(pool, val_idx),
+        test=cut(test_set, test_idx),
+        classes=pool.classes,
+        mean=tuple(float(m) for m in mean),
+        std=tuple(float(s) for s in std),
         test_pool=test_pool,
     )

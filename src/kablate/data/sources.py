@@ -1,8 +1,10 @@
-"""Dataset sources: where images come from, as uint8-free float tensors in [0, 1].
+"""Dataset sources: where images come from, read once into memory.
 
-Each source is declared with its shape, its classes and how to read it. torchvision sources
-read an existing ``root`` and download only when the sweep says ``download = true``; a missing
-dataset gets an error that says where we looked and how to fetch it.
+Each source is declared with its shape, its class count, how to read it and where its files are
+expected. torchvision sources read an existing ``root`` and download only when the sweep says
+``download = true``; a missing dataset gets an error that says where we looked and how to fetch
+it. Pools keep the source's own uint8 pixels, so a 50,000-image training pool costs its bytes,
+not four times that; `kablate.data.prepare` converts only the chosen subset to float.
 """
 
 from __future__ import annotations
@@ -17,14 +19,26 @@ import torch
 from kablate.errors import DataError
 from kablate.spec.schema import DataSpec
 
+GRAYSCALE_MODES = ("1", "L", "LA", "I", "I;16", "F")  # PIL modes read as one channel
+
 
 @dataclass(frozen=True)
 class ImageSet:
-    """A split of a dataset held in memory: images (N, C, H, W) float32 in [0, 1]."""
+    """A split of a dataset held in memory, images (N, C, H, W).
+
+    ``images`` is uint8 (0..255) as the source stores it, or float32 already in [0, 1].
+    """
 
     images: torch.Tensor
     labels: torch.Tensor  # int64, (N,)
     classes: tuple[str, ...]
+
+    def as_float(self, idx: torch.Tensor) -> torch.Tensor:
+        """The images at ``idx`` as float32 in [0, 1]."""
+        picked = self.images[idx]
+        if picked.dtype == torch.uint8:
+            return picked.float().div_(255.0)
+        return picked.float()
 
 
 @dataclass(frozen=True)
@@ -41,21 +55,25 @@ class Source:
     shape: tuple[int, int, int] | None  # None: read from the data (folder)
     n_classes: int | None
     read: Callable[[DataSpec], Pools]
-    fetch_hint: str = ""
+    expects: tuple[str, ...] = ()  # files or folders under `root` that the reader needs
 
 
 def _to_images(array: np.ndarray, layout: str) -> torch.Tensor:
-    """uint8 arrays in NHW, NHWC or NCHW layout to float32 NCHW in [0, 1]."""
+    """uint8 arrays in NHW, NHWC or NCHW layout to uint8 NCHW."""
     t = torch.from_numpy(np.ascontiguousarray(array))
     if layout == "NHW":
         t = t.unsqueeze(1)
     elif layout == "NHWC":
         t = t.permute(0, 3, 1, 2)
-    return t.contiguous().float().div_(255.0)
+    return t.contiguous()
 
 
 def read_digits(spec: DataSpec) -> Pools:
-    """scikit-learn's bundled copy of the UCI handwritten digits: 1,797 8×8 images, offline."""
+    """scikit-learn's bundled copy of the UCI handwritten digits: 1,797 8×8 images, offline.
+
+    Pixels are counts 0..16 (of 4×4 blocks of the original 32×32 bitmaps); they are scaled to
+    [0, 1] as float32.
+    """
     from sklearn.datasets import load_digits
 
     bunch = load_digits()
@@ -64,89 +82,176 @@ def read_digits(spec: DataSpec) -> Pools:
     return Pools(ImageSet(images, labels, tuple(str(c) for c in range(10))), None)
 
 
-def _torchvision(cls_name: str, layout: str, split_kw: str = "train") -> Callable:
+def _torchvision(name: str, cls_name: str, layout: str) -> Callable[[DataSpec], Pools]:
+    """A reader for a torchvision dataset class with a train and a test split."""
+
     def read(spec: DataSpec) -> Pools:
         import torchvision.datasets as tvd
 
         cls = getattr(tvd, cls_name)
         sets = []
         for train in (True, False):
-            kw = {"train": train} if split_kw == "train" else {"split": "train" if train else "test"}
+            split = {"split": "train" if train else "test"} if name == "svhn" else {"train": train}
             try:
-                ds = cls(root=spec.root, download=spec.download, **kw)
-            except (RuntimeError, FileNotFoundError) as exc:
-                raise DataError(_missing(spec, cls_name, exc)) from None
+                ds = cls(root=spec.root, download=spec.download, **split)
+            except (RuntimeError, OSError, ValueError, AssertionError) as exc:
+                raise DataError(missing_message(spec, cls_name, exc)) from None
             data = ds.data.numpy() if isinstance(ds.data, torch.Tensor) else np.asarray(ds.data)
             targets = getattr(ds, "targets", None)
             if targets is None:
-                targets = ds.labels
+                targets = ds.labels  # SVHN
             labels = torch.as_tensor(np.asarray(targets), dtype=torch.int64)
-            classes = tuple(getattr(ds, "classes", None) or sorted({int(x) for x in labels}))
+            classes = getattr(ds, "classes", None) or sorted({int(x) for x in labels})
             sets.append(ImageSet(_to_images(data, layout), labels, tuple(map(str, classes))))
         return Pools(sets[0], sets[1])
 
     return read
 
 
-def _missing(spec: DataSpec, cls_name: str, exc: Exception) -> str:
+def missing_message(spec: DataSpec, cls_name: str, exc: Exception) -> str:
+    """Where we looked, what torchvision said, and the three ways to fix it."""
+    root = Path(spec.root).resolve()
+    expected = ", ".join(str(root / p) for p in SOURCES[spec.source].expects)
+    fetch = (
+        "the download failed (it needs internet); fetch the files on a machine that has it"
+        if spec.download
+        else "set `data.download = true` to let torchvision fetch them (needs internet)"
+    )
     return (
-        f"dataset {spec.source} was not found under {Path(spec.root).resolve()} "
-        f"(torchvision.datasets.{cls_name} said: {exc}). Put the files there, point "
-        "`data.root` at them, or set `data.download = true` to fetch them (needs internet)."
+        f"dataset {spec.source} was not found or could not be read under {root}: expected "
+        f"{expected} (torchvision.datasets.{cls_name} said: {exc}). Put the files there, "
+        f"point `data.root` at the folder that holds them, or {fetch}."
     )
 
 
 def read_folder(spec: DataSpec) -> Pools:
-    """An image-folder tree (one sub-folder per class). ``root/train`` and ``root/test``
-    are used as splits when both exist; otherwise the whole tree is the training pool."""
+    """An image-folder tree (one sub-folder per class), read with torchvision's ImageFolder.
+
+    ``root/train`` and ``root/test`` are used as splits when both exist; otherwise the whole
+    tree is the training pool. Images are read as one channel when every image is grayscale,
+    else as RGB.
+    """
     root = Path(spec.root)
     if (root / "train").is_dir() and (root / "test").is_dir():
-        return Pools(_read_image_folder(root / "train"), _read_image_folder(root / "test"))
+        train, test = _read_image_folder(root / "train"), _read_image_folder(root / "test")
+        if train.classes != test.classes:
+            raise DataError(
+                f"{(root / 'train').resolve()} and {(root / 'test').resolve()} have different "
+                f"class folders ({list(train.classes)} against {list(test.classes)}); they "
+                "must have the same ones"
+            )
+        return Pools(train, test)
     return Pools(_read_image_folder(root), None)
 
 
-def _read_image_folder(root: Path) -> ImageSet:
+def _list_image_folder(root: Path):
     from torchvision.datasets import ImageFolder
-    from torchvision.transforms.functional import pil_to_tensor
 
     if not root.is_dir():
         raise DataError(
             f"image folder {root.resolve()} does not exist; `data.root` must name a folder "
-            "with one sub-folder of images per class"
+            "with one sub-folder of images per class (or `train/` and `test/` folders of them)"
         )
     try:
-        ds = ImageFolder(str(root))
+        return ImageFolder(str(root))  # lists the files; we decode them ourselves
     except (FileNotFoundError, RuntimeError) as exc:
         raise DataError(f"image folder {root.resolve()} cannot be read: {exc}") from None
-    tensors = [pil_to_tensor(ds.loader(path)) for path, _ in ds.samples]
-    shapes = {tuple(t.shape) for t in tensors}
-    if len(shapes) != 1:
+
+
+def _scan_headers(root: Path, paths: list[str]) -> tuple[int, int, int]:
+    """(channels, height, width) of a folder's images, from their headers only."""
+    from PIL import Image
+
+    modes, sizes = set(), set()
+    for path in paths:
+        try:
+            with Image.open(path) as img:
+                modes.add(img.mode)
+                sizes.add(img.size)
+        except OSError as exc:  # PIL's UnidentifiedImageError is an OSError
+            raise DataError(f"image {Path(path).resolve()} cannot be read: {exc}") from None
+    if len(sizes) != 1:
         raise DataError(
-            f"images under {root.resolve()} have {len(shapes)} different shapes "
-            f"({sorted(shapes)[:3]}...); resize them to one size first"
+            f"images under {root.resolve()} have {len(sizes)} different sizes "
+            f"({sorted(sizes)[:3]}...); resize them to one size first"
         )
-    images = torch.stack(tensors).float().div_(255.0)
+    ((width, height),) = sizes
+    return (1 if modes <= set(GRAYSCALE_MODES) else 3), height, width
+
+
+def _read_image_folder(root: Path) -> ImageSet:
+    from PIL import Image
+    from torchvision.transforms.functional import pil_to_tensor
+
+    ds = _list_image_folder(root)
+    paths = [path for path, _ in ds.samples]
+    mode = "L" if _scan_headers(root, paths)[0] == 1 else "RGB"
+    tensors = []
+    for path in paths:
+        with Image.open(path) as img:
+            tensors.append(pil_to_tensor(img.convert(mode)))
     labels = torch.tensor([label for _, label in ds.samples], dtype=torch.int64)
-    return ImageSet(images, labels, tuple(ds.classes))
+    return ImageSet(torch.stack(tensors), labels, tuple(ds.classes))
+
+
+def _folder_shape(root: Path) -> tuple[tuple[int, int, int], int]:
+    """Shape and class count of an image folder, from the file headers only."""
+    if (root / "train").is_dir() and (root / "test").is_dir():
+        root = root / "train"
+    ds = _list_image_folder(root)
+    return _scan_headers(root, [path for path, _ in ds.samples]), len(ds.classes)
+
+
+def _torchvision_source(
+    name: str,
+    cls_name: str,
+    layout: str,
+    shape: tuple[int, int, int],
+    n_classes: int,
+    expects: tuple[str, ...],
+) -> Source:
+    return Source(name, shape, n_classes, _torchvision(name, cls_name, layout), expects)
+
+
+def _idx_files(folder: str) -> tuple[str, ...]:
+    """The four uncompressed IDX files torchvision's MNIST-style classes look for."""
+    names = ("train-images-idx3", "train-labels-idx1", "t10k-images-idx3", "t10k-labels-idx1")
+    return tuple(f"{folder}/raw/{n}-ubyte" for n in names)
 
 
 SOURCES: dict[str, Source] = {
     "digits": Source("digits", (1, 8, 8), 10, read_digits),
-    "mnist": Source("mnist", (1, 28, 28), 10, _torchvision("MNIST", "NHW")),
-    "fashion-mnist": Source("fashion-mnist", (1, 28, 28), 10, _torchvision("FashionMNIST", "NHW")),
-    "kmnist": Source("kmnist", (1, 28, 28), 10, _torchvision("KMNIST", "NHW")),
-    "cifar10": Source("cifar10", (3, 32, 32), 10, _torchvision("CIFAR10", "NHWC")),
-    "cifar100": Source("cifar100", (3, 32, 32), 100, _torchvision("CIFAR100", "NHWC")),
-    "svhn": Source("svhn", (3, 32, 32), 10, _torchvision("SVHN", "NCHW", split_kw="split")),
+    "mnist": _torchvision_source("mnist", "MNIST", "NHW", (1, 28, 28), 10, _idx_files("MNIST")),
+    "fashion-mnist": _torchvision_source(
+        "fashion-mnist", "FashionMNIST", "NHW", (1, 28, 28), 10, _idx_files("FashionMNIST")
+    ),
+    "kmnist": _torchvision_source("kmnist", "KMNIST", "NHW", (1, 28, 28), 10, _idx_files("KMNIST")),
+    "cifar10": _torchvision_source(
+        "cifar10",
+        "CIFAR10",
+        "NHWC",
+        (3, 32, 32),
+        10,
+        ("cifar-10-batches-py/data_batch_1", "cifar-10-batches-py/test_batch"),
+    ),
+    "cifar100": _torchvision_source(
+        "cifar100",
+        "CIFAR100",
+        "NHWC",
+        (3, 32, 32),
+        100,
+        ("cifar-100-python/train", "cifar-100-python/test"),
+    ),
+    "svhn": _torchvision_source(
+        "svhn", "SVHN", "NCHW", (3, 32, 32), 10, ("train_32x32.mat", "test_32x32.mat")
+    ),
     "folder": Source("folder", None, None, read_folder),
 }
 
 
 def describe_source(spec: DataSpec) -> tuple[tuple[int, int, int], int]:
-    """Input shape (C, H, W) and class count, without loading the whole dataset if known."""
+    """Input shape (C, H, W) and class count, without decoding the images."""
     source = SOURCES[spec.source]
     if source.shape is not None and source.n_classes is not None:
         return source.shape, source.n_classes
-    pools = source.read(spec)
-    c, h, w = pools.train.images.shape[1:]
-    return (int(c), int(h), int(w)), len(pools.train.classes)
+    return _folder_shape(Path(spec.root))

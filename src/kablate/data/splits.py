@@ -7,7 +7,9 @@ import numpy as np
 from kablate.errors import DataError
 
 
-def stratified_split(labels: np.ndarray, fraction: float, seed: int) -> tuple[np.ndarray, np.ndarray]:
+def stratified_split(
+    labels: np.ndarray, fraction: float, seed: int
+) -> tuple[np.ndarray, np.ndarray]:
     """Split indices into (rest, held_out) with ``fraction`` of every class held out."""
     rng = np.random.default_rng(seed)
     rest, held = [], []
@@ -19,8 +21,9 @@ def stratified_split(labels: np.ndarray, fraction: float, seed: int) -> tuple[np
     return np.sort(np.concatenate(rest)), np.sort(np.concatenate(held))
 
 
-def balanced_subset(labels: np.ndarray, pool: np.ndarray, n: int, seed: int,
-                    what: str) -> tuple[np.ndarray, np.ndarray]:
+def balanced_subset(
+    labels: np.ndarray, pool: np.ndarray, n: int, seed: int, what: str
+) -> tuple[np.ndarray, np.ndarray]:
     """Take ``n`` indices from ``pool`` with classes as equal as they can be.
 
     Returns (taken, left). Classes are filled round-robin, so a class with too few images

@@ -1,18 +1,23 @@
 """One trial: train one variant with one seed under one recipe, then evaluate it.
 
 Read top to bottom: build the model, restore a checkpoint if there is one, run the epochs
-(validation after each), then test with the best-validation or last weights as the recipe
-says. Everything random is seeded by ``seed`` alone, so the same variant and seed give the
-same numbers on the same machine, and every variant sees the same batches (paired design).
+(validation after each, a checkpoint after each), then test with the best-validation or last
+weights as the recipe says. Everything random is seeded by ``seed`` alone, so the same variant
+and seed give the same numbers on the same machine, and every variant sees the same batches
+(paired design). A resumed trial gives the numbers it would have given uninterrupted.
+
+The hot loop does only tensor work per step, besides three cheap Python checks (stop
+requested, lr, loss finite). On CPU the finiteness check costs no synchronisation.
 """
 
 from __future__ import annotations
 
-import copy
 import math
 import time
 from collections.abc import Callable
+from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 import torch
 import torch.nn.functional as F
@@ -20,6 +25,7 @@ from torch import nn
 
 from kablate.data.batches import eval_batches, train_batches
 from kablate.data.prepare import PreparedData, Split
+from kablate.errors import KablateError
 from kablate.nets.build import build_network
 from kablate.nets.layout import Layout
 from kablate.spec.schema import RecipeSpec
@@ -35,6 +41,18 @@ class TrialInterrupted(Exception):
     """Raised between batches when the runner asks the trial to stop (Ctrl-C)."""
 
 
+@dataclass
+class Progress:
+    """Where a trial stands between epochs: everything a resume needs besides the weights."""
+
+    record: TrialRecord
+    epoch: int = 0  # the next epoch to run
+    step: int = 0
+    samples: int = 0
+    eval_seconds: float = 0.0  # validation time, kept out of samples per second
+    best_state: dict[str, torch.Tensor] | None = None
+
+
 def make_optimizer(model: nn.Module, recipe: RecipeSpec) -> torch.optim.Optimizer:
     # No weight decay on norm parameters and biases (common practice).
     decay = [p for p in model.parameters() if p.ndim > 1]
@@ -44,28 +62,123 @@ def make_optimizer(model: nn.Module, recipe: RecipeSpec) -> torch.optim.Optimize
         {"params": no_decay, "weight_decay": 0.0},
     ]
     if recipe.optimizer == "sgd":
-        return torch.optim.SGD(groups, lr=recipe.lr, momentum=recipe.momentum, nesterov=True)
+        nesterov = recipe.momentum > 0  # torch refuses Nesterov without momentum
+        return torch.optim.SGD(groups, lr=recipe.lr, momentum=recipe.momentum, nesterov=nesterov)
     return torch.optim.AdamW(groups, lr=recipe.lr)
 
 
+def budget_steps(recipe: RecipeSpec, n_train: int) -> tuple[int, int]:
+    """(steps per epoch, total steps): ``epochs`` full epochs, capped by ``max_steps``."""
+    steps_per_epoch = math.ceil(n_train / recipe.batch_size)
+    total = recipe.epochs * steps_per_epoch
+    return steps_per_epoch, min(total, recipe.max_steps) if recipe.max_steps else total
+
+
 @torch.no_grad()
-def evaluate(model: nn.Module, split: Split, device: torch.device) -> tuple[float, float]:
+def evaluate(model: nn.Module, split: Split) -> tuple[float, float]:
     """Mean cross-entropy and accuracy on a split, in eval mode."""
     model.eval()
-    loss_sum, correct = torch.zeros((), device=device), torch.zeros((), device=device)
+    loss_sum, correct = 0.0, 0
     for x, y in eval_batches(split.images, split.labels, EVAL_BATCH):
         logits = model(x)
-        loss_sum += F.cross_entropy(logits, y, reduction="sum")
-        correct += (logits.argmax(1) == y).sum()
+        loss_sum += float(F.cross_entropy(logits, y, reduction="sum"))
+        correct += int((logits.argmax(1) == y).sum())
     n = max(1, len(split.labels))
-    return float(loss_sum) / n, float(correct) / n
+    return loss_sum / n, correct / n
 
 
-def _to_device(data: PreparedData, device: torch.device) -> tuple[Split, Split, Split]:
-    def move(s: Split) -> Split:
-        return Split(s.images.to(device), s.labels.to(device), s.indices)
+def train_epoch(
+    model: nn.Module,
+    optimizer: torch.optim.Optimizer,
+    train: Split,
+    recipe: RecipeSpec,
+    seed: int,
+    progress: Progress,
+    steps: tuple[int, int],
+    should_stop: Callable[[], bool] | None,
+) -> float:
+    """One pass over the training subset (or up to the step budget); the mean train loss.
 
-    return move(data.train), move(data.val), move(data.test)
+    A non-finite loss marks the trial ``diverged`` and ends the epoch before that step's
+    update. The loss sum stays a tensor, so the loop never waits for a value it only logs.
+    """
+    steps_per_epoch, total_steps = steps
+    model.train()
+    loss_sum, seen = torch.zeros((), device=train.images.device), 0
+    batches = train_batches(
+        train.images, train.labels, recipe.batch_size, seed, progress.epoch, recipe.augment
+    )
+    for x, y in batches:
+        if should_stop is not None and should_stop():
+            raise TrialInterrupted(f"stopped in epoch {progress.epoch}")
+        if progress.step >= total_steps:
+            break
+        lr = recipe.lr * get_lr_factor(progress.step, total_steps, steps_per_epoch, recipe)
+        for group in optimizer.param_groups:
+            group["lr"] = lr
+        loss = F.cross_entropy(model(x), y, label_smoothing=recipe.label_smoothing)
+        if not torch.isfinite(loss):
+            progress.record.status = "diverged"
+            progress.record.note = f"loss was {float(loss.detach())} at step {progress.step}"
+            break
+        optimizer.zero_grad(set_to_none=True)
+        loss.backward()
+        optimizer.step()
+        progress.step += 1
+        loss_sum += loss.detach() * len(y)
+        seen += len(y)
+    progress.samples += seen
+    return float(loss_sum) / max(1, seen)
+
+
+def trial_identity(layout: Layout, recipe: RecipeSpec, data: PreparedData, seed: int) -> str:
+    """What a checkpoint must match to be resumed."""
+    return f"variant={layout.variant} seed={seed} recipe={recipe!r} data={data.spec!r}"
+
+
+def restore(
+    path: Path | None, identity: str, model: nn.Module, optimizer: torch.optim.Optimizer
+) -> Progress | None:
+    """Load the checkpoint into ``model`` and ``optimizer``; None when there is none."""
+    saved = load_checkpoint(path) if path is not None else None
+    if saved is None:
+        return None
+    if saved.get("identity", identity) != identity:
+        raise KablateError(
+            f"{path} belongs to another trial ({saved['identity']}), not to {identity}; "
+            "move it away to train this trial from the start"
+        )
+    model.load_state_dict(saved["model"])
+    optimizer.load_state_dict(saved["optimizer"])
+    torch.set_rng_state(saved["rng"])
+    progress = Progress(
+        record=TrialRecord.from_dict(saved["record"]),
+        epoch=saved["epoch"] + 1,
+        step=saved["step"],
+        samples=saved["samples"],
+        eval_seconds=saved.get("eval_seconds", 0.0),
+        best_state=saved["best_state"],
+    )
+    progress.record.note = f"resumed at epoch {progress.epoch}"
+    return progress
+
+
+def checkpoint_state(
+    identity: str, model: nn.Module, optimizer: torch.optim.Optimizer, progress: Progress
+) -> dict[str, Any]:
+    """What `restore` reads back. ``best_state`` stays in the file after the trial ends."""
+    return {
+        "identity": identity,
+        "model": model.state_dict(),
+        "optimizer": optimizer.state_dict(),
+        "rng": torch.get_rng_state(),  # dropout draws from the global generator
+        "best_state": progress.best_state,
+        "epoch": progress.epoch - 1,  # the last finished epoch
+        "step": progress.step,
+        "samples": progress.samples,
+        "eval_seconds": progress.eval_seconds,
+        "record": progress.record.to_dict(),
+    }
 
 
 def train_trial(
@@ -84,99 +197,62 @@ def train_trial(
 
     Raises:
         TrialInterrupted: ``should_stop()`` became true; the last epoch checkpoint remains.
+        KablateError: the checkpoint in ``workdir`` belongs to a different trial.
     """
     torch.set_num_threads(threads)
     dev = torch.device(device)
-    train, val, test = _to_device(data, dev)
-    torch.manual_seed(seed)
+    train, val, test = (to_device(s, dev) for s in (data.train, data.val, data.test))
+    torch.manual_seed(seed)  # initialisation; data order and augmentation have their own
     model = build_network(layout).to(dev, memory_format=torch.channels_last)
     optimizer = make_optimizer(model, recipe)
-    steps_per_epoch = math.ceil(len(train.labels) / recipe.batch_size)
-    total_steps = recipe.epochs * steps_per_epoch
-    if recipe.max_steps:
-        total_steps = min(total_steps, recipe.max_steps)
+    steps = budget_steps(recipe, len(train.labels))
+    ckpt_path = workdir / CHECKPOINT if workdir is not None else None
+    identity = trial_identity(layout, recipe, data, seed)
+    progress = restore(ckpt_path, identity, model, optimizer)
+    if progress is None:
+        progress = Progress(record=TrialRecord(threads=threads))
+    record = progress.record
+    clock = time.perf_counter() - record.train_seconds
 
-    record = TrialRecord(threads=threads)
-    start_epoch, step, samples, step_seconds, best_state = 0, 0, 0, 0.0, None
-    ckpt_path = workdir / CHECKPOINT if workdir else None
-    saved = load_checkpoint(ckpt_path) if ckpt_path else None
-    if saved is not None:
-        model.load_state_dict(saved["model"])
-        optimizer.load_state_dict(saved["optimizer"])
-        torch.set_rng_state(saved["rng"])
-        best_state = saved["best_state"]
-        start_epoch, step, samples = saved["epoch"] + 1, saved["step"], saved["samples"]
-        step_seconds = saved["step_seconds"]
-        record = TrialRecord.from_dict(saved["record"])
-        record.note = f"resumed at epoch {start_epoch}"
-
-    trial_start = time.perf_counter() - record.train_seconds
-    for epoch in range(start_epoch, recipe.epochs):
-        if step >= total_steps:
-            break
+    while progress.epoch < recipe.epochs and progress.step < steps[1]:
         epoch_start = time.perf_counter()
-        model.train()
-        loss_sum, seen = torch.zeros((), device=dev), 0
-        for x, y in train_batches(
-            train.images, train.labels, recipe.batch_size, seed, epoch, recipe.augment
-        ):
-            if should_stop is not None and should_stop():
-                raise TrialInterrupted(f"stopped in epoch {epoch}")
-            if step >= total_steps:
-                break
-            for group in optimizer.param_groups:
-                group["lr"] = recipe.lr * get_lr_factor(step, total_steps, steps_per_epoch, recipe)
-            loss = F.cross_entropy(model(x), y, label_smoothing=recipe.label_smoothing)
-            if not torch.isfinite(loss):
-                record.status, record.note = "diverged", f"loss was {float(loss)} at step {step}"
-                break
-            optimizer.zero_grad(set_to_none=True)
-            loss.backward()
-            optimizer.step()
-            step += 1
-            loss_sum += loss.detach() * len(y)
-            seen += len(y)
-        samples += seen
-        step_seconds += time.perf_counter() - epoch_start
+        train_loss = train_epoch(
+            model, optimizer, train, recipe, seed, progress, steps, should_stop
+        )
         if record.status == "diverged":
             break
-        val_loss, val_acc = evaluate(model, val, dev)
-        record.curve.append(
-            EpochRecord(
-                epoch,
-                float(loss_sum) / max(1, seen),
-                val_loss,
-                val_acc,
-                time.perf_counter() - epoch_start,
-            )
-        )
+        eval_start = time.perf_counter()
+        val_loss, val_acc = evaluate(model, val)
+        progress.eval_seconds += time.perf_counter() - eval_start
+        seconds = time.perf_counter() - epoch_start
+        record.curve.append(EpochRecord(progress.epoch, train_loss, val_loss, val_acc, seconds))
         if not record.best_val_acc >= val_acc:  # also true while best is still NaN
-            record.best_val_acc, record.best_epoch = val_acc, epoch
-            best_state = copy.deepcopy(model.state_dict())
-        record.steps = step
-        record.train_seconds = time.perf_counter() - trial_start
+            record.best_val_acc, record.best_epoch = val_acc, progress.epoch
+            progress.best_state = {k: v.detach().clone() for k, v in model.state_dict().items()}
+        progress.epoch += 1
+        record.steps = progress.step
+        record.train_seconds = time.perf_counter() - clock
         if ckpt_path is not None:
-            save_checkpoint(
-                ckpt_path,
-                {
-                    "model": model.state_dict(),
-                    "optimizer": optimizer.state_dict(),
-                    "rng": torch.get_rng_state(),
-                    "best_state": best_state,
-                    "epoch": epoch,
-                    "step": step,
-                    "samples": samples,
-                    "step_seconds": step_seconds,
-                    "record": record.to_dict(),
-                },
-            )
+            save_checkpoint(ckpt_path, checkpoint_state(identity, model, optimizer, progress))
 
-    record.steps = step
-    record.train_seconds = time.perf_counter() - trial_start
-    record.samples_per_second = samples / max(step_seconds, 1e-9)
+    record.steps, record.threads = progress.step, threads
+    record.train_seconds = time.perf_counter() - clock
+    # Throughput of training proper: data handling, steps and checkpoints, not validation.
+    busy = record.train_seconds - progress.eval_seconds
+    record.samples_per_second = progress.samples / max(busy, 1e-9)
     if record.status == "diverged":
         return record
-    if recipe.test_from == "best" and best_state is not None:
-        model.load_state_dict(best_state)
-    _, record.test_acc = evaluate(model, test, dev)
+    if recipe.test_from == "best" and progress.best_state is not None:
+        model.load_state_dict(progress.best_state)
+        record.test_epoch = record.best_epoch
+    else:
+        record.test_epoch = record.curve[-1].epoch if record.curve else -1
+    _, record.test_acc = evaluate(model, test)
     return record
+
+
+def to_device(split: Split, device: torch.device) -> Split:
+    if split.images.device == device:
+        return split
+    images = split.images.to(device, memory_format=torch.channels_last)
+    return Split(images, split.labels.to(device), split.indices)

@@ -21,8 +21,9 @@ class TrialRecord:
     best_val_acc: float = float("nan")
     best_epoch: int = -1
     test_acc: float = float("nan")
+    test_epoch: int = -1  # whose weights gave test_acc: the best-validation or the last epoch
     train_seconds: float = 0.0
-    samples_per_second: float = 0.0
+    samples_per_second: float = 0.0  # training samples per second of wall time, validation aside
     threads: int = 1
     steps: int = 0
     note: str = ""
