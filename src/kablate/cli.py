@@ -45,6 +45,8 @@ def parse_duration(text: str) -> float:
     if not text or not match or not any(match.groups()):
         raise UsageError(f"--budget must be a duration such as 8h, 90m or 2h30m, but got {text!r}")
     h, m, s = (int(g) if g else 0 for g in match.groups())
+    if h * 3600 + m * 60 + s == 0:
+        raise UsageError(f"--budget must be longer than zero, but got {text!r}")
     return h * 3600 + m * 60 + s
 
 
@@ -150,6 +152,11 @@ def plan(sweep: Path, fmt: str, latency: bool, threads: int | None) -> None:
     show_default=True,
     help="torch device for training: cpu, or cuda when present.",
 )
+@click.option(
+    "--dry-run",
+    is_flag=True,
+    help="Time a few steps of each variant, print the estimate and the order; train nothing.",
+)
 @click.option("--no-report", is_flag=True, help="Skip writing the report at the end.")
 def run(
     sweep: Path,
@@ -159,6 +166,7 @@ def run(
     budget: str | None,
     results_root: Path,
     device: str,
+    dry_run: bool,
     no_report: bool,
 ) -> None:
     """Train every (variant, seed) trial of a sweep, then write the report."""
@@ -178,10 +186,14 @@ def run(
         threads=threads or 0,
         device=device,
         budget_seconds=parse_duration(budget) if budget else 0.0,
+        dry_run=dry_run,
         command="kablate " + " ".join(shlex.quote(a) for a in sys.argv[1:]),
+        echo=click.echo,
     )
     start = time.time()
     summary = run_sweep(sweep, opts)
+    if dry_run:
+        return
     counts = ", ".join(f"{n} {s}" for s, n in sorted(summary.counts.items()))
     if summary.n_ran == 0 and not summary.interrupted:
         click.echo(
@@ -191,10 +203,11 @@ def run(
         click.echo(f"ran {summary.n_ran} trials in {time.time() - start:.0f}s; sweep now: {counts}")
     if summary.interrupted:
         click.echo(
-            "stopped: the interrupted trial is back in the queue. Resume with the same "
-            f"command: {opts.command}",
+            "stopped: the interrupted trials are back in the queue and resume from their last "
+            f"epoch checkpoint. Resume with the same command: {opts.command}",
             err=True,
         )
+        sys.exit(130)
     if not no_report:
         path = write_report(open_results(summary.results_dir, storage))
         click.echo(f"report: {path}")
@@ -214,16 +227,9 @@ def run(
 def status(results: Path, fmt: str, storage: str | None) -> None:
     """Show the progress of a results folder (safe while a run is going)."""
     from kablate.trials.results import open_results
-    from kablate.trials.status import format_status, summarize
+    from kablate.trials.status import format_status, read_status
 
-    folder = open_results(results, storage)
-    rows, _ = folder.rows()
-    starts = [
-        t.datetime_start.timestamp()
-        for t in folder.study.get_trials(deepcopy=False)
-        if t.datetime_start is not None
-    ]
-    summary = summarize(folder.name, rows, min(starts) if starts else None, time.time())
+    summary = read_status(open_results(results, storage))
     if fmt == "json":
         click.echo(json.dumps(summary.to_dict(), indent=2))
     else:

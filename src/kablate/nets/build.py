@@ -8,7 +8,14 @@ from torch import nn
 from kablate.nets.layout import Block, Layer, Layout
 from kablate.nets.padding import is_symmetric
 
-ACTIVATIONS = {"relu": nn.ReLU, "gelu": nn.GELU, "silu": nn.SiLU}
+# In place where torch supports it: the activation overwrites the norm's output, which
+# autograd does not need, so a training step writes one map less per conv (about 5% faster
+# on a CPU, measured with tests/bench/bench_trainer.py). GELU has no in-place form.
+ACTIVATIONS = {
+    "relu": lambda: nn.ReLU(inplace=True),
+    "gelu": nn.GELU,
+    "silu": lambda: nn.SiLU(inplace=True),
+}
 
 
 def norm_groups_for(channels: int, wanted: int) -> int:

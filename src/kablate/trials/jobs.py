@@ -32,3 +32,8 @@ class Job:
 def order_jobs(variants: list[tuple[str, str]], seeds: tuple[int, ...]) -> list[Job]:
     """Seed-major order over ``(variant_id, name)`` pairs."""
     return [Job(vid, name, seed) for seed in seeds for vid, name in variants]
+
+
+def sweep_jobs(catalog) -> list[Job]:
+    """The jobs of a costed sweep (a `Catalog`), seed-major."""
+    return order_jobs([(v.variant.id, v.name) for v in catalog.variants], catalog.sweep.seeds)

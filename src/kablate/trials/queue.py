@@ -1,16 +1,29 @@
 """The job queue on top of an Optuna study: enqueue what is missing, claim the next job.
 
-Optuna facts this relies on (checked against optuna 5.0; see DEVELOPERS.md):
-- ``enqueue_trial`` adds a WAITING trial; ``ask()`` pops one WAITING trial and marks it RUNNING.
-- Once no WAITING trial is left, ``ask()`` silently creates a new, un-enqueued trial. So every
-  enqueued trial is tagged with a ``job`` user attribute, and an untagged trial means "queue
-  empty": it is finished as FAIL at once and the worker stops.
+How Optuna 5.0 hands out enqueued trials, and what we add (checked by tests/trials/):
+
+- ``enqueue_trial`` adds a WAITING trial. ``ask()`` pops one WAITING trial, but once none is
+  left it silently creates a new, un-enqueued trial. So we do not call ``ask()``: `claim_next`
+  walks the WAITING trials itself and claims one with the storage's compare-and-set,
+  ``set_trial_state_values(id, RUNNING)``, which returns False when another process already
+  moved the trial out of WAITING (BaseStorage's documented contract). No trial is invented.
+- That compare-and-set is atomic on the journal file (an ordered, locked log) and on
+  PostgreSQL (``SELECT ... FOR UPDATE``), but not on SQLite, which ignores ``FOR UPDATE``.
+  On local storages the claim therefore happens under a host-local ``flock`` for that trial
+  (liveness.LocalLiveness), which serializes it among the processes of one machine.
+- Two runners starting at once on a shared PostgreSQL study may both enqueue a missing job.
+  A claimed trial therefore runs only if it is the lowest-numbered live (WAITING or RUNNING)
+  trial of its job and its job is not finished; otherwise it is told FAIL with
+  ``outcome = "duplicate"``. Trial numbers never change, so every worker reaches the same
+  verdict, and exactly one trial per job trains.
 """
 
 from __future__ import annotations
 
 import math
+import time
 from collections import defaultdict
+from dataclasses import dataclass
 
 import optuna
 from optuna.trial import FrozenTrial, TrialState
@@ -51,7 +64,11 @@ def job_status(trials: list[FrozenTrial]) -> tuple[str, FrozenTrial]:
 
 
 def enqueue_missing(study: optuna.Study, jobs: list[Job]) -> int:
-    """Enqueue every job that is not done, diverged, running or waiting; return how many."""
+    """Enqueue every job that is not done, diverged, running or waiting; return how many.
+
+    A job whose last trial failed (an error, an abandoned or interrupted run) is enqueued again.
+    Callers hold ``liveness.queue_lock()`` so that two local runners do not both enqueue a job.
+    """
     existing = tagged_trials(study)
     n = 0
     for job in jobs:
@@ -67,17 +84,78 @@ def has_waiting(study: optuna.Study) -> bool:
     return bool(study.get_trials(deepcopy=False, states=(TrialState.WAITING,)))
 
 
-def claim_next(study: optuna.Study) -> tuple[optuna.Trial, str] | None:
-    """Pop the next waiting job as a running trial, or None when the queue is empty."""
-    if not has_waiting(study):
-        return None
-    trial = study.ask()
-    key = trial.user_attrs.get("job")
-    if not key:  # ask() made a fresh trial: someone else took the last waiting one
-        trial.set_user_attr("outcome", "queue-empty")
-        study.tell(trial, state=TrialState.FAIL)
-        return None
-    return trial, key
+@dataclass
+class Claim:
+    trial: optuna.Trial
+    key: str
+    token: object  # the liveness token, released after the trial is told
+
+
+def is_first_live(trials: list[FrozenTrial], number: int) -> bool:
+    """Whether trial ``number`` is the one of its job's trials that should train."""
+    for other in trials:
+        if other.number == number:
+            continue
+        status = trial_status(other)
+        if status in ("done", "diverged"):
+            return False
+        if status in ("running", "waiting") and other.number < number:
+            return False
+    return True
+
+
+def claim_next(study: optuna.Study, liveness, order: dict[str, int] | None = None) -> Claim | None:
+    """Claim the next waiting job (in ``order`` of job keys, else by trial number), or None.
+
+    One read of the study serves both the choice and the duplicate check: every trial of the
+    job with a lower number than the candidate already existed when it was read, and a
+    higher-numbered one can only finish after passing the same check, which it fails while the
+    candidate is live.
+    """
+    order = order or {}
+    storage = study._storage  # noqa: SLF001 (the compare-and-set lives on the storage)
+    while True:
+        trials = study.get_trials(deepcopy=False)
+        by_job: dict[str, list[FrozenTrial]] = defaultdict(list)
+        for t in trials:
+            if t.user_attrs.get("job"):
+                by_job[t.user_attrs["job"]].append(t)
+        waiting = [t for t in trials if t.state == TrialState.WAITING and t.user_attrs.get("job")]
+        if not waiting:
+            return None
+        waiting.sort(key=lambda t: (order.get(t.user_attrs["job"], len(order)), t.number))
+        for candidate in waiting:
+            token = liveness.hold(candidate._trial_id)
+            if token is None:
+                continue
+            try:
+                won = storage.set_trial_state_values(candidate._trial_id, TrialState.RUNNING)
+            except optuna.exceptions.UpdateFinishedTrialError:
+                won = False
+            if not won:
+                liveness.release(token)
+                continue
+            liveness.started(study, candidate._trial_id)
+            trial = optuna.Trial(study, candidate._trial_id)
+            key = candidate.user_attrs["job"]
+            if is_first_live(by_job[key], candidate.number):
+                return Claim(trial, key, token)
+            trial.set_user_attr("outcome", "duplicate")
+            study.tell(trial, state=TrialState.FAIL)
+            liveness.release(token)
+            break  # read the queue again
+        else:
+            time.sleep(0.05)  # every waiting trial was being claimed by someone else: look again
+
+
+def next_waiting_key(study: optuna.Study, order: dict[str, int]) -> str | None:
+    """The job key that `claim_next` would try first."""
+    keys = [
+        t.user_attrs["job"]
+        for t in study.get_trials(deepcopy=False, states=(TrialState.WAITING,))
+        if t.user_attrs.get("job")
+    ]
+    return min(keys, key=lambda k: order.get(k, len(order))) if keys else None
 
 
 def clean(value: float) -> float | None:

@@ -6,28 +6,35 @@ Rerunning the same command continues the sweep: finished trials never run again.
 from __future__ import annotations
 
 import logging
-import multiprocessing as mp
 import os
-import signal
 import sys
 import time
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
-
-from tqdm import tqdm
 
 from kablate.costs.catalog import Catalog, build_catalog
 from kablate.costs.export import variant_json
 from kablate.data.prepare import prepare_data
+from kablate.errors import UsageError
 from kablate.spec.loader import load_sweep
+from kablate.trials.budget import calibrate, format_plan, schedule
 from kablate.trials.environment import environment, sanitize
 from kablate.trials.export import CURVE_COLUMNS, TRIAL_COLUMNS, collect_trials, write_csv
-from kablate.trials.jobs import order_jobs
+from kablate.trials.jobs import Job, sweep_jobs
+from kablate.trials.liveness import liveness_for
 from kablate.trials.meta import check_definition, definition, fingerprint, write_json
-from kablate.trials.queue import enqueue_missing
+from kablate.trials.pool import Progress, run_workers, setup_logging
+from kablate.trials.queue import enqueue_missing, job_status, tagged_trials
 from kablate.trials.results import DATA_FILE, PLAN_FILE, SWEEP_FILE
-from kablate.trials.store import JOURNAL, open_study, redact, resolve_url
-from kablate.trials.worker import WorkerContext, work
+from kablate.trials.store import (
+    JOURNAL,
+    lock_dir,
+    open_study,
+    redact,
+    resolve_url,
+    storage_exists,
+)
 
 log = logging.getLogger("kablate")
 
@@ -40,8 +47,10 @@ class RunOptions:
     threads: int = 0  # per worker; 0: cores // workers
     device: str = "cpu"
     budget_seconds: float = 0.0
+    dry_run: bool = False  # calibrate and print the estimate and order; train nothing
     command: str = ""
     show_progress: bool = True
+    echo: Callable[[str], None] | None = None  # where the estimate is printed (the CLI's)
 
 
 @dataclass
@@ -52,35 +61,28 @@ class RunSummary:
     n_ran: int
     interrupted: bool = False
     counts: dict[str, int] = field(default_factory=dict)
+    layout: tuple[int, int] = (1, 1)
+    estimate: str = ""  # the printed estimate (--budget, --dry-run)
 
 
 def choose_layout(n_workers: int, n_threads: int, n_jobs: int) -> tuple[int, int]:
     """Workers × threads with workers × threads ≤ cores.
 
     Small models scale badly across threads, so the default is one single-thread worker per
-    core (measured on a 2-core machine: see tests/bench/bench_workers.py).
+    core (measured on a 2-core machine: 2 x 1 trains the quickstart sweep faster than 1 x 2,
+    see tests/bench/bench_runner.py).
     """
     cores = os.cpu_count() or 1
     workers = n_workers or max(1, min(cores, n_jobs))
     threads = n_threads or max(1, cores // workers)
+    if workers * threads > cores:
+        log.warning(
+            "%d worker(s) x %d thread(s) is more than the %d cores: they will slow each other",
+            workers,
+            threads,
+            cores,
+        )
     return workers, threads
-
-
-def setup_logging(results_dir: Path, to_console: bool) -> None:
-    logger = logging.getLogger("kablate")
-    logger.setLevel(logging.INFO)
-    for handler in list(logger.handlers):
-        logger.removeHandler(handler)
-    fmt = logging.Formatter("%(asctime)s %(levelname)s %(message)s", "%Y-%m-%d %H:%M:%S")
-    results_dir.mkdir(parents=True, exist_ok=True)
-    file_handler = logging.FileHandler(results_dir / "run.log")
-    file_handler.setFormatter(fmt)
-    logger.addHandler(file_handler)
-    if to_console:
-        console = logging.StreamHandler(sys.stderr)
-        console.setFormatter(fmt)
-        logger.addHandler(console)
-    logger.propagate = False
 
 
 def write_manifest(
@@ -134,67 +136,60 @@ def export_results(results_dir: Path, study, plan: dict) -> dict[str, int]:
     return counts
 
 
-class StopFlag:
-    """Set by the first Ctrl-C (SIGINT) or SIGTERM; a second Ctrl-C stops at once."""
-
-    def __init__(self) -> None:
-        self.stopped = False
-
-    def __call__(self) -> bool:
-        return self.stopped
-
-    def install(self) -> None:
-        def handler(signum, frame):
-            if self.stopped:
-                raise KeyboardInterrupt
-            self.stopped = True
-            log.warning(
-                "stop requested: finishing the current batch, then putting the trial "
-                "back in the queue"
-            )
-
-        signal.signal(signal.SIGINT, handler)
-        signal.signal(signal.SIGTERM, handler)
+def finished_jobs(study, jobs: list[Job]) -> set[str]:
+    by_job = tagged_trials(study)
+    return {
+        j.key
+        for j in jobs
+        if j.key in by_job and job_status(by_job[j.key])[0] in ("done", "diverged")
+    }
 
 
-def _worker_main(
-    sweep_path: str, results_root: str, url: str | None, threads: int, device: str, deadline: float
-) -> None:
-    """Entry point of a worker process."""
-    from kablate.train.loop import TrialInterrupted
+def estimate(
+    catalog: Catalog, data, jobs: list[Job], done: set[str], layout, budget: float, started=None
+):
+    """Calibrate and replay the remaining jobs; (seconds by variant id, printed text).
 
-    stop = StopFlag()
-    stop.install()
+    With ``started`` (the run's start time), the budget is what is left of it afterwards.
+    """
+    calibration = calibrate(catalog, data, layout[1])
+    if budget and started is not None:
+        budget = max(1e-3, budget - (time.time() - started))
+    seconds = {vid: c.trial_seconds for vid, c in calibration.items()}
+    remaining = [j for j in jobs if j.key not in done]
+    plan = schedule(remaining, seconds, layout[0], budget)
+    text = format_plan(
+        plan,
+        budget,
+        list(catalog.sweep.seeds),
+        len(catalog.variants),
+        layout,
+        already=[j.seed for j in jobs if j.key in done],
+    )
+    return seconds, text
+
+
+def dry_run(sweep_path: Path, opts: RunOptions) -> RunSummary:
+    """Calibrate and print the estimate and order without training or writing results."""
     sweep = load_sweep(sweep_path)
-    results_dir = Path(results_root) / sweep.name
-    setup_logging(results_dir, to_console=False)
     catalog = build_catalog(sweep)
-    study = open_study(sweep.name, results_dir, url)
-    ctx = WorkerContext(
-        catalog,
-        prepare_data(sweep.data),
-        study,
-        results_dir,
-        threads,
-        device,
-        should_stop=stop,
-        deadline=deadline,
-    )
-    try:
-        work(ctx)
-    except TrialInterrupted:
-        sys.exit(130)
-
-
-def _progress(total: int, initial: int, enabled: bool) -> tqdm:
-    return tqdm(
-        total=total,
-        initial=initial,
-        unit="trial",
-        disable=not enabled,
-        dynamic_ncols=True,
-        desc="trials",
-    )
+    results_dir = opts.results_root / sweep.name
+    url = resolve_url(opts.storage)
+    jobs = sweep_jobs(catalog)
+    layout = choose_layout(opts.workers, opts.threads, len(jobs))
+    done: set[str] = set()
+    if storage_exists(results_dir, url):
+        try:
+            done = finished_jobs(open_study(sweep.name, results_dir, url, create=False), jobs)
+        except UsageError:
+            done = set()
+    data = prepare_data(sweep.data)
+    _, text = estimate(catalog, data, jobs, done, layout, opts.budget_seconds)
+    if opts.echo:
+        opts.echo(text)
+    summary = RunSummary(results_dir, len(jobs), 0, 0, layout=layout, estimate=text)
+    summary.counts = {"done": len(done), "waiting": len(jobs) - len(done)}
+    return summary
 
 
 def run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
@@ -203,8 +198,9 @@ def run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
     Raises:
         UsageError: a bad sweep file, a changed sweep definition, unusable storage.
     """
-    from kablate.train.loop import TrialInterrupted
-
+    if opts.dry_run:
+        return dry_run(sweep_path, opts)
+    started = time.time()
     sweep = load_sweep(sweep_path)
     catalog = build_catalog(sweep)
     results_dir = opts.results_root / sweep.name
@@ -213,16 +209,19 @@ def run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
     setup_logging(results_dir, to_console=not interactive)
     study = open_study(sweep.name, results_dir, url)
     check_definition(study, sweep)
-    jobs = order_jobs([(v.variant.id, v.name) for v in catalog.variants], sweep.seeds)
-    workers, threads = choose_layout(opts.workers, opts.threads, len(jobs))
-    write_manifest(results_dir, catalog, url, opts, (workers, threads))
+    jobs = sweep_jobs(catalog)
+    layout = choose_layout(opts.workers, opts.threads, len(jobs))
+    write_manifest(results_dir, catalog, url, opts, layout)
     data = prepare_data(sweep.data)
     write_json(results_dir / DATA_FILE, data.manifest())
     plan = {
         "seeds": list(sweep.seeds),
         "variants": [variant_json(v, with_layers=False) for v in catalog.variants],
     }
-    n_new = enqueue_missing(study, jobs)
+    liveness = liveness_for(study, lock_dir(results_dir, url))
+    liveness.recover(study)
+    with liveness.queue_lock():
+        n_new = enqueue_missing(study, jobs)
     before = export_results(results_dir, study, plan)
     n_finished = before.get("done", 0) + before.get("diverged", 0)
     to_run = len(jobs) - n_finished
@@ -233,79 +232,31 @@ def run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
         len(jobs),
         n_finished,
         to_run,
-        workers,
-        threads,
+        *layout,
         redact(url) if url else results_dir / JOURNAL,
     )
-    summary = RunSummary(results_dir, len(jobs), n_new, 0)
+    summary = RunSummary(results_dir, len(jobs), n_new, 0, layout=layout)
+    seconds: dict[str, float] = {}
+    if to_run and opts.budget_seconds:
+        done = finished_jobs(study, jobs)
+        seconds, summary.estimate = estimate(catalog, data, jobs, done, layout, opts.budget_seconds)
+        log.info("%s", summary.estimate)
+        if opts.echo:
+            opts.echo(summary.estimate)
     if to_run:
-        deadline = time.time() + opts.budget_seconds if opts.budget_seconds else 0.0
-        stop = StopFlag()
-        stop.install()
-        bar = _progress(len(jobs), n_finished, interactive)
-        try:
-            if workers == 1:
-                ctx = WorkerContext(
-                    catalog,
-                    data,
-                    study,
-                    results_dir,
-                    threads,
-                    opts.device,
-                    should_stop=stop,
-                    deadline=deadline,
-                )
-                summary.n_ran = work(ctx, on_finish=lambda key, status: bar.update(1))
-            else:
-                summary.n_ran = _run_processes(
-                    sweep_path,
-                    results_dir,
-                    opts,
-                    url,
-                    workers,
-                    threads,
-                    deadline,
-                    study,
-                    plan,
-                    bar,
-                    n_finished,
-                )
-        except TrialInterrupted:
-            pass
-        finally:
-            bar.close()
-            signal.signal(signal.SIGINT, signal.default_int_handler)
-            signal.signal(signal.SIGTERM, signal.SIG_DFL)
-        summary.interrupted = stop.stopped
+        deadline = started + opts.budget_seconds if opts.budget_seconds else 0.0
+        summary.n_ran, summary.interrupted = run_workers(
+            sweep_path,
+            results_dir,
+            opts,
+            url,
+            layout,
+            deadline,
+            seconds,
+            (catalog, data, study, liveness, plan, jobs),
+            Progress(len(jobs), n_finished, interactive),
+        )
     summary.counts = export_results(results_dir, study, plan)
+    if summary.interrupted:
+        log.warning("stopped; resume with the same command: %s", opts.command or "kablate run ...")
     return summary
-
-
-def _run_processes(
-    sweep_path: Path,
-    results_dir: Path,
-    opts: RunOptions,
-    url: str | None,
-    workers: int,
-    threads: int,
-    deadline: float,
-    study,
-    plan: dict,
-    bar: tqdm,
-    n_finished: int,
-) -> int:
-    ctx = mp.get_context("spawn")
-    args = (str(sweep_path), str(opts.results_root), url, threads, opts.device, deadline)
-    procs = [ctx.Process(target=_worker_main, args=args, daemon=False) for _ in range(workers)]
-    for proc in procs:
-        proc.start()
-    last = n_finished
-    while any(p.is_alive() for p in procs):
-        time.sleep(1.0)
-        counts = export_results(results_dir, study, plan)
-        now = counts.get("done", 0) + counts.get("diverged", 0)
-        bar.update(now - last)
-        last = now
-    for proc in procs:
-        proc.join()
-    return last - n_finished

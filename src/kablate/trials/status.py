@@ -1,86 +1,158 @@
-"""Progress of a sweep, read from its storage: safe while a run is going, from anywhere."""
+"""Progress of a sweep, read from its storage: safe while a run is going, from anywhere.
+
+Throughput is measured from the workers that are running now: each holds one trial, and a
+trial takes about as long as the recent finished ones did (wall time from claim to tell, so
+the slowdown of workers sharing a machine is included). That stays right across a resume,
+when the study also holds trials from earlier nights.
+"""
 
 from __future__ import annotations
 
 from collections import Counter
-from dataclasses import dataclass, field
+from dataclasses import asdict, dataclass, field
+from datetime import datetime
+
+from optuna.trial import FrozenTrial, TrialState
+
+STATES = ("done", "running", "waiting", "failed", "diverged")
+RECENT = 20  # finished trials that set the expected trial time
 
 
 @dataclass
 class SweepStatus:
-    name: str
+    sweep: str
+    n_trials: int
     counts: dict[str, int]
-    per_variant: dict[str, dict[str, int]]
-    n_jobs: int
-    done_seconds: float  # summed train seconds of finished trials
-    throughput_per_hour: float  # finished trials per hour of wall time, all workers together
-    eta_seconds: float | None
-    workers: list[str] = field(default_factory=list)
+    variants: list[dict]  # per variant: name, n_trials and a count per state
+    running: list[dict]  # job, worker, started (ISO time)
+    mean_trial_seconds: float | None  # recent finished trials, claim to tell
+    throughput_per_hour: float  # trials per hour at the current number of running workers
+    eta_seconds: float | None  # None: nothing is running, so no end can be predicted
+    finished: bool = False
+    layout: dict = field(default_factory=dict)
 
     def to_dict(self) -> dict:
-        return self.__dict__.copy()
+        return asdict(self)
 
 
-STATES = ("done", "running", "waiting", "failed", "diverged", "missing")
+def row_state(status: str) -> str:
+    return "waiting" if status == "missing" else status
 
 
-def summarize(name: str, rows: list[dict], first_start: float | None, now: float) -> SweepStatus:
-    """Counts, per-variant progress, throughput and ETA from trials.csv-style rows."""
-    counts = Counter(row["status"] for row in rows)
-    per_variant: dict[str, dict[str, int]] = {}
+def summarize(
+    name: str, rows: list[dict], trials: list[FrozenTrial], now: datetime, layout: dict
+) -> SweepStatus:
+    """Counts, per-variant progress, throughput and ETA.
+
+    Args:
+        rows: trials.csv-style rows, one per (variant, seed) of the sweep.
+        trials: the study's trials (for their claim and finish times).
+        now: the current local time, naive like Optuna's datetimes.
+    """
+    counts = Counter(row_state(r["status"]) for r in rows)
+    variants: dict[str, dict] = {}
     for row in rows:
-        entry = per_variant.setdefault(row["variant"], {s: 0 for s in STATES})
-        entry[row["status"]] += 1
-    finished = [r for r in rows if r["status"] in ("done", "diverged")]
-    done_seconds = sum(float(r["train_seconds"] or 0) for r in finished)
-    left = sum(counts[s] for s in ("running", "waiting", "failed", "missing"))
+        entry = variants.setdefault(
+            row["variant"], {"variant": row["variant"], "n_trials": 0, **dict.fromkeys(STATES, 0)}
+        )
+        entry["n_trials"] += 1
+        entry[row_state(row["status"])] += 1
+    tagged = [t for t in trials if t.user_attrs.get("job")]
+    finished = [
+        t
+        for t in tagged
+        if t.state == TrialState.COMPLETE or t.user_attrs.get("outcome") == "diverged"
+    ]
+    finished.sort(key=lambda t: t.datetime_complete)
+    durations = [
+        (t.datetime_complete - t.datetime_start).total_seconds()
+        for t in finished[-RECENT:]
+        if t.datetime_start and t.datetime_complete
+    ]
+    running = [t for t in tagged if t.state == TrialState.RUNNING]
+    mean = sum(durations) / len(durations) if durations else None
+    left = counts["waiting"] + counts["running"]
     throughput, eta = 0.0, None
-    if finished and first_start:
-        elapsed = max(1.0, now - first_start)
-        throughput = len(finished) / elapsed * 3600
-        eta = left / (len(finished) / elapsed) if left else 0.0
-    workers = sorted({r["worker"] for r in rows if r["status"] == "running" and r["worker"]})
+    if mean and running:
+        throughput = len(running) / mean * 3600
+        eta = left * mean / len(running)
+    elif not left:
+        eta = 0.0
     return SweepStatus(
-        name,
-        {s: counts.get(s, 0) for s in STATES},
-        per_variant,
-        len(rows),
-        done_seconds,
-        throughput,
-        eta,
-        workers,
+        sweep=name,
+        n_trials=len(rows),
+        counts={s: counts.get(s, 0) for s in STATES},
+        variants=list(variants.values()),
+        running=[
+            {
+                "job": t.user_attrs["job"],
+                "worker": t.user_attrs.get("worker"),
+                "started": t.datetime_start.isoformat(timespec="seconds")
+                if t.datetime_start
+                else None,
+                "seconds": round((now - t.datetime_start).total_seconds(), 1)
+                if t.datetime_start
+                else None,
+            }
+            for t in sorted(running, key=lambda t: t.number)
+        ],
+        mean_trial_seconds=round(mean, 3) if mean else None,
+        throughput_per_hour=round(throughput, 2),
+        eta_seconds=round(eta, 1) if eta is not None else None,
+        finished=not left,
+        layout=layout,
     )
 
 
 def format_status(status: SweepStatus) -> str:
     c = status.counts
     lines = [
-        f"sweep {status.name}: {c['done']}/{status.n_jobs} done, {c['running']} running, "
-        f"{c['waiting'] + c['missing']} waiting, {c['failed']} failed, {c['diverged']} diverged",
+        f"sweep {status.sweep}: {c['done']}/{status.n_trials} done, {c['running']} running, "
+        f"{c['waiting']} waiting, {c['failed']} failed, {c['diverged']} diverged",
     ]
-    if status.throughput_per_hour:
-        eta = "finished" if not status.eta_seconds else _duration(status.eta_seconds)
-        lines.append(f"throughput {status.throughput_per_hour:.1f} trials/h   ETA {eta}")
-    if status.workers:
-        lines.append("running on: " + ", ".join(status.workers))
-    width = max(len(v) for v in status.per_variant) if status.per_variant else 8
+    if status.finished:
+        lines.append("every trial has finished")
+    elif status.throughput_per_hour:
+        lines.append(
+            f"throughput {status.throughput_per_hour:.1f} trials/h with {c['running']} "
+            f"running (a trial takes ~{status.mean_trial_seconds:.0f}s)   "
+            f"ETA {duration(status.eta_seconds)}"
+        )
+    elif not status.running:
+        lines.append("no trial is running: rerun the sweep's `kablate run` command to continue")
+    for entry in status.running:
+        lines.append(
+            f"  running {entry['job']} on {entry['worker'] or '?'} for "
+            f"{duration(entry['seconds'] or 0)}"
+        )
+    width = max((len(v["variant"]) for v in status.variants), default=8)
     lines.append("")
-    for variant, entry in status.per_variant.items():
-        total = sum(entry.values())
+    for entry in status.variants:
         bar = (
             "#" * entry["done"]
             + "~" * entry["running"]
             + "x" * (entry["failed"] + entry["diverged"])
-            + "." * (entry["waiting"] + entry["missing"])
+            + "." * entry["waiting"]
         )
-        lines.append(f"  {variant:<{width}}  [{bar}]  {entry['done']}/{total}")
+        lines.append(f"  {entry['variant']:<{width}}  [{bar}]  {entry['done']}/{entry['n_trials']}")
     lines.append("")
     lines.append("  # done  ~ running  x failed or diverged  . waiting")
     return "\n".join(lines)
 
 
-def _duration(seconds: float) -> str:
-    seconds = int(seconds)
+def duration(seconds: float | None) -> str:
+    """'1h05m', '3m20s', '12s'."""
+    seconds = int(round(seconds or 0))
     h, rem = divmod(seconds, 3600)
     m, s = divmod(rem, 60)
-    return f"{h}h{m:02d}m" if h else f"{m}m{s:02d}s"
+    if h:
+        return f"{h}h{m:02d}m"
+    return f"{m}m{s:02d}s" if m else f"{s}s"
+
+
+def read_status(folder) -> SweepStatus:
+    """The status of a `ResultsFolder`, read from its storage now."""
+    rows, _ = folder.rows()
+    trials = folder.study.get_trials(deepcopy=False)
+    layout = {k: folder.meta.get(k) for k in ("workers", "threads")}
+    return summarize(folder.name, rows, trials, datetime.now(), layout)

@@ -1,27 +1,41 @@
 """Where a sweep's trials live: an Optuna study.
 
 The default is embedded and needs no server: Optuna's journal file storage in
-``results/<name>/study.journal``. ``--storage postgresql://...`` (or ``sqlite:///...``) selects
-Optuna's RDB storage, which is how several machines share one sweep. Passwords are never
-written or printed: `redact` removes them, and libpq reads ``PGPASSWORD`` or ``~/.pgpass``.
+``results/<name>/study.journal`` (chosen over RDB-on-SQLite by the claim load test, see
+tests/bench/bench_claim.py). ``--storage postgresql://...`` selects Optuna's RDB storage, which
+is how several machines share one sweep; ``sqlite:///...`` is accepted for one machine.
+Passwords are never written or printed: `redact` removes them, and libpq reads ``PGPASSWORD``
+or ``~/.pgpass``.
+
+Liveness of a running trial is checked in one of two ways (see liveness.py):
+- local storages (journal file, SQLite): a host-local ``flock`` per trial, held by its worker;
+- server storages (PostgreSQL): Optuna's heartbeat, recorded by the worker, with a grace
+  period after which the trial counts as abandoned.
 """
 
 from __future__ import annotations
 
+import importlib.util
+import logging
 import os
 import re
+import time
+import warnings
 from pathlib import Path
 
 import optuna
 from optuna.storages import JournalStorage, RDBStorage
 from optuna.storages.journal import JournalFileBackend
+from optuna.trial import FrozenTrial
 
 from kablate.errors import UsageError
 
 JOURNAL = "study.journal"
+LOCKS = "locks"
 DIRECTIONS = ["maximize", "minimize"]  # validation accuracy ↑, MACs ↓
 HEARTBEAT_SECONDS = 30
 STORAGE_ENV = "KABLATE_STORAGE"
+HEARTBEAT_ENV = "KABLATE_HEARTBEAT_SECONDS"  # shorter heartbeats for tests
 
 optuna.logging.set_verbosity(optuna.logging.WARNING)
 
@@ -42,19 +56,83 @@ def resolve_url(url: str | None) -> str | None:
     return url
 
 
+def is_local(url: str | None) -> bool:
+    """True for storages that only processes on one machine can share (journal, SQLite)."""
+    return url is None or url.startswith("sqlite")
+
+
+def lock_dir(results_dir: Path, url: str | None) -> Path:
+    """Where the per-trial locks of a local storage live: beside the storage file."""
+    if url and url.startswith("sqlite:///"):
+        return Path(url[len("sqlite:///") :] + "." + LOCKS)
+    return results_dir / LOCKS
+
+
+def heartbeat_seconds() -> int:
+    text = os.environ.get(HEARTBEAT_ENV, "")
+    return int(text) if text.isdigit() and int(text) > 0 else HEARTBEAT_SECONDS
+
+
+def requeue(study: optuna.Study, trial: FrozenTrial) -> None:
+    """Put the job of a failed (abandoned or interrupted) trial back in the queue."""
+    if not trial.user_attrs.get("job"):
+        return
+    attrs = {k: trial.user_attrs[k] for k in ("job", "variant", "variant_id", "seed")}
+    study.enqueue_trial({}, user_attrs=attrs)
+    logging.getLogger("kablate").warning(
+        "trial %s had lost its worker: back in the queue", attrs["job"]
+    )
+
+
+def engine_url(url: str) -> str:
+    """``postgresql://`` with the driver that is installed.
+
+    SQLAlchemy 2.1 maps a bare ``postgresql://`` to psycopg 3; the ``postgres`` extra installs
+    psycopg2, so name that driver unless psycopg 3 is there.
+    """
+    if url.startswith("postgresql://") and importlib.util.find_spec("psycopg") is None:
+        return "postgresql+psycopg2://" + url[len("postgresql://") :]
+    return url
+
+
 def open_storage(results_dir: Path, url: str | None) -> optuna.storages.BaseStorage:
     if url is None:
         results_dir.mkdir(parents=True, exist_ok=True)
         return JournalStorage(JournalFileBackend(str(results_dir / JOURNAL)))
-    try:
-        return RDBStorage(
-            url, heartbeat_interval=HEARTBEAT_SECONDS, grace_period=4 * HEARTBEAT_SECONDS
-        )
-    except Exception as exc:  # sqlalchemy raises many kinds; all mean "cannot connect"
-        raise UsageError(
-            f"cannot open storage {redact(url)}: {type(exc).__name__}: "
-            f"{redact(str(exc)).splitlines()[0]}"
-        ) from None
+    for attempt in range(3):
+        try:
+            return _rdb_storage(url)
+        except Exception as exc:  # sqlalchemy raises many kinds; all mean "cannot open"
+            # Two machines starting at once may race to create the tables: the loser's
+            # CREATE fails, and a second try finds them made.
+            if attempt < 2 and "IntegrityError" in type(exc).__name__:
+                time.sleep(1.0 + attempt)
+                continue
+            raise UsageError(
+                f"cannot open storage {redact(url)}: {type(exc).__name__}: "
+                f"{redact(str(exc)).splitlines()[0]}"
+            ) from None
+    raise AssertionError("unreachable")
+
+
+def _rdb_storage(url: str) -> RDBStorage:
+    if is_local(url):
+        return RDBStorage(url)
+    interval = heartbeat_seconds()
+    warnings.filterwarnings("ignore", category=optuna.exceptions.ExperimentalWarning)
+    # Optuna fails a trial whose heartbeat is older than the grace period; the one process
+    # whose update wins (SELECT ... FOR UPDATE) runs the callback, so a job is requeued once.
+    return RDBStorage(
+        engine_url(url),
+        heartbeat_interval=interval,
+        grace_period=3 * interval,
+        heartbeat_stale_trial_callback=requeue,
+    )
+
+
+def storage_exists(results_dir: Path, url: str | None) -> bool:
+    """Whether a default journal exists (server storages are assumed to exist)."""
+    return url is not None or (results_dir / JOURNAL).is_file()
 
 
 def open_study(name: str, results_dir: Path, url: str | None, create: bool = True) -> optuna.Study:

@@ -23,7 +23,7 @@ from kablate.data.prepare import PreparedData
 from kablate.train.loop import TrialInterrupted, train_trial
 from kablate.train.record import TrialRecord
 from kablate.trials.jobs import Job
-from kablate.trials.queue import claim_next, clean
+from kablate.trials.queue import Claim, claim_next, clean, next_waiting_key
 
 log = logging.getLogger("kablate")
 
@@ -38,7 +38,10 @@ class WorkerContext:
     device: str = "cpu"
     should_stop: Callable[[], bool] | None = None
     max_trials: int = 0  # 0: until the queue is empty
-    deadline: float = 0.0  # time.time() after which no new trial starts; 0: none
+    deadline: float = 0.0  # time.time() by which every started trial should end; 0: none
+    liveness: object = None  # liveness.LocalLiveness or HeartbeatLiveness
+    order: dict[str, int] | None = None  # job key → position in the sweep's order
+    estimates: dict[str, float] | None = None  # variant id → predicted trial seconds
 
     @property
     def worker_name(self) -> str:
@@ -68,8 +71,15 @@ def record_attrs(record: TrialRecord) -> dict:
     }
 
 
-def run_one(ctx: WorkerContext, trial: optuna.Trial, key: str) -> str:
+def run_one(ctx: WorkerContext, claim: Claim) -> str:
     """Train the claimed job and tell the study how it went; return its status."""
+    try:
+        return _train_and_tell(ctx, claim.trial, claim.key)
+    finally:
+        ctx.liveness.release(claim.token)
+
+
+def _train_and_tell(ctx: WorkerContext, trial: optuna.Trial, key: str) -> str:
     attrs = trial.user_attrs
     job = Job(attrs["variant_id"], attrs["variant"], int(attrs["seed"]))
     item = next(v for v in ctx.catalog.variants if v.variant.id == job.variant_id)
@@ -91,6 +101,7 @@ def run_one(ctx: WorkerContext, trial: optuna.Trial, key: str) -> str:
         trial.set_user_attr("outcome", "interrupted")
         ctx.study.tell(trial, state=TrialState.FAIL)
         ctx.study.enqueue_trial({}, user_attrs=job.attrs())  # back in the queue
+        log.info("stopped %s; it is back in the queue and resumes from its last epoch", key)
         raise
     except Exception as exc:
         trial.set_user_attr("outcome", "error")
@@ -119,21 +130,61 @@ def run_one(ctx: WorkerContext, trial: optuna.Trial, key: str) -> str:
     return record.status
 
 
+def variant_of(key: str) -> str:
+    return key.rsplit("-s", 1)[0]
+
+
+def fits_budget(ctx: WorkerContext, scale: float) -> bool:
+    """Whether the next waiting trial is predicted to end before the deadline."""
+    if not ctx.deadline:
+        return True
+    key = next_waiting_key(ctx.study, ctx.order or {})
+    if key is None:
+        return True
+    predicted = (ctx.estimates or {}).get(variant_of(key), 0.0) * scale
+    left = ctx.deadline - time.time()
+    if predicted > left:
+        log.info(
+            "budget: the next trial %s needs about %.0fs but %.0fs are left: no new trial starts",
+            key,
+            predicted,
+            max(0.0, left),
+        )
+        return False
+    return True
+
+
+def others_running(ctx: WorkerContext) -> int:
+    return len(ctx.study.get_trials(deepcopy=False, states=(TrialState.RUNNING,)))
+
+
 def work(ctx: WorkerContext, on_finish: Callable[[str, str], None] | None = None) -> int:
-    """Run jobs until the queue is empty (or a limit is hit); return how many ran."""
-    n = 0
+    """Run jobs until the queue is empty (or a limit is hit); return how many ran.
+
+    Before every claim, trials whose worker died are failed and requeued (liveness.py). On a
+    server storage an idle worker waits while trials run elsewhere, so that it can take over
+    one whose machine stops sending heartbeats.
+    """
+    n, ratios = 0, []
     while not (ctx.max_trials and n >= ctx.max_trials):
-        if ctx.deadline and time.time() >= ctx.deadline:
-            log.info("budget reached: no new trial starts")
-            break
         if ctx.should_stop is not None and ctx.should_stop():
             break
-        claimed = claim_next(ctx.study)
-        if claimed is None:
+        ctx.liveness.recover(ctx.study)
+        scale = sum(ratios) / len(ratios) if ratios else 1.0
+        if not fits_budget(ctx, scale):
             break
-        trial, key = claimed
-        status = run_one(ctx, trial, key)
+        claim = claim_next(ctx.study, ctx.liveness, ctx.order)
+        if claim is None:
+            if ctx.liveness.remote and others_running(ctx):
+                time.sleep(ctx.liveness.interval)
+                continue
+            break
+        started = time.time()
+        status = run_one(ctx, claim)
+        predicted = (ctx.estimates or {}).get(variant_of(claim.key))
+        if predicted:
+            ratios.append((time.time() - started) / predicted)
         n += 1
         if on_finish is not None:
-            on_finish(key, status)
+            on_finish(claim.key, status)
     return n

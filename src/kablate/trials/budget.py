@@ -1,0 +1,177 @@
+"""The time budget: calibrate each variant's trial time, estimate the sweep, and cut it to fit.
+
+Calibration times a few real training steps and one validation pass of every variant, under
+the thread count the workers will use. A trial's time is then predicted as
+
+    steps × step time + epochs × (validation pass + checkpoint write) + test pass
+
+and the sweep's time by replaying the job order on the workers, each taking the next job when
+it is free (the way the queue hands them out). Because the order is seed-major, the jobs that
+fit a budget are a complete comparison at fewer seeds, plus part of the next seed.
+"""
+
+from __future__ import annotations
+
+import math
+import statistics
+import tempfile
+import time
+from dataclasses import dataclass
+from pathlib import Path
+
+import torch
+import torch.nn.functional as F
+
+from kablate.costs.catalog import Catalog
+from kablate.data.batches import train_batches
+from kablate.data.prepare import PreparedData
+from kablate.nets.build import build_network
+from kablate.train.checkpoint import save_checkpoint
+from kablate.train.loop import evaluate, make_optimizer
+from kablate.trials.jobs import Job
+
+N_WARMUP, N_TIMED = 2, 5
+
+
+@dataclass(frozen=True)
+class Calibration:
+    variant_id: str
+    step_seconds: float
+    eval_seconds: float  # one pass over the validation split
+    checkpoint_seconds: float
+    trial_seconds: float
+
+
+def trial_steps(n_train: int, recipe) -> tuple[int, int]:
+    """(optimizer steps, epochs) of one trial, as train_trial counts them."""
+    steps_per_epoch = math.ceil(n_train / recipe.batch_size)
+    total = recipe.epochs * steps_per_epoch
+    if recipe.max_steps:
+        total = min(total, recipe.max_steps)
+    return total, min(recipe.epochs, math.ceil(total / steps_per_epoch))
+
+
+def time_steps(model, optimizer, data: PreparedData, recipe, n: int) -> list[float]:
+    """Seconds of ``n`` training steps, each timed from fetching its batch to the update."""
+    model.train()
+    times: list[float] = []
+    epoch = 0
+    while len(times) < n:
+        batches = train_batches(
+            data.train.images, data.train.labels, recipe.batch_size, 0, epoch, recipe.augment
+        )
+        start = time.perf_counter()
+        for x, y in batches:
+            loss = F.cross_entropy(model(x), y, label_smoothing=recipe.label_smoothing)
+            optimizer.zero_grad(set_to_none=True)
+            loss.backward()
+            optimizer.step()
+            now = time.perf_counter()
+            times.append(now - start)
+            start = now
+            if len(times) >= n:
+                break
+        epoch += 1
+    return times
+
+
+def calibrate(catalog: Catalog, data: PreparedData, threads: int) -> dict[str, Calibration]:
+    """Time every variant's steps; return predicted trial seconds by variant id."""
+    torch.set_num_threads(threads)
+    recipe = catalog.sweep.recipe
+    n_steps, n_epochs = trial_steps(len(data.train.labels), recipe)
+    out = {}
+    # The first model a process trains pays one-off set-up costs: time it once, unrecorded.
+    with tempfile.TemporaryDirectory(prefix="kablate-calibrate-") as tmp:
+        for item in catalog.variants[:1] + catalog.variants:
+            torch.manual_seed(0)
+            model = build_network(item.cost.layout).to(memory_format=torch.channels_last)
+            optimizer = make_optimizer(model, recipe)
+            times = time_steps(model, optimizer, data, recipe, N_WARMUP + N_TIMED)
+            step = statistics.median(times[N_WARMUP:])
+            start = time.perf_counter()
+            evaluate(model, data.val)
+            val_seconds = time.perf_counter() - start
+            start = time.perf_counter()
+            state = {"model": model.state_dict(), "optimizer": optimizer.state_dict()}
+            save_checkpoint(Path(tmp) / "c.pt", dict(state, best_state=model.state_dict()))
+            ckpt_seconds = time.perf_counter() - start
+            test_seconds = val_seconds * len(data.test.labels) / max(1, len(data.val.labels))
+            trial = n_steps * step + n_epochs * (val_seconds + ckpt_seconds) + test_seconds
+            out[item.variant.id] = Calibration(
+                item.variant.id, step, val_seconds, ckpt_seconds, trial
+            )
+    return out
+
+
+@dataclass
+class Plan:
+    """What a budget buys: the jobs that start, in order, and the predicted times."""
+
+    jobs: list[Job]
+    starts: list[float]  # predicted start of each job, seconds after the run starts
+    ends: list[float]
+    n_fit: int  # the first n_fit jobs end within the budget
+    total_seconds: float  # predicted time of all jobs
+    fit_seconds: float  # predicted time of the jobs that fit
+
+    def complete_seeds(self, seeds: list[int], n_variants: int, already: list[int]) -> list[int]:
+        """The seeds at which every variant is finished or among the jobs that fit."""
+        done = already + [j.seed for j in self.jobs[: self.n_fit]]
+        return [s for s in seeds if done.count(s) == n_variants]
+
+
+def schedule(
+    jobs: list[Job], seconds: dict[str, float], n_workers: int, budget: float = 0.0
+) -> Plan:
+    """Replay ``jobs`` in order on ``n_workers``; the ones that end within ``budget`` fit.
+
+    Like the workers, the replay stops at the first job that would overrun the budget.
+    """
+    free = [0.0] * max(1, n_workers)
+    starts, ends, n_fit, fit_end = [], [], None, 0.0
+    for i, job in enumerate(jobs):
+        w = min(range(len(free)), key=free.__getitem__)
+        start = free[w]
+        end = start + seconds.get(job.variant_id, 0.0)
+        free[w] = end
+        starts.append(start)
+        ends.append(end)
+        if n_fit is None and budget and end > budget:
+            n_fit = i
+        if n_fit is None:
+            fit_end = max(fit_end, end)
+    total = max(ends, default=0.0)
+    return Plan(jobs, starts, ends, len(jobs) if n_fit is None else n_fit, total, fit_end)
+
+
+def format_plan(
+    plan: Plan, budget: float, seeds: list[int], n_variants: int, layout, already: list[int]
+) -> str:
+    """The estimate and the order, as printed by --budget and --dry-run."""
+    from kablate.trials.status import duration
+
+    workers, threads = layout
+    lines = [
+        f"estimate: {len(plan.jobs)} trials to run take about {duration(plan.total_seconds)} "
+        f"on {workers} worker(s) x {threads} thread(s)"
+    ]
+    if budget:
+        complete = plan.complete_seeds(seeds, n_variants, already)
+        seeds_text = ", ".join(map(str, complete)) if complete else "none"
+        lines.append(
+            f"budget {duration(budget)}: {plan.n_fit} of {len(plan.jobs)} trials fit "
+            f"(about {duration(plan.fit_seconds)}); every variant complete at seeds: "
+            f"{seeds_text}"
+        )
+    lines.append("order:")
+    for i, job in enumerate(plan.jobs):
+        mark = " " if i < plan.n_fit else "-"
+        start, takes = duration(plan.starts[i]), plan.ends[i] - plan.starts[i]
+        lines.append(
+            f" {mark} {i + 1:>4}  {job.variant:<24} seed {job.seed:<3} "
+            f"starts ~{start:>7}  takes ~{takes:.1f}s"
+        )
+    if plan.n_fit < len(plan.jobs):
+        lines.append("  (- : does not fit the budget and will not start)")
+    return "\n".join(lines)

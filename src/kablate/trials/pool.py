@@ -1,0 +1,254 @@
+"""The workers of one machine: in this process or as processes, their signals, their progress.
+
+Several single-thread processes use a small CPU better than one process with more threads. A
+worker that dies is replaced; its trial is recovered by the next claim (liveness.py). Ctrl-C
+or SIGTERM stops every worker at its next batch, and each puts its trial back in the queue.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import logging
+import multiprocessing as mp
+import os
+import signal
+import sys
+import time
+from collections.abc import Callable
+from datetime import datetime
+from pathlib import Path
+
+from tqdm import tqdm
+
+from kablate.costs.catalog import build_catalog
+from kablate.data.prepare import prepare_data
+from kablate.spec.loader import load_sweep
+from kablate.trials.export import collect_trials
+from kablate.trials.jobs import sweep_jobs
+from kablate.trials.liveness import liveness_for
+from kablate.trials.status import duration, summarize
+from kablate.trials.store import lock_dir, open_study
+from kablate.trials.worker import WorkerContext, work
+
+log = logging.getLogger("kablate")
+
+
+def setup_logging(results_dir: Path, to_console: bool) -> None:
+    logger = logging.getLogger("kablate")
+    logger.setLevel(logging.INFO)
+    for handler in list(logger.handlers):
+        logger.removeHandler(handler)
+    fmt = logging.Formatter("%(asctime)s %(levelname)s %(message)s", "%Y-%m-%d %H:%M:%S")
+    results_dir.mkdir(parents=True, exist_ok=True)
+    file_handler = logging.FileHandler(results_dir / "run.log")
+    file_handler.setFormatter(fmt)
+    logger.addHandler(file_handler)
+    if to_console:
+        console = logging.StreamHandler(sys.stderr)
+        console.setFormatter(fmt)
+        logger.addHandler(console)
+    logger.propagate = False
+
+
+class StopFlag:
+    """Set by Ctrl-C (SIGINT) or SIGTERM: the trial stops at its next batch and is requeued.
+
+    In the runner, the first signal is also passed on to the worker processes (a terminal
+    sends Ctrl-C to all of them anyway; ``kill -INT`` reaches only the runner), and a second
+    one stops at once: the workers are killed, and their trials are recovered on the next run.
+    """
+
+    def __init__(self, forward: Callable[[int], None] | None = None, escalate: bool = True) -> None:
+        self.stopped = False
+        self.forward = forward
+        self.escalate = escalate  # False in worker processes: they may get Ctrl-C twice
+
+    def __call__(self) -> bool:
+        return self.stopped
+
+    def install(self) -> None:
+        def handler(signum, frame):
+            if self.stopped and self.escalate:
+                raise KeyboardInterrupt
+            if not self.stopped:
+                self.stopped = True
+                if self.escalate:
+                    log.warning(
+                        "stop requested: each worker finishes its current batch and puts its "
+                        "trial back in the queue (a second Ctrl-C stops at once)"
+                    )
+                if self.forward is not None:
+                    self.forward(signum)
+
+        signal.signal(signal.SIGINT, handler)
+        signal.signal(signal.SIGTERM, handler)
+
+
+def _worker_main(
+    sweep_path: str,
+    results_root: str,
+    url: str | None,
+    threads: int,
+    device: str,
+    deadline: float,
+    estimates: dict[str, float],
+) -> None:
+    """Entry point of a worker process."""
+    from kablate.train.loop import TrialInterrupted
+
+    stop = StopFlag(escalate=False)
+    stop.install()
+    sweep = load_sweep(sweep_path)
+    results_dir = Path(results_root) / sweep.name
+    setup_logging(results_dir, to_console=False)
+    catalog = build_catalog(sweep)
+    study = open_study(sweep.name, results_dir, url)
+    ctx = WorkerContext(
+        catalog,
+        prepare_data(sweep.data),
+        study,
+        results_dir,
+        threads,
+        device,
+        should_stop=stop,
+        deadline=deadline,
+        liveness=liveness_for(study, lock_dir(results_dir, url)),
+        order={job.key: i for i, job in enumerate(sweep_jobs(catalog))},
+        estimates=estimates,
+    )
+    try:
+        work(ctx)
+    except TrialInterrupted:
+        sys.exit(130)
+
+
+class Progress:
+    """A tqdm bar on a terminal; otherwise a timestamped log line whenever a trial finishes."""
+
+    def __init__(self, total: int, initial: int, interactive: bool) -> None:
+        self.total, self.n = total, initial
+        self.bar = tqdm(
+            total=total,
+            initial=initial,
+            unit="trial",
+            disable=not interactive,
+            dynamic_ncols=True,
+            desc="trials",
+        )
+
+    def update(self, n_finished: int, status=None) -> None:
+        if n_finished == self.n:
+            return
+        self.bar.update(n_finished - self.n)
+        self.n = n_finished
+        eta = ""
+        if status is not None and status.eta_seconds:
+            eta = f", ETA {duration(status.eta_seconds)}"
+            self.bar.set_postfix_str(f"ETA {duration(status.eta_seconds)}", refresh=True)
+        log.info("progress: %d/%d trials finished%s", self.n, self.total, eta)
+
+    def close(self) -> None:
+        self.bar.close()
+
+
+def run_workers(sweep_path, results_dir, opts, url, layout, deadline, seconds, state, progress):
+    """Run the workers (in this process when there is one); (trials run, interrupted)."""
+    from kablate.train.loop import TrialInterrupted
+
+    catalog, data, study, liveness, plan, jobs = state
+    workers, threads = layout
+    procs: list = []
+
+    def forward(signum: int) -> None:
+        for proc in procs:
+            if proc.is_alive():
+                os.kill(proc.pid, signal.SIGINT)
+
+    stop = StopFlag(forward if workers > 1 else None)
+    stop.install()
+    n_before = progress.n
+    try:
+        if workers == 1:
+            ctx = WorkerContext(
+                catalog,
+                data,
+                study,
+                results_dir,
+                threads,
+                opts.device,
+                should_stop=stop,
+                deadline=deadline,
+                liveness=liveness,
+                order={job.key: i for i, job in enumerate(jobs)},
+                estimates=seconds,
+            )
+
+            def on_finish(key: str, status: str) -> None:
+                rows, _ = collect_trials(study, plan)
+                counts = [r["status"] for r in rows]
+                progress.update(counts.count("done") + counts.count("diverged"))
+
+            with contextlib.suppress(TrialInterrupted):
+                work(ctx, on_finish=on_finish)
+        else:
+            args = (
+                str(sweep_path),
+                str(opts.results_root),
+                url,
+                threads,
+                opts.device,
+                deadline,
+                seconds,
+            )
+            supervise(procs, args, workers, stop, study, plan, progress)
+    except KeyboardInterrupt:
+        log.warning("second stop request: stopping the workers now")
+        for proc in procs:
+            if proc.is_alive():
+                proc.kill()
+        stop.stopped = True
+    finally:
+        for proc in procs:
+            proc.join()
+        progress.close()
+        signal.signal(signal.SIGINT, signal.default_int_handler)
+        signal.signal(signal.SIGTERM, signal.SIG_DFL)
+    rows, _ = collect_trials(study, plan)
+    statuses = [r["status"] for r in rows]
+    return statuses.count("done") + statuses.count("diverged") - n_before, stop.stopped
+
+
+POLL_SECONDS = 2.0
+
+
+def supervise(procs, args, workers, stop, study, plan, progress) -> None:
+    """Start the worker processes, follow their progress, and replace one that dies."""
+    ctx = mp.get_context("spawn")
+
+    def start() -> None:
+        proc = ctx.Process(target=_worker_main, args=args, daemon=False)
+        proc.start()
+        procs.append(proc)
+
+    for _ in range(workers):
+        start()
+    n_restarts = 0
+    while any(p.is_alive() for p in procs):
+        time.sleep(POLL_SECONDS)
+        rows, _ = collect_trials(study, plan)
+        statuses = [r["status"] for r in rows]
+        finished = statuses.count("done") + statuses.count("diverged")
+        if finished != progress.n:
+            status = summarize("", rows, study.get_trials(deepcopy=False), datetime.now(), {})
+            progress.update(finished, status)
+        for proc in [p for p in procs if not p.is_alive() and p.exitcode not in (0, 130)]:
+            procs.remove(proc)
+            proc.join()
+            if stop.stopped or n_restarts >= 2 * workers:
+                continue
+            # Its trial is recovered by the replacement (or another worker) before the next claim.
+            log.warning(
+                "worker %d ended with exit code %s; starting a new one", proc.pid, proc.exitcode
+            )
+            n_restarts += 1
+            start()
