@@ -24,15 +24,20 @@ from kablate.trials.store import open_study
 from tests.conftest import TINY_SWEEP, write_sweep
 
 JOBS = 4  # 2 plans × 2 seeds
-EPOCHS = 8
+EPOCHS = 40
+EARLY = EPOCHS // 2  # a checkpoint before this epoch leaves its trial half of its epochs to run
 
 
 @pytest.fixture
 def long_sweep(tmp_path: Path) -> Path:
-    """The tiny sweep with enough epochs to be caught mid-trial with a checkpoint."""
+    """The tiny sweep, made long enough (about 2 s a trial here) to be caught mid-trial.
+
+    With 200 images an epoch takes about 10 ms, so a whole trial could start, checkpoint and
+    finish between two looks of the test; 1,200 images and 40 epochs leave a wide window.
+    """
     body = TINY_SWEEP.replace(
         'from = "configs/tiny-recipe.toml"', f'from = "configs/tiny-recipe.toml"\nepochs = {EPOCHS}'
-    )
+    ).replace("train_size = 200", "train_size = 1200")
     return write_sweep(tmp_path, body)
 
 
@@ -66,25 +71,37 @@ def early_checkpoint(path: Path) -> bool:
     """A checkpoint from one of the first epochs: its trial will not finish for a while."""
     if not path.is_file():
         return False
-    return torch.load(path, map_location="cpu", weights_only=True)["epoch"] < EPOCHS - 4
+    return torch.load(path, map_location="cpu", weights_only=True)["epoch"] < EARLY
 
 
-def wait_for_checkpointed_trial(results: Path, storage: str | None, proc) -> tuple[str, int]:
-    """(job key, worker pid) of a running trial that has written an early epoch checkpoint."""
-    deadline = time.time() + 120
+def wait_for_study(results: Path, storage: str | None, proc, deadline: float):
+    """The run's study, opened once it exists (the runner creates it)."""
     while time.time() < deadline:
         assert proc.poll() is None, proc.communicate()
         if storage or (results / "tiny" / "study.journal").is_file():
             try:
-                study = study_of(results, storage)
+                return study_of(results, storage)
             except Exception:  # the study is still being created
-                time.sleep(0.1)
-                continue
-            for t in study.get_trials(deepcopy=False, states=(TrialState.RUNNING,)):
-                key, worker = t.user_attrs.get("job"), t.user_attrs.get("worker")
-                if worker and early_checkpoint(results / "tiny" / "trials" / key / "checkpoint.pt"):
-                    return key, int(worker.rsplit(":", 1)[1])
+                pass
         time.sleep(0.05)
+    raise AssertionError("the run did not create its study in time")
+
+
+def wait_for_checkpointed_trial(results: Path, storage: str | None, proc) -> tuple[str, int]:
+    """(job key, worker pid) of a running trial that has written an early epoch checkpoint.
+
+    The study is opened once and then only read, so that one look takes milliseconds on
+    either storage, far less than the second or so a trial spends before ``EARLY``.
+    """
+    deadline = time.time() + 120
+    study = wait_for_study(results, storage, proc, deadline)
+    while time.time() < deadline:
+        assert proc.poll() is None, proc.communicate()
+        for t in study.get_trials(deepcopy=False, states=(TrialState.RUNNING,)):
+            key, worker = t.user_attrs.get("job"), t.user_attrs.get("worker")
+            if worker and early_checkpoint(results / "tiny" / "trials" / key / "checkpoint.pt"):
+                return key, int(worker.rsplit(":", 1)[1])
+        time.sleep(0.02)
     raise AssertionError("no trial reached its first checkpoint in time")
 
 
