@@ -70,8 +70,53 @@ def test_a_broken_variant_is_refused_with_exit_code_2(tmp_path):
     result = plan(str(write_sweep(tmp_path, REFUSED, name="refused")))
     assert result.exit_code == 2
     assert "Traceback" not in result.stderr
-    for part in ("variant huge-stem", "layer stem", "9×9 kernel", "input is only 8×8"):
+    for part in (
+        "refused.toml",
+        "variant huge-stem",
+        "layer stem",
+        "9×9 kernel",
+        "input is only 8×8",
+    ):
         assert part in result.stderr
+
+
+VANISHING = """
+[sweep]
+name = "vanishing"
+[network]
+from = "configs/tiny-net.toml"
+[network.stem]
+stride = 8
+[[grid]]
+stem = ["3", "5"]
+"""
+
+
+def test_a_map_smaller_than_1x1_is_refused_naming_the_grid_variant(tmp_path):
+    # an 8×8 digit after a stride-8 stem is 1×1; stage2's 2×2 max-pool has nothing left
+    result = plan(str(write_sweep(tmp_path, VANISHING, name="vanishing")), "--format", "json")
+    assert result.exit_code == 2 and result.stdout == ""
+    assert "Traceback" not in result.stderr
+    for part in (
+        "vanishing.toml",
+        "variant stem=3",
+        "layer stage2.pool",
+        "smaller than 1×1",
+        "input 1×1",
+        "kernel 2×2",
+    ):
+        assert part in result.stderr
+
+
+@pytest.mark.parametrize("path", SHIPPED, ids=lambda p: p.stem)
+def test_shipped_plans_agree_with_a_recomputation_from_layers(path: Path):
+    from tests.costs.test_export import recompute
+
+    for v in json.loads(plan(str(path), "--format", "json").stdout):
+        again = recompute(v["layers"])
+        assert again == {k: v[k] for k in ("params", "macs", "rf", "jump")}, v["name"]
+        pool = next(x for x in v["layers"] if x["kind"] == "global_pool")
+        assert v["out_hw"] == pool["in_hw"] and v["flops"] == 2 * v["macs"]
 
 
 EVEN = """

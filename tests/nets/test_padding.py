@@ -39,8 +39,18 @@ def test_dumoulin_visin_relationships():
         k_hat = k + (k - 1) * (d - 1)
         if i + 2 * p >= k_hat:
             assert conv_out_size(i, k, s, 2 * p, d) == (i + 2 * p - k_hat) // s + 1
-    # their figure 2.1 example: i = 5, k = 4, no padding, unit stride gives o = 2
-    assert conv_out_size(5, 4, 1, 0) == 2
+    # their worked figures (captions from memory; torch checks each one too):
+    # 2.1 i = 4, k = 3 → o = 2; 2.2 i = 5, k = 4, p = 2 → o = 6; 2.6 i = 5, k = 3, s = 2, p = 1
+    # → o = 3; 5.1 (dilated) i = 7, k = 3, d = 2 → o = 3
+    for i, k, s, p, d, o in (
+        (4, 3, 1, 0, 1, 2),
+        (5, 4, 1, 2, 1, 6),
+        (5, 3, 2, 1, 1, 3),
+        (7, 3, 1, 0, 2, 3),
+    ):
+        assert conv_out_size(i, k, s, 2 * p, d) == o
+        out = F.conv2d(torch.zeros(1, 1, i, i), torch.zeros(1, 1, k, k), None, s, p, d)
+        assert out.shape[-2:] == (o, o)
 
 
 def test_same_padding_keeps_the_size_for_every_kernel_including_even_ones():

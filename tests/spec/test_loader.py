@@ -79,3 +79,34 @@ def test_error_inside_an_included_file_names_that_file(tmp_path):
         load_sweep(path)
     assert "tiny-recipe.toml" in str(info.value)
     assert "did you mean `batch_size`" in str(info.value)
+
+
+@pytest.mark.parametrize(
+    ("inline", "key"),
+    [
+        ('kernel = "3:wide"', "network.kernel"),
+        ('kernel = ""', "network.kernel"),
+        ('[network.stem]\nkernel = "4:stack"', "network.stem.kernel"),
+    ],
+)
+def test_a_bad_base_kernel_is_named_under_its_own_key(tmp_path, inline, key):
+    # not under the first plan that happens to meet it
+    text = TINY_SWEEP.replace(
+        'from = "configs/tiny-net.toml"', f'from = "configs/tiny-net.toml"\n{inline}'
+    )
+    path = write_sweep(tmp_path, text)
+    with pytest.raises(SweepError) as info:
+        load_sweep(path)
+    message = str(info.value)
+    assert str(path) in message and f"`{key}`" in message and "plan[" not in message
+
+
+def test_a_bad_stage_kernel_in_an_included_network_names_that_file(tmp_path):
+    path = write_sweep(tmp_path, TINY_SWEEP)
+    net = tmp_path / "configs" / "tiny-net.toml"
+    net.write_text(net.read_text() + 'kernel = "5x1:split"\n')  # lands in the last stage
+    with pytest.raises(SweepError) as info:
+        load_sweep(path)
+    message = str(info.value)
+    assert "tiny-net.toml" in message and "`stages[1].kernel`" in message
+    assert "both sizes ≥ 2" in message and '"5x1:split"' in message

@@ -7,6 +7,7 @@ from dataclasses import dataclass, field
 from kablate.costs.latency import Latency, measure_latency
 from kablate.costs.static import StaticCost, static_cost
 from kablate.data.sources import describe_source
+from kablate.errors import PlanError
 from kablate.nets.layout import layout_network
 from kablate.nets.padding import is_symmetric
 from kablate.plans.expand import Variant, expand_plans, pick_baseline, with_alias
@@ -61,7 +62,10 @@ def build_catalog(
     costed: list[CostedVariant] = []
     by_signature: dict[tuple, int] = {}
     for variant in variants:
-        layout = layout_network(sweep.network, variant, in_shape, n_classes)
+        try:
+            layout = layout_network(sweep.network, variant, in_shape, n_classes)
+        except PlanError as exc:
+            raise PlanError(f"{sweep.source}: {exc}") from None  # name the file too
         first = by_signature.get(layout.signature)
         if first is not None:  # different specs, same layers: one variant, the name an alias
             earlier = costed[first]

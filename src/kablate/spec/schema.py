@@ -10,11 +10,31 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import Literal
 
-from kablate.spec.fields import at_least, below, between, check
+from kablate.spec.fields import Check, at_least, below, between, check
 
 SourceName = Literal[
     "digits", "mnist", "fashion-mnist", "kmnist", "cifar10", "cifar100", "svhn", "folder"
 ]
+
+
+def kernel_spec(allow_empty: bool = False) -> Check:
+    """A check that a base-network kernel spec parses, so that a bad one is reported under its
+    own key (``network.stages[1].kernel``) at load time, not under the first plan that meets it.
+    ``allow_empty``: ``""`` means "the network's kernel" (a stage's or the stem's default)."""
+
+    def check_spec(value: str) -> str | None:
+        # imported here: kablate.plans reads these dataclasses, so a top-level import would cycle
+        from kablate.plans.grammar import KernelSpecError, parse_kernel
+
+        if allow_empty and value == "":
+            return None
+        try:
+            parse_kernel(value)
+        except KernelSpecError as exc:
+            return str(exc)
+        return None
+
+    return check_spec
 
 
 @dataclass(frozen=True)
@@ -34,7 +54,7 @@ class DataSpec:
 @dataclass(frozen=True)
 class StemSpec:
     out_ch: int = check(at_least(1), 16)
-    kernel: str = "3"
+    kernel: str = check(kernel_spec(allow_empty=True), "3")
     stride: int = check(at_least(1), 1)
 
 
@@ -47,7 +67,7 @@ class StageSpec:
     down: Literal["none", "maxpool", "avgpool", "stride"] = "none"
     residual: bool = False
     name: str = ""  # default: stage1, stage2, ...
-    kernel: str = ""  # default: the network's kernel
+    kernel: str = check(kernel_spec(allow_empty=True), "")  # "": the network's kernel
 
 
 @dataclass(frozen=True)
@@ -56,7 +76,8 @@ class NetworkSpec:
 
     stem: StemSpec = field(default_factory=StemSpec)
     stages: tuple[StageSpec, ...] = ()
-    kernel: str = "3"  # every conv's kernel spec unless the stem, a stage or a plan says otherwise
+    # every conv's kernel spec unless the stem, a stage or a plan says otherwise
+    kernel: str = check(kernel_spec(), "3")
     norm: Literal["batch", "group", "none"] = "batch"
     norm_groups: int = check(at_least(1), 8)
     act: Literal["relu", "gelu", "silu"] = "relu"
