@@ -134,6 +134,88 @@ def test_train_and_test_folders_must_have_the_same_classes(tmp_path):
         prepare_data(DataSpec(source="folder", root=str(tmp_path), val_size=100))
 
 
+def test_unreadable_idx_files_get_torchvision_words_or_the_error_type(tmp_path):
+    raw = tmp_path / "MNIST" / "raw"
+    raw.mkdir(parents=True)
+    for name in SOURCES["mnist"].expects:
+        (tmp_path / name).write_bytes(bytes(100))  # magic number 0: not an IDX file
+    with pytest.raises(DataError, match=r"MNIST said: \S.*\)\. Put the files there"):
+        prepare_data(DataSpec(source="mnist", root=str(tmp_path)))
+
+
+def colour_digits(n: int) -> tuple[np.ndarray, np.ndarray]:
+    """n digits as 32x32 RGB uint8 (N, 32, 32, 3), each channel scaled differently."""
+    pixels, labels = digits_uint8(32)
+    rgb = np.stack([pixels[:n], pixels[:n] // 2, 255 - pixels[:n]], axis=-1)
+    return np.ascontiguousarray(rgb), labels[:n].astype(np.int64)
+
+
+def write_cifar(root: Path, hundred: bool) -> tuple[np.ndarray, np.ndarray, list[str]]:
+    """The first 400 digits in the python pickle layout of CIFAR-10/100, as the dataset's page
+    describes it (from memory; torchvision's reader accepting the files is the check): dicts
+    whose ``data`` is (N, 3072) uint8 rows, the 1,024 red values, then green, then blue, each
+    row-major, with ``labels`` (CIFAR-10) or ``fine_labels`` (CIFAR-100), and a meta file of
+    class names. Train gets the first 300 images, test the last 100."""
+    import pickle
+
+    rgb, labels = colour_digits(400)
+    rows = rgb.transpose(0, 3, 1, 2).reshape(len(rgb), 3072)
+    names = [f"digit{c}" for c in range(100 if hundred else 10)]
+    folder = root / ("cifar-100-python" if hundred else "cifar-10-batches-py")
+    folder.mkdir(parents=True)
+    key = "fine_labels" if hundred else "labels"
+    parts = {"train": (0, 300), "test": (300, 400)}
+    if not hundred:
+        parts = {f"data_batch_{i}": (60 * (i - 1), 60 * i) for i in range(1, 6)}
+        parts["test_batch"] = (300, 400)
+    for name, (lo, hi) in parts.items():
+        batch = {"data": rows[lo:hi], key: labels[lo:hi].tolist()}
+        (folder / name).write_bytes(pickle.dumps(batch))
+    meta = {"fine_label_names": names} if hundred else {"label_names": names}
+    (folder / ("meta" if hundred else "batches.meta")).write_bytes(pickle.dumps(meta))
+    return rgb, labels, names
+
+
+def write_svhn(root: Path) -> tuple[np.ndarray, np.ndarray, list[str]]:
+    """The first 400 digits as SVHN's cropped-digit .mat files, as the dataset's page describes
+    them (from memory; torchvision's reader accepting the files is the check): ``X`` of shape
+    (32, 32, 3, N) and ``y`` of shape (N, 1), with the digit 0 labelled 10."""
+    from scipy.io import savemat
+
+    rgb, labels = colour_digits(400)
+    for name, (lo, hi) in {"train_32x32.mat": (0, 300), "test_32x32.mat": (300, 400)}.items():
+        y = np.where(labels[lo:hi] == 0, 10, labels[lo:hi]).astype(np.uint8)[:, None]
+        savemat(root / name, {"X": rgb[lo:hi].transpose(1, 2, 3, 0), "y": y})
+    return rgb, labels, [str(c) for c in range(10)]
+
+
+@pytest.mark.parametrize("source", ["cifar10", "cifar100", "svhn"])
+def test_colour_files_are_read_through_torchvision_channel_for_channel(
+    tmp_path, monkeypatch, source
+):
+    import torchvision.datasets.cifar
+    import torchvision.datasets.svhn
+
+    # Our files are not the published ones, so their MD5 sums differ; accept them.
+    for module in (torchvision.datasets.cifar, torchvision.datasets.svhn):
+        monkeypatch.setattr(module, "check_integrity", lambda *args, **kwargs: True)
+    if source == "svhn":
+        rgb, labels, classes = write_svhn(tmp_path)
+    else:
+        rgb, labels, classes = write_cifar(tmp_path, hundred=source == "cifar100")
+    spec = DataSpec(source=source, root=str(tmp_path), val_size=50, train_size=200)
+    data = prepare_data(spec)
+    assert data.in_shape == (3, 32, 32) == describe_source(spec)[0]
+    assert data.classes == tuple(classes) and data.test_pool == "the source's test split"
+    train_idx, test_idx = data.train.indices, data.test.indices
+    assert data.train.labels.tolist() == labels[train_idx].tolist()
+    assert data.test.labels.tolist() == labels[300 + test_idx].tolist()
+    # Channel for channel: red, green and blue land in channels 0, 1 and 2 of NCHW.
+    expected = rgb.transpose(0, 3, 1, 2)
+    np.testing.assert_array_equal(unnormalise(data.train.images, data), expected[train_idx])
+    np.testing.assert_array_equal(unnormalise(data.test.images, data), expected[300 + test_idx])
+
+
 TORCHVISION = ["mnist", "fashion-mnist", "kmnist", "cifar10", "cifar100", "svhn"]
 
 
@@ -150,9 +232,48 @@ def test_a_missing_dataset_says_where_it_looked_and_how_to_fetch_it(tmp_path, so
     assert not (tmp_path / "nowhere").exists()  # nothing was downloaded or created
 
 
+def test_a_failed_download_says_so_and_names_the_files(tmp_path, monkeypatch):
+    from urllib.error import URLError
+
+    import torchvision.datasets
+
+    def offline(self):
+        raise URLError("no network")
+
+    monkeypatch.setattr(torchvision.datasets.MNIST, "download", offline)
+    spec = DataSpec(source="mnist", root=str(tmp_path), download=True)
+    with pytest.raises(DataError) as info:
+        prepare_data(spec)
+    message = str(info.value)
+    assert "download failed" in message and "no network" in message
+    assert str(tmp_path.resolve() / SOURCES["mnist"].expects[0]) in message
+    assert "set `data.download = true`" not in message  # it was set
+
+
 def test_a_missing_image_folder_names_the_folder(tmp_path):
     with pytest.raises(DataError, match="does not exist"):
         describe_source(DataSpec(source="folder", root=str(tmp_path / "mine")))
+    with pytest.raises(DataError, match=r"cannot be read.*one sub-folder of images per class"):
+        describe_source(DataSpec(source="folder", root=str(tmp_path)))  # empty
+
+
+def test_a_lone_train_split_is_not_read_as_a_class(tmp_path):
+    write_png_folder(tmp_path, "L", "train")
+    write_png_folder(tmp_path, "L", "val")
+    with pytest.raises(DataError, match=r"`train/` folder of class folders but no matching"):
+        describe_source(DataSpec(source="folder", root=str(tmp_path)))
+    with pytest.raises(DataError, match=r"`train/` folder of class folders but no matching"):
+        prepare_data(DataSpec(source="folder", root=str(tmp_path), val_size=100))
+
+
+def test_a_class_that_is_named_train_is_still_a_class(tmp_path):
+    pixels, _ = digits_uint8(8)
+    for name, first in (("train", 0), ("boat", 40)):
+        (tmp_path / name).mkdir()
+        for i in range(first, first + 40):
+            Image.fromarray(pixels[i], mode="L").save(tmp_path / name / f"{i:03d}.png")
+    data = prepare_data(DataSpec(source="folder", root=str(tmp_path), val_size=20))
+    assert data.classes == ("boat", "train")  # ImageFolder's order: sorted names
 
 
 def test_an_unreadable_image_is_named(tmp_path):

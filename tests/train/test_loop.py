@@ -181,6 +181,55 @@ def test_a_non_finite_loss_ends_the_trial_as_diverged_keeping_its_curve(tiny, mo
 
 
 @pytest.mark.slow
+def test_a_non_finite_validation_loss_also_ends_the_trial_as_diverged(tiny, monkeypatch):
+    # The last update of the last epoch can blow the weights up while its own loss was finite;
+    # only validation sees it. Simulate that update by setting a weight to inf.
+    recipe, data, layouts = tiny
+    calls = []
+
+    def poison_last_validation(model, split):
+        calls.append(1)
+        if len(calls) == recipe.epochs:
+            with torch.no_grad():
+                next(model.parameters()).fill_(float("inf"))
+        return loop_evaluate(model, split)
+
+    loop_evaluate = loop.evaluate
+    monkeypatch.setattr(loop, "evaluate", poison_last_validation)
+    record = train_trial(layouts["all-3"], recipe, data, seed=0)
+    assert record.status == "diverged"
+    assert [e.epoch for e in record.curve] == [0, 1, 2]  # the curve, with its last point
+    assert math.isnan(record.curve[-1].val_loss) and math.isfinite(record.curve[1].val_loss)
+    assert record.note == "validation loss was nan after epoch 2"
+    assert record.best_epoch < 2 and math.isnan(record.test_acc)
+    assert len(calls) == recipe.epochs  # no test evaluation
+
+
+@pytest.mark.slow
+def test_the_model_and_its_inputs_are_channels_last(tiny, monkeypatch):
+    recipe, data, layouts = tiny
+    formats = []
+
+    def build_and_watch(layout):
+        model = loop_build(layout)
+        convs = [m for m in model.modules() if isinstance(m, torch.nn.Conv2d)]
+
+        def check(_, args):
+            tensors = [args[0], *(c.weight for c in convs)]
+            formats.append(all(t.is_contiguous(memory_format=torch.channels_last) for t in tensors))
+
+        model.register_forward_pre_hook(check)
+        return model
+
+    loop_build = loop.build_network
+    monkeypatch.setattr(loop, "build_network", build_and_watch)
+    one_step = dataclasses.replace(recipe, epochs=1, max_steps=1)
+    train_trial(layouts["all-3"], one_step, data, seed=0)
+    # Every forward pass: the train step, validation and test; input and conv weights.
+    assert len(formats) == 3 and all(formats)
+
+
+@pytest.mark.slow
 def test_an_interrupted_trial_resumes_to_the_numbers_of_an_uninterrupted_one(tiny, tmp_path):
     recipe, data, layouts = tiny
     whole = train_trial(layouts["all-3"], recipe, data, seed=3, workdir=tmp_path / "whole")

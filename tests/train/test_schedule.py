@@ -46,3 +46,17 @@ def test_step_decay_is_step_lr_counted_in_epochs():
     # torch.optim.lr_scheduler.StepLR with step_size = 3 epochs of 4 steps.
     ref = torch_factors(lambda o: torch.optim.lr_scheduler.StepLR(o, 12, gamma=0.5), 40)
     assert ours == pytest.approx(ref, abs=1e-9)
+
+
+def test_cosine_after_warmup_is_linear_lr_then_cosine_annealing():
+    recipe = RecipeSpec(schedule="cosine", warmup_epochs=0.5)
+    ours = [get_lr_factor(s, 60, 10, recipe) for s in range(60)]
+
+    # torch's SequentialLR: LinearLR from 1/5 to 1 over the 5 warmup steps, then
+    # CosineAnnealingLR to 0 over the remaining 55 steps.
+    def warmup_then_cosine(opt):
+        warmup = torch.optim.lr_scheduler.LinearLR(opt, start_factor=0.2, total_iters=4)
+        cosine = torch.optim.lr_scheduler.CosineAnnealingLR(opt, 55)
+        return torch.optim.lr_scheduler.SequentialLR(opt, [warmup, cosine], milestones=[5])
+
+    assert ours == pytest.approx(torch_factors(warmup_then_cosine, 60), abs=1e-9)

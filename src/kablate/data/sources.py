@@ -112,15 +112,18 @@ def missing_message(spec: DataSpec, cls_name: str, exc: Exception) -> str:
     """Where we looked, what torchvision said, and the three ways to fix it."""
     root = Path(spec.root).resolve()
     expected = ", ".join(str(root / p) for p in SOURCES[spec.source].expects)
+    said = str(exc) or type(exc).__name__  # torchvision's asserts carry no message
     fetch = (
-        "the download failed (it needs internet); fetch the files on a machine that has it"
+        "`data.download = true` was set, but the download failed (it needs internet): fetch "
+        "the files on a machine that has internet and put them there, or point `data.root` "
+        "at the folder that holds them"
         if spec.download
-        else "set `data.download = true` to let torchvision fetch them (needs internet)"
+        else "Put the files there, point `data.root` at the folder that holds them, or set "
+        "`data.download = true` to let torchvision fetch them (needs internet)"
     )
     return (
         f"dataset {spec.source} was not found or could not be read under {root}: expected "
-        f"{expected} (torchvision.datasets.{cls_name} said: {exc}). Put the files there, "
-        f"point `data.root` at the folder that holds them, or {fetch}."
+        f"{expected} (torchvision.datasets.{cls_name} said: {said}). {fetch}."
     )
 
 
@@ -128,34 +131,58 @@ def read_folder(spec: DataSpec) -> Pools:
     """An image-folder tree (one sub-folder per class), read with torchvision's ImageFolder.
 
     ``root/train`` and ``root/test`` are used as splits when both exist; otherwise the whole
-    tree is the training pool. Images are read as one channel when every image is grayscale,
-    else as RGB.
+    tree is the training pool (a lone ``train/`` or ``test/`` of class folders is refused).
+    Images are read as one channel when every image is grayscale, else as RGB.
     """
-    root = Path(spec.root)
-    if (root / "train").is_dir() and (root / "test").is_dir():
-        train, test = _read_image_folder(root / "train"), _read_image_folder(root / "test")
+    train_root, test_root = _folder_splits(Path(spec.root))
+    if test_root is not None:
+        train, test = _read_image_folder(train_root), _read_image_folder(test_root)
         if train.classes != test.classes:
             raise DataError(
-                f"{(root / 'train').resolve()} and {(root / 'test').resolve()} have different "
+                f"{train_root.resolve()} and {test_root.resolve()} have different "
                 f"class folders ({list(train.classes)} against {list(test.classes)}); they "
                 "must have the same ones"
             )
         return Pools(train, test)
-    return Pools(_read_image_folder(root), None)
+    return Pools(_read_image_folder(train_root), None)
+
+
+FOLDER_LAYOUT = (
+    "`data.root` must name a folder with one sub-folder of images per class (or `train/` and "
+    "`test/` folders of them)"
+)
+
+
+def _folder_splits(root: Path) -> tuple[Path, Path | None]:
+    """(training tree, test tree or None) of an image folder.
+
+    A lone ``train/`` or ``test/`` that holds only folders is a split, not a class; read as a
+    class it would silently turn a `train/` + `val/` tree into a two-class problem.
+    """
+    train, test = root / "train", root / "test"
+    if train.is_dir() and test.is_dir():
+        return train, test
+    for lone in (train, test):
+        if lone.is_dir() and all(child.is_dir() for child in lone.iterdir()):
+            raise DataError(
+                f"image folder {root.resolve()} has a `{lone.name}/` folder of class folders "
+                "but no matching `train/` and `test/` pair; " + FOLDER_LAYOUT
+            )
+    return root, None
 
 
 def _list_image_folder(root: Path):
     from torchvision.datasets import ImageFolder
 
     if not root.is_dir():
-        raise DataError(
-            f"image folder {root.resolve()} does not exist; `data.root` must name a folder "
-            "with one sub-folder of images per class (or `train/` and `test/` folders of them)"
-        )
+        raise DataError(f"image folder {root.resolve()} does not exist; " + FOLDER_LAYOUT)
     try:
         return ImageFolder(str(root))  # lists the files; we decode them ourselves
     except (FileNotFoundError, RuntimeError) as exc:
-        raise DataError(f"image folder {root.resolve()} cannot be read: {exc}") from None
+        raise DataError(
+            f"image folder {root.resolve()} cannot be read: {str(exc).rstrip('.')}; "
+            + FOLDER_LAYOUT
+        ) from None
 
 
 def _scan_headers(root: Path, paths: list[str]) -> tuple[int, int, int]:
@@ -196,8 +223,7 @@ def _read_image_folder(root: Path) -> ImageSet:
 
 def _folder_shape(root: Path) -> tuple[tuple[int, int, int], int]:
     """Shape and class count of an image folder, from the file headers only."""
-    if (root / "train").is_dir() and (root / "test").is_dir():
-        root = root / "train"
+    root = _folder_splits(root)[0]
     ds = _list_image_folder(root)
     return _scan_headers(root, [path for path, _ in ds.samples]), len(ds.classes)
 

@@ -193,7 +193,8 @@ def train_trial(
 ) -> TrialRecord:
     """Train ``layout`` with ``seed``; checkpoint into ``workdir`` after every epoch.
 
-    A NaN or inf loss ends the trial with status ``diverged`` (its curve is kept).
+    A NaN or inf loss, in training or validation, ends the trial with status ``diverged``
+    (its curve is kept).
 
     Raises:
         TrialInterrupted: ``should_stop()`` became true; the last epoch checkpoint remains.
@@ -226,6 +227,10 @@ def train_trial(
         progress.eval_seconds += time.perf_counter() - eval_start
         seconds = time.perf_counter() - epoch_start
         record.curve.append(EpochRecord(progress.epoch, train_loss, val_loss, val_acc, seconds))
+        if not math.isfinite(val_loss):  # the epoch's last update blew the weights up
+            record.status = "diverged"
+            record.note = f"validation loss was {val_loss} after epoch {progress.epoch}"
+            break
         if not record.best_val_acc >= val_acc:  # also true while best is still NaN
             record.best_val_acc, record.best_epoch = val_acc, progress.epoch
             progress.best_state = {k: v.detach().clone() for k, v in model.state_dict().items()}
