@@ -10,12 +10,16 @@ from kablate.analysis.erf import ErfMap, Geometry
 from kablate.analysis.summary import analyze
 from kablate.report.card import CardContext, render_card
 from kablate.report.plots import (
+    ERF_SQUARES,
+    erf_legend,
+    erf_view,
     plot_accuracy_vs_cost,
     plot_effective_rf,
     plot_grid_heatmap,
     plot_learning_curves,
     plot_rf_vs_accuracy,
     rendering,
+    square_shown,
 )
 from tests.analysis.test_tables import plan, rows
 
@@ -106,7 +110,8 @@ def test_svg_is_deterministic(analysis, tmp_path):
     assert a[1].read_bytes() == b[1].read_bytes() and a[0].read_bytes() == b[0].read_bytes()
 
 
-def test_card_of_a_partial_sweep_lists_the_missing_trials(analysis):
+def card_context(plots=("a.png",)) -> CardContext:
+    """A results folder's sweep.json and data.json, as the card reads them."""
     meta = {
         "name": "synthetic",
         "source": "sweeps/synthetic.toml",
@@ -127,9 +132,43 @@ def test_card_of_a_partial_sweep_lists_the_missing_trials(analysis):
         "test_pool": "held out",
         "indices_sha1": {"train": "t", "val": "v", "test": "s"},
     }
-    text = render_card(analysis, CardContext(meta, data, "0", ("a.png",), "MACs"))
+    return CardContext(meta, data, "0", tuple(plots), "MACs")
+
+
+def test_card_of_a_partial_sweep_lists_the_missing_trials(analysis):
+    text = render_card(analysis, card_context())
     assert "#### Trials without a result" in text
     assert "Partial sweep: 4 of 12 trials have no result yet" in text
     assert "| never | 0 | waiting |" in text and "| big | 2 | running |" in text
     assert "0/3" in text  # the untrained variant's seeds are shown as 0 of 3
     assert "![" in text and "(a.png)" in text
+
+
+def _map(name, centre, rf, e95, e50, shape=(8, 8)):
+    return ErfMap(name, np.ones(shape), Geometry(centre, (rf, rf), (1, 1)), 4, (0,), e50, e95)
+
+
+def test_effective_rf_legend_says_which_squares_are_drawn():
+    inside = _map("small", (4.0, 4.0), 7, 5, 3, shape=(9, 9))
+    assert [label for label, _, _ in erf_legend([inside])] == [
+        "theoretical receptive field",
+        "square holding 95% of the gradient mass",
+        "square holding 50% of the gradient mass",
+    ]
+    # An 8×8 input whose centre output sits at (2.5, 2.5), as with an even-sized last map:
+    # the 95% square (side 10) reaches 2 px past the top-left of the input, so the view
+    # widens to show it; a 28 px theoretical square is far larger and is said not drawn.
+    big = _map("body-5", (2.5, 2.5), 28, 10, 6)
+    mid = _map("all-3", (2.5, 2.5), 7, 10, 6)
+    view = erf_view([big, mid])
+    assert view == (-3.0, 8.0, -3.0, 8.0)
+    assert square_shown(big, 10, view) and not square_shown(big, 28, view)
+    labels = [label for label, _, _ in erf_legend([big, mid])]
+    assert labels[0] == "theoretical receptive field (larger than the view for body-5)"
+    assert labels[1:] == [
+        "square holding 95% of the gradient mass",
+        "square holding 50% of the gradient mass",
+    ]
+    assert erf_legend([big])[0][0].endswith("(larger than the view: not drawn)")
+    # The legend's colours and styles are the ones the squares are drawn with.
+    assert [(c, d) for _, c, d in erf_legend([big])] == [(c, d) for _, c, d in ERF_SQUARES]

@@ -163,3 +163,21 @@ def test_pick_table_sets_the_rule_and_the_command_line_overrides_it(tmp_path):
         load_sweep(write_sweep(tmp_path, TINY_SWEEP + "\n[pick]\nwithin_se = -1\n"))
     with pytest.raises(SweepError, match="pick.cost"):
         load_sweep(write_sweep(tmp_path, TINY_SWEEP + '\n[pick]\ncost = "flops"\n'))
+
+
+@pytest.mark.slow
+def test_effective_rf_without_a_finished_baseline_maps_the_recommended_plan(results):
+    from kablate.analysis.summary import analyze
+    from kablate.report.trained import erf_maps
+    from kablate.trials.meta import read_json
+
+    folder = open_results(results)
+    rows, curves = folder.rows()
+    for row in rows:  # as if the baseline's trials had not run yet
+        if row["variant"] == "all-3":
+            row.update(status="waiting", val_acc=None, test_acc=None)
+    analysis = analyze(rows, curves, folder.plan, folder.meta.get("grids", []))
+    assert analysis.selection.recommended == "stem-5"
+    maps, note = erf_maps(folder, analysis, read_json(results / "data.json"))
+    assert [m.variant for m in maps] == ["stem-5"]
+    assert note == "the baseline all-3 has no finished trial yet, so it has no map"

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import json
 import math
-import re
 from pathlib import Path
 
 from kablate import __version__
@@ -24,6 +23,7 @@ from kablate.trials.environment import sanitize
 from kablate.trials.export import CURVE_COLUMNS, TRIAL_COLUMNS, write_csv
 from kablate.trials.meta import read_json, write_json
 from kablate.trials.results import DATA_FILE, ResultsFolder
+from kablate.trials.store import redact
 
 VARIANT_COLUMNS = (
     "variant",
@@ -128,8 +128,7 @@ def draw_plots(analysis: Analysis, out: Path, sub: str) -> list[Path]:
 
 def scrub(text: str) -> str:
     """No storage password and no absolute home or working path in what we write."""
-    text = re.sub(r"(://[^:/@\s]+):[^@\s]*@", r"\1:***@", text)
-    return sanitize(text)
+    return sanitize(redact(text))
 
 
 def write_report(

@@ -63,6 +63,15 @@ def flag(value) -> bool:
     )
 
 
+def paired_ci(c) -> str:
+    """The 95% CI of a paired difference, or why there is none."""
+    if c.too_few:
+        return "n/a"
+    if not (math.isfinite(c.ci_low) and math.isfinite(c.ci_high)):
+        return "none (no spread)"
+    return f"[{pp(c.ci_low)}, {pp(c.ci_high)}]"
+
+
 def ci(low: float, high: float) -> str:
     """A 95% CI of an accuracy, clipped to [0%, 100%] for display (the CSV keeps raw limits)."""
     if not (math.isfinite(low) and math.isfinite(high)):
@@ -116,9 +125,17 @@ def _summary(a: Analysis, ctx: CardContext) -> list[str]:
     else:
         ratio = rec["macs"] / base["macs"]
         line += f"{human(rec['macs'])} MACs, {ratio:.3g}× those of the baseline {a.baseline}"
+    versus = a.comparisons.get(sel.recommended)
+    against = (
+        ""
+        if versus is None
+        else f" Paired with the baseline on validation accuracy: {pp(versus.mean_diff)}, "
+        f"{versus.verdict}."
+    )
     return [
         f"{line}; mean validation accuracy {pct(rec['val_acc_mean'])} over "
-        f"{rec['n_seeds']} seeds, chosen by the one-standard-error rule on {ctx.cost_label}.",
+        f"{rec['n_seeds']} seeds, chosen by the one-standard-error rule on {ctx.cost_label}."
+        + against,
         "",
     ]
 
@@ -222,7 +239,7 @@ def _recommendation(a: Analysis, ctx: CardContext) -> list[str]:
     if tc is not None and not tc.too_few:
         test_line += (
             f"; paired against the baseline on test: {pp(tc.mean_diff)} "
-            f"[{pp(tc.ci_low)}, {pp(tc.ci_high)}], p = {tc.p_value:.3g}"
+            f"{paired_ci(tc)}, p = {tc.p_value:.3g}"
         )
     out += [test_line + ".", ""]
     return out
@@ -231,6 +248,7 @@ def _recommendation(a: Analysis, ctx: CardContext) -> list[str]:
 def _front_table(a: Analysis) -> list[str]:
     v = a.variants.sort_values(["macs", "variant"])
     sel = a.selection
+    tol = f"±{sel.within_se if sel is not None else 1.0:g} SE"
     fronts = [("MACs", "front_macs"), ("params", "front_params")]
     if v["front_latency"].notna().all():
         fronts.append(("latency", "front_latency"))
@@ -240,7 +258,7 @@ def _front_table(a: Analysis) -> list[str]:
         "Sorted by MACs. *front* names the costs on whose Pareto front (validation accuracy up, "
         "cost down) the variant lies; *all* means the front over every cost at once.",
         "",
-        "| variant | kernel plan | val acc, mean [95% CI] | ±1 SE | MACs | params | rf "
+        f"| variant | kernel plan | val acc, mean [95% CI] | {tol} | MACs | params | rf "
         "| seeds | front |",
         "|---|---|---|---:|---:|---:|---:|---:|---|",
     ]
@@ -266,7 +284,7 @@ def _front_table(a: Analysis) -> list[str]:
         )
     lines += [
         "",
-        "*±1 SE*: within the selection rule's tolerance of the best mean. Intervals are shown "
+        f"*{tol}*: within the selection rule's tolerance of the best mean. Intervals are shown "
         "clipped to [0%, 100%]; `variants.csv` keeps the raw t-limits.",
         "",
     ]
@@ -295,15 +313,15 @@ def _comparison_table(a: Analysis) -> list[str]:
         "",
         f"Paired by seed against the baseline **{a.baseline}** on validation accuracy "
         "(variant minus baseline; same seed, same data order and augmentation). p is the "
-        "two-sided paired t-test of `scipy.stats.ttest_rel`.",
+        "two-sided paired t-test of `scipy.stats.ttest_rel`; where every seed shows the same "
+        "difference the t-test is undefined, and p is the exact two-sided sign test's.",
         "",
         "| variant | pairs | mean difference | 95% CI | p | reading |",
         "|---|---:|---:|---|---:|---|",
     ]
     for name, c in a.comparisons.items():
         p = "n/a" if not math.isfinite(c.p_value) else f"{c.p_value:.3g}"
-        interval = "n/a" if c.too_few else f"[{pp(c.ci_low)}, {pp(c.ci_high)}]"
-        lines.append(f"| {name} | {c.n} | {pp(c.mean_diff)} | {interval} | {p} | {c.verdict} |")
+        lines.append(f"| {name} | {c.n} | {pp(c.mean_diff)} | {paired_ci(c)} | {p} | {c.verdict} |")
     if not a.comparisons:
         lines.append("| (no other variant) | | | | | |")
     return lines + [""]
@@ -333,23 +351,33 @@ def _erf_section(a: Analysis) -> list[str]:
             f"| {m.variant} | {m.geometry.rf[0]} px | {m.extent50} px | {m.extent95} px | "
             f"{h}×{w} px | {m.n_images} × {len(m.seeds)} |"
         )
+    if a.erf_note:
+        out += ["", f"Only part of the maps: {a.erf_note}."]
     return out + [""]
 
 
 def _partial(a: Analysis) -> list[str]:
-    missing = a.missing
-    if not len(missing):
+    """The planned trials the statistics do not use: not finished yet, or diverged."""
+    t = a.trials
+    left_out = t.loc[t["status"] != "done", ["variant", "seed", "status"]]
+    if not len(left_out):
         return []
-    out = [
-        "#### Trials without a result",
-        "",
-        f"Partial sweep: {len(missing)} of {len(a.trials)} trials have no result yet; the "
-        "statistics above use the seeds that finished.",
-        "",
-        "| variant | seed | status |",
-        "|---|---:|---|",
-    ]
-    out += [f"| {r.variant} | {r.seed} | {r.status} |" for r in missing.itertuples()]
+    n_missing = len(a.missing)
+    n_diverged = int((left_out["status"] == "diverged").sum())
+    said = []
+    if n_missing:
+        said.append(
+            f"Partial sweep: {n_missing} of {len(t)} trials have no result yet; the "
+            "statistics above use the seeds that finished."
+        )
+    if n_diverged:
+        said.append(
+            f"{n_diverged} of {len(t)} trials diverged (the training loss blew up) and are "
+            "left out of the statistics."
+        )
+    out = ["#### Trials without a result", "", " ".join(said), "", "| variant | seed | status |"]
+    out.append("|---|---:|---|")
+    out += [f"| {r.variant} | {r.seed} | {r.status} |" for r in left_out.itertuples()]
     return out + [""]
 
 
@@ -399,6 +427,13 @@ def _caveats(a: Analysis, val_size: int = 0) -> list[str]:
         )
     if a.n_missing:
         out.append(f"- {a.n_missing} planned trials have no result: see the list above.")
+    diverged = a.variants.loc[a.variants["n_diverged"] > 0, "variant"].tolist()
+    if diverged:
+        out.append(
+            f"- Training diverged on some seeds of {', '.join(diverged)}; the statistics use "
+            "only the seeds that trained, so they flatter a plan that is unstable under this "
+            "recipe."
+        )
     out += _resolution_caveat(a, val_size)
     unclear = [name for name, c in a.comparisons.items() if c.too_few or c.p_value >= 0.05]
     if unclear:

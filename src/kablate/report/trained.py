@@ -20,7 +20,7 @@ def erf_maps(folder: ResultsFolder, analysis: Analysis, data: dict) -> tuple[lis
     """Maps for the recommended plan and the baseline (one map if they are the same).
 
     Returns:
-        The maps, and "" or the reason there are none.
+        The maps, and "" or the reason there are none (or no baseline map).
     """
     from kablate.costs.catalog import build_catalog
     from kablate.data.prepare import prepare_data
@@ -29,11 +29,15 @@ def erf_maps(folder: ResultsFolder, analysis: Analysis, data: dict) -> tuple[lis
 
     if analysis.selection is None:
         return [], "no trial has finished yet"
-    names = [analysis.selection.recommended, analysis.baseline]
-    names = list(dict.fromkeys(names))
-    ids = dict(zip(analysis.variants["variant"], analysis.variants["variant_id"], strict=True))
     trials = analysis.trials
     done = trials[trials["status"] == "done"]
+    names = [analysis.selection.recommended]
+    note = ""
+    if analysis.baseline in set(done["variant"]):
+        names = list(dict.fromkeys([*names, analysis.baseline]))
+    else:
+        note = f"the baseline {analysis.baseline} has no finished trial yet, so it has no map"
+    ids = dict(zip(analysis.variants["variant"], analysis.variants["variant_id"], strict=True))
     states = {
         name: _best_states(
             folder.path, ids[name], sorted(done.loc[done["variant"] == name, "seed"].astype(int))
@@ -63,7 +67,7 @@ def erf_maps(folder: ResultsFolder, analysis: Analysis, data: dict) -> tuple[lis
         if layout is None:
             return [], f"variant {name} is no longer part of the sweep file's plans"
         maps.append(effective_rf(name, layout, states[name], prepared.val.images, build_network))
-    return maps, ""
+    return maps, note
 
 
 def _best_states(results: Path, variant_id: str, seeds: list[int]) -> dict[int, dict]:
