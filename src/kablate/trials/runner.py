@@ -100,7 +100,7 @@ def write_manifest(
             "baseline": catalog.baseline.variant.id,
             "storage_url": redact(url) if url else None,
             "storage": redact(url) if url else JOURNAL,
-            "command": sanitize(opts.command),
+            "command": redact(sanitize(opts.command)),
             "environment": environment(),
             "workers": layout[0],
             "threads": layout[1],

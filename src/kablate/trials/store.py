@@ -40,9 +40,11 @@ HEARTBEAT_ENV = "KABLATE_HEARTBEAT_SECONDS"  # shorter heartbeats for tests
 optuna.logging.set_verbosity(optuna.logging.WARNING)
 
 
-def redact(url: str) -> str:
-    """The URL with any password replaced by ``***``."""
-    return re.sub(r"(://[^:/@]+):[^@]*@", r"\1:***@", url)
+def redact(text: str) -> str:
+    """``text`` (a URL, a command line, an error) with every storage password shown as ``***``:
+    the ``user:password@`` form and libpq's ``password=`` parameter or keyword."""
+    text = re.sub(r"(://[^:/@\s]+):[^@\s]*@", r"\1:***@", text)
+    return re.sub(r"(?i)((?:^|[?&;\s`'\"])password=)[^&\s`'\"]*", r"\1***", text)
 
 
 def resolve_url(url: str | None) -> str | None:
