@@ -101,8 +101,11 @@ body = "7"
 
 
 def write_cifar_sized_folder(root: Path) -> np.ndarray:
-    """Digits upsampled to 32x32 RGB, written as PNGs (one folder per class); returns them."""
+    """Digits upsampled to 32x32 RGB, written as PNGs (one folder per class); returns them in
+    the order torchvision's ImageFolder lists the files (class folders, then file names), which
+    is the order the `folder` source's indices refer to."""
     from sklearn.datasets import load_digits
+    from torchvision.datasets import ImageFolder
 
     bunch = load_digits()
     small = torch.from_numpy(bunch.images.astype(np.float32) / 16.0)[:, None]
@@ -113,7 +116,7 @@ def write_cifar_sized_folder(root: Path) -> np.ndarray:
         folder = root / str(label)
         folder.mkdir(parents=True, exist_ok=True)
         Image.fromarray(img).save(folder / f"{i:04d}.png")
-    return hwc
+    return hwc[[int(Path(path).stem) for path, _ in ImageFolder(str(root)).samples]]
 
 
 # --- the contenders --------------------------------------------------------------------
