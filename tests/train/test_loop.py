@@ -76,10 +76,11 @@ def curve_values(record) -> list[tuple[float, float, float]]:
 
 
 @pytest.mark.slow
-def test_quickstart_baseline_reaches_the_digits_accuracy_of_a_tuned_svm():
+def test_quickstart_baseline_nearly_reaches_the_digits_accuracy_of_an_svm():
     # scikit-learn's documented example "Recognizing hand-written digits" classifies this same
-    # digits data with an SVM at about 0.97 test accuracy. The quickstart's small all-3x3 CNN,
-    # recipe and data settings must reach at least 0.95 within the quickstart budget.
+    # digits data with an SVM (gamma=0.001, half the data held out) at about 0.97 test accuracy
+    # (the figure is from memory of that page). The quickstart's small all-3x3 CNN, recipe and
+    # data settings must reach at least 0.95 within the quickstart budget.
     sweep = load_sweep(REPO / "sweeps" / "quickstart.toml")
     catalog = build_catalog(sweep)
     layout = catalog.baseline.cost.layout
@@ -312,3 +313,24 @@ def test_weight_decay_skips_biases_and_norm_parameters(tiny):
         loop.make_optimizer(model, dataclasses.replace(recipe, optimizer="adamw")),
         torch.optim.AdamW,
     )
+
+
+def test_the_recipe_label_smoothing_reaches_the_loss(tiny, monkeypatch):
+    recipe, data, layouts = tiny
+    seen: list[float] = []
+    real = loop.F.cross_entropy
+
+    def spy(logits, target, **kw):
+        seen.append(kw.get("label_smoothing", 0.0))
+        return real(logits, target, **kw)
+
+    monkeypatch.setattr(loop.F, "cross_entropy", spy)
+    one_step = dataclasses.replace(recipe, max_steps=1, label_smoothing=0.1)
+    smoothed = train_trial(layouts["all-3"], one_step, data, seed=0)
+    assert seen[0] == 0.1  # the training step's loss
+    monkeypatch.setattr(loop.F, "cross_entropy", real)
+    plain = train_trial(
+        layouts["all-3"], dataclasses.replace(one_step, label_smoothing=0.0), data, 0
+    )
+    # Same seed, same first batch: only the smoothing differs, so the first losses differ.
+    assert smoothed.curve[0].train_loss != plain.curve[0].train_loss

@@ -67,6 +67,19 @@ def make_optimizer(model: nn.Module, recipe: RecipeSpec) -> torch.optim.Optimize
     return torch.optim.AdamW(groups, lr=recipe.lr)
 
 
+def warm_up(recipe: RecipeSpec) -> None:
+    """Pay a process's one-time start-up costs of torch before the first trial.
+
+    The first optimizer a process builds makes torch import its compiler stack (about 1 s on
+    the development machine), which would otherwise be charged to the first trial's time and
+    to the runner. A throw-away optimizer of the recipe's kind, stepped once, does it here.
+    """
+    weight = torch.zeros(2, 2, requires_grad=True)
+    optimizer = make_optimizer(nn.ParameterList([weight]), recipe)
+    weight.sum().backward()
+    optimizer.step()
+
+
 def budget_steps(recipe: RecipeSpec, n_train: int) -> tuple[int, int]:
     """(steps per epoch, total steps): ``epochs`` full epochs, capped by ``max_steps``."""
     steps_per_epoch = math.ceil(n_train / recipe.batch_size)

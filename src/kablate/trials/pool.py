@@ -94,7 +94,7 @@ def _worker_main(
     estimates: dict[str, float],
 ) -> None:
     """Entry point of a worker process."""
-    from kablate.train.loop import TrialInterrupted
+    from kablate.train.loop import TrialInterrupted, warm_up
 
     stop = StopFlag(escalate=False)
     stop.install()
@@ -116,6 +116,7 @@ def _worker_main(
         order={job.key: i for i, job in enumerate(sweep_jobs(catalog))},
         estimates=estimates,
     )
+    warm_up(sweep.recipe)
     try:
         work(ctx)
     except TrialInterrupted:
@@ -153,7 +154,7 @@ class Progress:
 
 def run_workers(sweep_path, results_dir, opts, url, layout, deadline, seconds, state, progress):
     """Run the workers (in this process when there is one); (trials run, interrupted)."""
-    from kablate.train.loop import TrialInterrupted
+    from kablate.train.loop import TrialInterrupted, warm_up
 
     catalog, data, study, liveness, plan, jobs = state
     workers, threads = layout
@@ -188,6 +189,7 @@ def run_workers(sweep_path, results_dir, opts, url, layout, deadline, seconds, s
                 counts = [r["status"] for r in rows]
                 progress.update(counts.count("done") + counts.count("diverged"))
 
+            warm_up(catalog.sweep.recipe)
             with contextlib.suppress(TrialInterrupted):
                 work(ctx, on_finish=on_finish)
         else:

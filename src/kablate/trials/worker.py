@@ -86,6 +86,7 @@ def _train_and_tell(ctx: WorkerContext, trial: optuna.Trial, key: str) -> str:
     workdir = trial_dir(ctx.results_dir, key)
     trial.set_user_attr("worker", ctx.worker_name)
     log.info("start %s (variant %s, seed %d) on %s", key, job.variant, job.seed, ctx.worker_name)
+    started = time.perf_counter()
     try:
         record = train_trial(
             item.cost.layout,
@@ -110,6 +111,8 @@ def _train_and_tell(ctx: WorkerContext, trial: optuna.Trial, key: str) -> str:
         log.exception("trial %s failed", key)
         return "failed"
     values = record_attrs(record)
+    # The whole trial as the worker saw it (model, training, test); the rest is the runner's.
+    values["trial_seconds"] = round(time.perf_counter() - started, 3)
     for name, value in values.items():
         trial.set_user_attr(name, value)
     workdir.mkdir(parents=True, exist_ok=True)
