@@ -130,6 +130,12 @@ def test_grid_table_for_a_two_axis_grid():
     assert a.grid.loc["5", "3"] == pytest.approx(0.935)
     assert math.isnan(a.grid.loc["5", "5"])
     assert analyze(rows(), [], p, [{"stem": ["3", "5"]}]).grid is None
+    # Each cell's CI half-width: t(0.975, n-1) · s / √n over its seeds (scipy.stats.t).
+    for cell, accs in ((("3", "3"), VAL["v0"]), (("5", "3"), VAL["v2"])):
+        n = len(accs)
+        expected = stats.t.ppf(0.975, n - 1) * np.std(accs, ddof=1) / math.sqrt(n)
+        assert a.grid_ci_half.loc[cell] == pytest.approx(expected)
+    assert math.isnan(a.grid_ci_half.loc["5", "5"])  # never trained
 
 
 def test_grid_cell_kept_under_an_earlier_plan_name_is_found_by_its_alias():

@@ -13,6 +13,7 @@ from kablate.report.plots import (
     ERF_SQUARES,
     erf_legend,
     erf_view,
+    heatmap_limits,
     plot_accuracy_vs_cost,
     plot_effective_rf,
     plot_grid_heatmap,
@@ -88,6 +89,20 @@ def test_grid_heatmap(analysis, tmp_path):
     assert isinstance(analysis.grid, pd.DataFrame)
     with rendering():
         check(plot_grid_heatmap(analysis, tmp_path, "sub"), "grid_heatmap")
+
+
+def test_heatmap_colours_span_at_least_a_typical_interval_inside_0_to_1():
+    nan = float("nan")
+    means = np.array([[0.990, 0.995], [0.993, nan]])
+    # Cells 0.5 pp apart, CIs ±2 pp wide: the scale spans one full CI (4 pp), capped at 100%.
+    low, high = heatmap_limits(means, np.array([[0.02, 0.02], [0.02, nan]]))
+    assert high == pytest.approx(1.0) and high - low == pytest.approx(0.04)
+    # Cells far apart compared with their CIs: the scale is just their range.
+    low, high = heatmap_limits(np.array([[0.5, 0.9]]), np.array([[0.01, 0.01]]))
+    assert (low, high) == pytest.approx((0.5, 0.9))
+    # No interval (one seed): the range of the means.
+    low, high = heatmap_limits(np.array([[0.5, 0.7]]), np.array([[nan, nan]]))
+    assert (low, high) == pytest.approx((0.5, 0.7))
 
 
 def test_effective_rf(analysis, tmp_path):

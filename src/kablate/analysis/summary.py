@@ -25,6 +25,7 @@ class Analysis:
     selection: Selection | None
     comparisons: dict[str, PairedResult] = field(default_factory=dict)  # on validation accuracy
     grid: pd.DataFrame | None = None  # mean val acc pivoted over a 2-axis grid
+    grid_ci_half: pd.DataFrame | None = None  # half-width of each cell's 95% CI, same shape
     test_comparison: PairedResult | None = None  # recommended vs baseline, on test accuracy
     erf: list[ErfMap] = field(default_factory=list)  # filled by the report, if it can
     erf_note: str = ""  # why there is no effective-receptive-field map, when there is none
@@ -80,8 +81,14 @@ def analyze(
         selection,
         comparisons,
         grid_table(variants, plan, grids),
-        test_comparison,
+        grid_ci_half=grid_table(variants, plan, grids, ci_half_width(variants)),
+        test_comparison=test_comparison,
     )
+
+
+def ci_half_width(variants: pd.DataFrame) -> pd.Series:
+    """Half the width of each variant's 95% t-interval of validation accuracy (NaN at n < 2)."""
+    return (variants["val_acc_ci_high"] - variants["val_acc_ci_low"]) / 2
 
 
 def per_seed(trials: pd.DataFrame, vid: str, metric: str) -> dict[int, float]:
@@ -101,8 +108,11 @@ def compare_to_baseline(
     }
 
 
-def grid_table(variants: pd.DataFrame, plan: dict, grids: list[dict]) -> pd.DataFrame | None:
-    """Mean validation accuracy over the first grid with exactly two axes, else None.
+def grid_table(
+    variants: pd.DataFrame, plan: dict, grids: list[dict], values: pd.Series | None = None
+) -> pd.DataFrame | None:
+    """Mean validation accuracy (or ``values``, one per variant row) over the first grid with
+    exactly two axes, else None.
 
     A cell is found by its grid coordinates, or by its cell name among a variant's aliases
     (a cell that builds the same network as an earlier plan is kept under that plan's name).
@@ -116,7 +126,8 @@ def grid_table(variants: pd.DataFrame, plan: dict, grids: list[dict]) -> pd.Data
             columns=pd.Index(grid[cols], name=cols),
             dtype=float,
         )
-        acc = dict(zip(variants["variant_id"], variants["val_acc_mean"], strict=True))
+        values = variants["val_acc_mean"] if values is None else values
+        acc = dict(zip(variants["variant_id"], values, strict=True))
         by_name = {}
         for v in plan["variants"]:
             for name in (v["name"], *v.get("aliases", [])):

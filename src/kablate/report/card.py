@@ -32,7 +32,9 @@ PLOT_CAPTIONS = {
     "accuracy_vs_latency": "Validation accuracy against CPU latency, with the Pareto staircase",
     "rf_vs_accuracy": "Validation accuracy against the theoretical receptive field",
     "learning_curves": "Validation accuracy per epoch (mean over seeds; band: min–max)",
-    "grid_heatmap": "Mean validation accuracy over the two-axis grid",
+    "grid_heatmap": "Mean validation accuracy over the two-axis grid, ± the half-width of each "
+    "cell's 95% CI; the colour scale spans at least one typical CI, so cells that differ by "
+    "less than the seed-to-seed noise look alike",
     "effective_rf": "Effective receptive field of the recommended plan and the baseline",
 }
 

@@ -247,24 +247,51 @@ def plot_learning_curves(analysis: Analysis, out: Path, subtitle: str) -> list[P
     return _save(fig, out, "learning_curves")
 
 
+def heatmap_limits(means: np.ndarray, halves: np.ndarray) -> tuple[float, float]:
+    """Colour limits for the grid: the range of the means, widened (about its middle, within
+    [0, 1]) to at least one typical 95% interval (the median of the cells' full widths), so
+    that cells which differ by less than the seed-to-seed noise do not look far apart."""
+    finite = means[np.isfinite(means)]
+    if not finite.size:
+        return 0.0, 1.0
+    low, high = float(finite.min()), float(finite.max())
+    widths = 2 * halves[np.isfinite(halves)]
+    span = min(1.0, max(high - low, float(np.median(widths)) if widths.size else 0.0, 1e-6))
+    middle = (low + high) / 2
+    # Keep the scale inside [0, 1] (accuracies), shifting it rather than shrinking it.
+    vmin = min(max(0.0, middle - span / 2), 1.0 - span)
+    return vmin, vmin + span
+
+
 def plot_grid_heatmap(analysis: Analysis, out: Path, subtitle: str) -> list[Path]:
     table = analysis.grid
     assert table is not None
     fig, (ax,) = _figure("Mean validation accuracy over the grid", subtitle)
     ax.grid(False)
     data = table.to_numpy(dtype=float)
-    image = ax.imshow(data, cmap="cividis", aspect="auto")
+    halves = (
+        analysis.grid_ci_half.to_numpy(dtype=float)
+        if analysis.grid_ci_half is not None
+        else np.full_like(data, np.nan)
+    )
+    vmin, vmax = heatmap_limits(data, halves)
+    image = ax.imshow(data, cmap="cividis", aspect="auto", vmin=vmin, vmax=vmax)
     ax.set_xticks(range(len(table.columns)), [str(c) for c in table.columns])
     ax.set_yticks(range(len(table.index)), [str(r) for r in table.index])
     ax.set_xlabel(f"{table.columns.name} kernel spec")
     ax.set_ylabel(f"{table.index.name} kernel spec")
-    finite = data[np.isfinite(data)]
-    middle = (finite.min() + finite.max()) / 2 if finite.size else 0
+    middle = (vmin + vmax) / 2
     for (r, c), value in np.ndenumerate(data):
-        text = "not trained" if not np.isfinite(value) else f"{100 * value:.2f}%"
-        colour = "white" if np.isfinite(value) and value < middle else "black"
+        if not np.isfinite(value):
+            ax.text(c, r, "not trained", ha="center", va="center", fontsize=8, color="black")
+            continue
+        text = f"{100 * value:.2f}%"
+        if np.isfinite(halves[r, c]):
+            text += f"\n±{100 * halves[r, c]:.2f} pp"
+        colour = "white" if value < middle else "black"
         ax.text(c, r, text, ha="center", va="center", fontsize=8, color=colour)
-    bar = fig.colorbar(image, ax=ax, label="validation accuracy (mean over seeds)")
+    label = "validation accuracy\n(cell: mean over seeds ± half-width of its 95% CI)"
+    bar = fig.colorbar(image, ax=ax, label=label)
     bar.formatter = PercentFormatter(xmax=1.0, decimals=1)
     bar.update_ticks()
     return _save(fig, out, "grid_heatmap")
