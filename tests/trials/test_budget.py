@@ -44,6 +44,11 @@ def test_schedule_replays_the_order_on_the_workers_and_stops_at_the_first_overru
     assert cut.fit_seconds == 30
     assert cut.complete_seeds([0, 1, 2], 2, already=[]) == [0]
     assert schedule(jobs, seconds, 1).total_seconds == 120  # one worker: the plain sum
+    # Workers free only after 5 s of start-up: every job shifts by 5 s, and B1 (20-50 → 25-55)
+    # no longer fits a 50 s budget either, but A1 (15-25) still does.
+    late = schedule(jobs, seconds, n_workers=2, budget=50, start=5)
+    assert late.starts == [5, 5, 15, 25, 35, 45] and late.total_seconds == 75
+    assert late.n_fit == 3 and late.fit_seconds == 35
 
 
 @pytest.mark.slow

@@ -14,7 +14,9 @@ NOW = datetime(2026, 1, 1, 12, 0, 0)
 def trial(job: str, state: TrialState, start_min: float, end_min: float | None = None):
     """A trial started (and finished) so many minutes from NOW."""
     values = [0.9, 1.0] if state == TrialState.COMPLETE else None
-    t = create_trial(state=state, values=values, user_attrs={"job": job})
+    variant, seed = job.rsplit("-s", 1)
+    attrs = {"job": job, "variant": variant, "seed": int(seed)}
+    t = create_trial(state=state, values=values, user_attrs=attrs)
     t.datetime_start = NOW + timedelta(minutes=start_min)
     t.datetime_complete = NOW + timedelta(minutes=end_min) if end_min is not None else None
     return t
@@ -52,6 +54,7 @@ def test_throughput_and_eta_come_from_running_workers_and_recent_trial_times():
     text = format_status(status)
     assert "2/8 done, 2 running, 2 waiting, 1 failed, 1 diverged" in text
     assert "ETA 16m00s" in text
+    assert "  running a seed 1 on ? for 2m00s" in text  # the variant's name, not its job key
 
 
 def test_a_stopped_sweep_has_no_eta_and_says_how_to_continue():

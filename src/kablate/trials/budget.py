@@ -122,13 +122,18 @@ class Plan:
 
 
 def schedule(
-    jobs: list[Job], seconds: dict[str, float], n_workers: int, budget: float = 0.0
+    jobs: list[Job],
+    seconds: dict[str, float],
+    n_workers: int,
+    budget: float = 0.0,
+    start: float = 0.0,
 ) -> Plan:
-    """Replay ``jobs`` in order on ``n_workers``; the ones that end within ``budget`` fit.
+    """Replay ``jobs`` in order on ``n_workers``, which are free from ``start`` seconds after
+    the run starts; the jobs that end within ``budget`` fit.
 
     Like the workers, the replay stops at the first job that would overrun the budget.
     """
-    free = [0.0] * max(1, n_workers)
+    free = [start] * max(1, n_workers)
     starts, ends, n_fit, fit_end = [], [], None, 0.0
     for i, job in enumerate(jobs):
         w = min(range(len(free)), key=free.__getitem__)
@@ -155,6 +160,11 @@ def format_plan(
     lines = [
         f"estimate: {len(plan.jobs)} trials to run take about {duration(plan.total_seconds)} "
         f"on {workers} worker(s) x {threads} thread(s)"
+        + (
+            f", of which ~{duration(plan.starts[0])} is start-up and calibration"
+            if plan.starts and plan.starts[0] >= 1
+            else ""
+        )
     ]
     if budget:
         complete = plan.complete_seeds(seeds, n_variants, already)
@@ -165,11 +175,12 @@ def format_plan(
             f"{seeds_text}"
         )
     lines.append("order:")
+    width = max((len(job.variant) for job in plan.jobs), default=0)
     for i, job in enumerate(plan.jobs):
         mark = " " if i < plan.n_fit else "-"
         start, takes = duration(plan.starts[i]), plan.ends[i] - plan.starts[i]
         lines.append(
-            f" {mark} {i + 1:>4}  {job.variant:<24} seed {job.seed:<3} "
+            f" {mark} {i + 1:>4}  {job.variant:<{width}}  seed {job.seed:<3} "
             f"starts ~{start:>7}  takes ~{takes:.1f}s"
         )
     if plan.n_fit < len(plan.jobs):

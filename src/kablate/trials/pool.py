@@ -33,6 +33,9 @@ from kablate.trials.worker import WorkerContext, work
 log = logging.getLogger("kablate")
 
 
+FILE_ONLY = "file_only"  # a log record with this extra set to True skips the console
+
+
 def setup_logging(results_dir: Path, to_console: bool) -> None:
     logger = logging.getLogger("kablate")
     logger.setLevel(logging.INFO)
@@ -46,6 +49,7 @@ def setup_logging(results_dir: Path, to_console: bool) -> None:
     if to_console:
         console = logging.StreamHandler(sys.stderr)
         console.setFormatter(fmt)
+        console.addFilter(lambda record: not getattr(record, FILE_ONLY, False))
         logger.addHandler(console)
     logger.propagate = False
 

@@ -18,13 +18,14 @@ from kablate.costs.export import variant_json
 from kablate.data.prepare import prepare_data
 from kablate.errors import UsageError
 from kablate.spec.loader import load_sweep
+from kablate.train.loop import warm_up
 from kablate.trials.budget import calibrate, format_plan, schedule
 from kablate.trials.environment import environment, sanitize
 from kablate.trials.export import CURVE_COLUMNS, TRIAL_COLUMNS, collect_trials, write_csv
 from kablate.trials.jobs import Job, sweep_jobs
 from kablate.trials.liveness import liveness_for
 from kablate.trials.meta import check_definition, definition, fingerprint, write_json
-from kablate.trials.pool import Progress, run_workers, setup_logging
+from kablate.trials.pool import FILE_ONLY, Progress, run_workers, setup_logging
 from kablate.trials.queue import enqueue_missing, job_status, tagged_trials
 from kablate.trials.results import DATA_FILE, PLAN_FILE, SWEEP_FILE
 from kablate.trials.store import (
@@ -150,14 +151,21 @@ def estimate(
 ):
     """Calibrate and replay the remaining jobs; (seconds by variant id, printed text).
 
-    With ``started`` (the run's start time), the budget is what is left of it afterwards.
+    The replay starts when the workers can take their first job: after what the run has spent
+    so far (since ``started``, the run's start time; for a dry run, this calibration and the
+    set-up before it) and, for worker processes, their own start-up. That start-up repeats
+    this process's (imports, sweep, data: its CPU time so far) plus torch's warm-up.
     """
+    before = time.process_time()
+    clock = time.perf_counter()
+    warm_up(catalog.sweep.recipe)
+    startup = before + (time.perf_counter() - clock)
     calibration = calibrate(catalog, data, layout[1])
-    if budget and started is not None:
-        budget = max(1e-3, budget - (time.time() - started))
+    spent = time.time() - started if started is not None else before + time.perf_counter() - clock
+    offset = spent + (startup if layout[0] > 1 else 0.0)
     seconds = {vid: c.trial_seconds for vid, c in calibration.items()}
     remaining = [j for j in jobs if j.key not in done]
-    plan = schedule(remaining, seconds, layout[0], budget)
+    plan = schedule(remaining, seconds, layout[0], budget, start=offset)
     text = format_plan(
         plan,
         budget,
@@ -239,8 +247,11 @@ def run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
     seconds: dict[str, float] = {}
     if to_run and opts.budget_seconds:
         done = finished_jobs(study, jobs)
-        seconds, summary.estimate = estimate(catalog, data, jobs, done, layout, opts.budget_seconds)
-        log.info("%s", summary.estimate)
+        seconds, summary.estimate = estimate(
+            catalog, data, jobs, done, layout, opts.budget_seconds, started
+        )
+        # Into run.log; on the console only through ``echo`` when there is one (not twice).
+        log.info("%s", summary.estimate, extra={FILE_ONLY: opts.echo is not None})
         if opts.echo:
             opts.echo(summary.estimate)
     if to_run:

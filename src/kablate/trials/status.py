@@ -86,6 +86,8 @@ def summarize(
         running=[
             {
                 "job": t.user_attrs["job"],
+                "variant": t.user_attrs.get("variant", t.user_attrs["job"]),
+                "seed": t.user_attrs.get("seed"),
                 "worker": t.user_attrs.get("worker"),
                 "started": t.datetime_start.isoformat(timespec="seconds")
                 if t.datetime_start
@@ -121,8 +123,9 @@ def format_status(status: SweepStatus) -> str:
     elif not status.running:
         lines.append("no trial is running: rerun the sweep's `kablate run` command to continue")
     for entry in status.running:
+        seed = f" seed {entry['seed']}" if entry.get("seed") is not None else ""
         lines.append(
-            f"  running {entry['job']} on {entry['worker'] or '?'} for "
+            f"  running {entry['variant']}{seed} on {entry['worker'] or '?'} for "
             f"{duration(entry['seconds'] or 0)}"
         )
     width = max((len(v["variant"]) for v in status.variants), default=8)
