@@ -60,6 +60,19 @@ def test_single_seed_best_is_recommended_without_a_standard_error():
     t.loc[0, "n_seeds"] = 1
     sel = one_se_rule(t, "macs", 1.0)
     assert sel.recommended == "A" and "fewer than 2 finished seeds" in sel.reason
+    assert sel.threshold == pytest.approx(0.900) and sel.candidates == ("A",)
+
+
+def test_without_a_standard_error_a_tie_on_the_best_mean_goes_to_the_cheaper():
+    # One seed each (a sweep cut short after seed 0): A and D share the best mean, 0.900,
+    # and D costs 40 MACs against A's 100, so D is picked; B (0.895) is not within a
+    # tolerance of zero.
+    t = table()
+    t["n_seeds"] = [1, 1, 1, 1, 0]
+    t.loc[3, "val_acc_mean"] = 0.900
+    sel = one_se_rule(t, "macs", 1.0)
+    assert sel.recommended == "D" and sel.candidates == ("D", "A")
+    assert "the cheapest by MACs of the 2 that share it" in sel.reason
 
 
 def test_unmeasured_latency_is_a_usage_error():

@@ -42,11 +42,12 @@ def plan(latency: bool = False) -> dict:
 VAL = {"v0": [0.90, 0.91, 0.92], "v1": [0.89, 0.91, 0.90], "v2": [0.93, 0.94]}
 
 
-def rows() -> list[dict]:
+def rows(val: dict[str, list[float]] = VAL) -> list[dict]:
+    """A partial sweep by default: big's seed 2 is still running, never has not started."""
     out = []
     for seed in (0, 1, 2):
         for vid, name in (("v0", "base"), ("v1", "cheap"), ("v2", "big"), ("v3", "never")):
-            accs = VAL.get(vid, [])
+            accs = val.get(vid, [])
             done = seed < len(accs)
             out.append(
                 {
@@ -64,7 +65,9 @@ def rows() -> list[dict]:
 
 
 def test_variant_statistics_match_scipy_and_missing_trials_are_counted():
-    a = analyze(rows(), [], plan(), [])
+    complete = dict(VAL, v2=[0.93, 0.94, 0.95])  # every started variant has all three seeds
+    a = analyze(rows(complete), [], plan(), [])
+    assert a.seeds is None  # nothing to balance
     v = a.variants.set_index("variant")
     x = np.array(VAL["v0"])
     low, high = stats.t.interval(0.95, df=2, loc=x.mean(), scale=stats.sem(x))  # reference
@@ -75,14 +78,32 @@ def test_variant_statistics_match_scipy_and_missing_trials_are_counted():
         pytest.approx(high),
     )
     assert v.loc["base", "test_acc_mean"] == pytest.approx(x.mean() - 0.01)
-    assert v["n_seeds"].to_dict() == {"base": 3, "cheap": 3, "big": 2, "never": 0}
-    assert v["n_missing"].to_dict() == {"base": 0, "cheap": 0, "big": 1, "never": 3}
-    assert a.n_missing == 4
-    assert sorted(map(tuple, a.missing[["variant", "seed"]].values.tolist()))[:2] == [
-        ("big", 2),
+    assert v["n_seeds"].to_dict() == {"base": 3, "cheap": 3, "big": 3, "never": 0}
+    assert v["n_missing"].to_dict() == {"base": 0, "cheap": 0, "big": 0, "never": 3}
+    assert a.n_missing == 3
+    assert sorted(map(tuple, a.missing[["variant", "seed"]].values.tolist())) == [
         ("never", 0),
+        ("never", 1),
+        ("never", 2),
     ]
     assert math.isnan(v.loc["never", "val_acc_mean"])
+
+
+def test_a_partial_sweep_compares_every_variant_on_the_seeds_all_have_finished():
+    # big has finished seeds 0 and 1 only (seed 2 is running): base and cheap are compared on
+    # seeds 0 and 1 too, and their seed-2 results are held back. never has no result at all
+    # and does not restrict the others.
+    a = analyze(rows(), [], plan(), [])
+    assert a.seeds == [0, 1]
+    v = a.variants.set_index("variant")
+    assert v["n_seeds"].to_dict() == {"base": 2, "cheap": 2, "big": 2, "never": 0}
+    assert v["n_held_back"].to_dict() == {"base": 1, "cheap": 1, "big": 0, "never": 0}
+    assert v["n_missing"].to_dict() == {"base": 0, "cheap": 0, "big": 1, "never": 3}
+    assert a.n_missing == 4
+    assert v.loc["base", "val_acc_mean"] == pytest.approx(np.mean(VAL["v0"][:2]))
+    assert v.loc["cheap", "val_acc_mean"] == pytest.approx(np.mean(VAL["v1"][:2]))
+    # The paired comparisons keep every seed shared with the baseline.
+    assert a.comparisons["cheap"].n == 3 and a.comparisons["big"].n == 2
 
 
 def test_fronts_are_booleans_and_ignore_untrained_variants():
@@ -126,12 +147,13 @@ def test_grid_table_for_a_two_axis_grid():
     ):
         v["grid"], v["axes"] = 0, [["stem", axes[0]], ["body", axes[1]]]
     a = analyze(rows(), [], p, [{"stem": ["3", "5"], "body": ["3", "5"]}])
-    assert a.grid.loc["3", "3"] == pytest.approx(0.91)
+    assert a.seeds == [0, 1]  # big has two seeds: every cell is compared on those
+    assert a.grid.loc["3", "3"] == pytest.approx(0.905)
     assert a.grid.loc["5", "3"] == pytest.approx(0.935)
     assert math.isnan(a.grid.loc["5", "5"])
     assert analyze(rows(), [], p, [{"stem": ["3", "5"]}]).grid is None
     # Each cell's CI half-width: t(0.975, n-1) · s / √n over its seeds (scipy.stats.t).
-    for cell, accs in ((("3", "3"), VAL["v0"]), (("5", "3"), VAL["v2"])):
+    for cell, accs in ((("3", "3"), VAL["v0"][:2]), (("5", "3"), VAL["v2"])):
         n = len(accs)
         expected = stats.t.ppf(0.975, n - 1) * np.std(accs, ddof=1) / math.sqrt(n)
         assert a.grid_ci_half.loc[cell] == pytest.approx(expected)
@@ -145,5 +167,5 @@ def test_grid_cell_kept_under_an_earlier_plan_name_is_found_by_its_alias():
     for v, axes in zip(p["variants"][1:3], [("3", "5"), ("5", "3")], strict=True):
         v["grid"], v["axes"] = 0, [["stem", axes[0]], ["body", axes[1]]]
     a = analyze(rows(), [], p, [{"stem": ["3", "5"], "body": ["3", "5"]}])
-    assert a.grid.loc["3", "3"] == pytest.approx(0.91)
+    assert a.grid.loc["3", "3"] == pytest.approx(0.905)  # seeds 0 and 1 (see above)
     assert a.grid.loc["3", "5"] == pytest.approx(0.90)

@@ -41,8 +41,8 @@ def one_se_rule(variants: pd.DataFrame, cost: str = "macs", within_se: float = 1
     ``val_acc_std`` and the ``cost`` column.
 
     Variants with no finished seed are ignored. Ties in cost go to the more accurate, then to
-    the smaller name. If the best variant has fewer than two seeds there is no standard error,
-    and the most accurate variant is recommended.
+    the smaller name. If the best variant has fewer than two seeds there is no standard error:
+    the tolerance is zero, and the cheapest of the variants sharing the best mean is picked.
 
     Raises:
         ValueError: no variant has a finished seed.
@@ -62,25 +62,21 @@ def one_se_rule(variants: pd.DataFrame, cost: str = "macs", within_se: float = 1
     best = pool.iloc[0]
     n = int(best["n_seeds"])
     se = float(best["val_acc_std"]) / math.sqrt(n) if n >= 2 else float("nan")
-    if not math.isfinite(se):
-        return Selection(
-            best["variant"],
-            best["variant"],
-            float(best["val_acc_mean"]),
-            se,
-            cost,
-            within_se,
-            "the best variant has fewer than 2 finished seeds, so there is no standard error: "
-            "the most accurate variant is recommended",
-            (best["variant"],),
-        )
-    threshold = float(best["val_acc_mean"]) - within_se * se
+    # Without a standard error (fewer than two seeds) the tolerance is zero: the rule keeps
+    # the variants that share the best mean and takes the cheapest of them.
+    threshold = float(best["val_acc_mean"]) - (within_se * se if math.isfinite(se) else 0.0)
     # The small slack keeps a variant whose mean equals the threshold up to rounding.
     ok = pool[(pool["val_acc_mean"] >= threshold - 1e-12) & pool[cost].notna()]
     ok = ok.sort_values([cost, "val_acc_mean", "variant"], ascending=[True, False, True])
     pick = ok.iloc[0]
     unit = "standard error" if within_se == 1 else "standard errors"
-    if pick["variant"] == best["variant"]:
+    if not math.isfinite(se):
+        tied = f", the cheapest by {label} of the {len(ok)} that share it" if len(ok) > 1 else ""
+        reason = (
+            f"the best variant has fewer than 2 finished seeds, so there is no standard error "
+            f"and the rule keeps only the best mean ({pct(best['val_acc_mean'])}){tied}"
+        )
+    elif pick["variant"] == best["variant"]:
         reason = (
             f"it has the best mean validation accuracy ({pct(best['val_acc_mean'])}), and no "
             f"cheaper variant by {label} comes within {within_se:g} {unit} "

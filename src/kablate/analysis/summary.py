@@ -9,7 +9,13 @@ import pandas as pd
 from kablate.analysis.erf import ErfMap
 from kablate.analysis.select import Selection, one_se_rule
 from kablate.analysis.stats import PairedResult, paired_comparison
-from kablate.analysis.tables import COST_COLUMNS, FINISHED, trial_frame, variant_frame
+from kablate.analysis.tables import (
+    COST_COLUMNS,
+    FINISHED,
+    balanced_seeds,
+    trial_frame,
+    variant_frame,
+)
 from kablate.plans.expand import cell_name, grid_cells
 
 # The columns of curves.csv (kablate.trials.export.CURVE_COLUMNS), for an empty table.
@@ -29,6 +35,7 @@ class Analysis:
     test_comparison: PairedResult | None = None  # recommended vs baseline, on test accuracy
     erf: list[ErfMap] = field(default_factory=list)  # filled by the report, if it can
     erf_note: str = ""  # why there is no effective-receptive-field map, when there is none
+    seeds: list[int] | None = None  # the seeds a partial sweep is compared on; None: all
 
     @property
     def n_missing(self) -> int:
@@ -59,7 +66,8 @@ def analyze(
         within_se: the selection rule's tolerance, in standard errors of the best variant.
     """
     trials = trial_frame(rows)
-    variants = variant_frame(trials, plan)
+    seeds = balanced_seeds(trials)
+    variants = variant_frame(trials, plan, seeds=seeds)
     base_id = plan["baseline"]
     baseline = variants.loc[variants["variant_id"] == base_id, "variant"].iloc[0]
     selection = None
@@ -83,6 +91,7 @@ def analyze(
         grid_table(variants, plan, grids),
         grid_ci_half=grid_table(variants, plan, grids, ci_half_width(variants)),
         test_comparison=test_comparison,
+        seeds=seeds,
     )
 
 

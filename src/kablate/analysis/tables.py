@@ -28,13 +28,41 @@ def trial_frame(rows: list[dict]) -> pd.DataFrame:
     return frame
 
 
-def variant_frame(trials: pd.DataFrame, plan: dict, confidence: float = 0.95) -> pd.DataFrame:
-    """One row per variant of ``plan``: accuracy statistics over finished seeds, costs and
-    Pareto flags. ``n_missing`` counts the planned trials with no result yet."""
+def balanced_seeds(trials: pd.DataFrame) -> list[int] | None:
+    """The seeds to compare variants on when a sweep is partial, else None (use all).
+
+    Every seed contributes its own offset to all variants alike (same data order and
+    augmentation), so means over different seed sets do not compare: a variant that has only
+    finished a lucky seed would look better than one that has also finished an unlucky one.
+    When the variants with a result have not finished the same seeds, the statistics use the
+    seeds that all of them have finished (the runner orders trials seed by seed, so a sweep cut
+    short still has some). None when the seed sets agree, or when they share no seed.
+    """
+    finished = trials[trials["status"].isin(FINISHED)]
+    sets = [set(g["seed"].astype(int)) for _, g in finished.groupby("variant_id")]
+    if not sets or all(s == sets[0] for s in sets):
+        return None
+    common = set.intersection(*sets)
+    return sorted(common) or None
+
+
+def variant_frame(
+    trials: pd.DataFrame, plan: dict, confidence: float = 0.95, seeds: list[int] | None = None
+) -> pd.DataFrame:
+    """One row per variant of ``plan``: accuracy statistics over finished seeds (only those in
+    ``seeds``, when given), costs and Pareto flags. ``n_missing`` counts the planned trials with
+    no result yet, ``n_held_back`` the finished ones left out because their seed is not in
+    ``seeds``."""
     out = []
     for v in plan["variants"]:
         mine = trials[trials["variant_id"] == v["id"]]
         done = mine[mine["status"] == "done"]
+        held = mine[mine["status"].isin(FINISHED)]
+        if seeds is not None:
+            done = done[done["seed"].astype(int).isin(seeds)]
+            held = held[~held["seed"].astype(int).isin(seeds)]
+        else:
+            held = held.iloc[0:0]
         val = t_interval(done["val_acc"].tolist(), confidence)
         test = t_interval(done["test_acc"].tolist(), confidence)
         out.append(
@@ -45,6 +73,7 @@ def variant_frame(trials: pd.DataFrame, plan: dict, confidence: float = 0.95) ->
                 "n_planned": len(plan["seeds"]),
                 "n_missing": int((~mine["status"].isin(FINISHED)).sum()),
                 "n_diverged": int((mine["status"] == "diverged").sum()),
+                "n_held_back": len(held),
                 "val_acc_mean": val.mean,
                 "val_acc_std": val.std,
                 "val_acc_se": val.se,

@@ -32,6 +32,7 @@ VARIANT_COLUMNS = (
     "n_planned",
     "n_missing",
     "n_diverged",
+    "n_held_back",
     "val_acc_mean",
     "val_acc_std",
     "val_acc_se",

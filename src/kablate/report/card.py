@@ -74,6 +74,17 @@ def paired_ci(c) -> str:
     return f"[{pp(c.ci_low)}, {pp(c.ci_high)}]"
 
 
+def n_seeds(n: int) -> str:
+    return f"{n} seed" if n == 1 else f"{n} seeds"
+
+
+def ci_prose(row, metric: str = "val_acc") -> str:
+    """A variant's 95% CI for running text: the interval, or why there is none."""
+    if row[f"{metric}_ci_low"] != row[f"{metric}_ci_low"]:  # NaN: fewer than two seeds
+        return "(one seed: no interval)"
+    return ci(row[f"{metric}_ci_low"], row[f"{metric}_ci_high"])
+
+
 def ci(low: float, high: float) -> str:
     """A 95% CI of an accuracy, clipped to [0%, 100%] for display (the CSV keeps raw limits)."""
     if not (math.isfinite(low) and math.isfinite(high)):
@@ -136,7 +147,9 @@ def _summary(a: Analysis, ctx: CardContext) -> list[str]:
     )
     return [
         f"{line}; mean validation accuracy {pct(rec['val_acc_mean'])} over "
-        f"{rec['n_seeds']} seeds, chosen by the one-standard-error rule on {ctx.cost_label}."
+        f"{n_seeds(rec['n_seeds'])}"
+        + (" (those every variant has finished: the sweep is partial)" if a.seeds else "")
+        + f", chosen by the one-standard-error rule on {ctx.cost_label}."
         + against,
         "",
     ]
@@ -156,8 +169,9 @@ def _details(a: Analysis, ctx: CardContext) -> list[str]:
         f"{network.get('norm', 'batch')} norm, {network.get('act', 'relu')}; a global average "
         "pool and a linear head), in "
         f"{len(a.variants)} kernel plans that differ only in their kernel sizes.",
-        f"- Sweep `{meta['name']}` from `{meta['source']}`, fingerprint `{meta['fingerprint']}` "
-        "(a hash of the resolved network, recipe and data settings).",
+        f"- Sweep `{meta['name']}` from `{meta['source']}`, definition fingerprint "
+        f"`{meta['fingerprint']}` (a hash of the resolved network, recipe and data settings; "
+        "see Reproducing for the whole sweep's).",
         f"- Each plan trained once per seed ({', '.join(map(str, meta['seeds']))}) under one "
         f"recipe: {recipe.get('epochs')} epochs, batch {recipe.get('batch_size')}, "
         f"{recipe.get('optimizer', 'sgd')} at peak lr {recipe.get('lr')}, "
@@ -223,20 +237,25 @@ def _recommendation(a: Analysis, ctx: CardContext) -> list[str]:
         "",
         f"**{sel.recommended}** (`{rec['plan']}`): {human(rec['macs'])} MACs, "
         f"{human(rec['params'])} params, receptive field {rec['rf']} px{latency}. "
-        f"Validation accuracy {pct(rec['val_acc_mean'])} "
-        f"{ci(rec['val_acc_ci_low'], rec['val_acc_ci_high'])} over {rec['n_seeds']} seeds.",
+        f"Validation accuracy {pct(rec['val_acc_mean'])} {ci_prose(rec)} over "
+        f"{n_seeds(rec['n_seeds'])}.",
         "",
         "Why: by the one-standard-error rule (Breiman et al. 1984; Hastie, Tibshirani & "
         f"Friedman, *The Elements of Statistical Learning*, §7.10), {sel.reason}. The rule "
-        f"keeps every variant whose mean is at least {pct(sel.threshold)} (the best mean minus "
-        f"{sel.within_se:g} × its standard error) and takes the cheapest by "
-        f"{ctx.cost_label}: {', '.join(sel.candidates)} qualified.",
+        f"keeps every variant whose mean is at least {pct(sel.threshold)} ("
+        + (
+            f"the best mean minus {sel.within_se:g} × its standard error"
+            if math.isfinite(sel.best_se)
+            else "the best mean itself, for want of a standard error"
+        )
+        + f") and takes the cheapest by {ctx.cost_label}: {', '.join(sel.candidates)} "
+        "qualified.",
         "",
     ]
     tc = a.test_comparison
     test_line = (
         f"Held-out test accuracy of {sel.recommended}, reported separately: "
-        f"{pct(rec['test_acc_mean'])} {ci(rec['test_acc_ci_low'], rec['test_acc_ci_high'])}"
+        f"{pct(rec['test_acc_mean'])} {ci_prose(rec, 'test_acc')}"
     )
     if tc is not None and not tc.too_few:
         test_line += (
@@ -359,11 +378,18 @@ def _erf_section(a: Analysis) -> list[str]:
 
 
 def _partial(a: Analysis) -> list[str]:
-    """The planned trials the statistics do not use: not finished yet, or diverged."""
+    """The planned trials the statistics do not use: not finished yet, diverged, or held back
+    to compare every variant on the same seeds."""
     t = a.trials
-    left_out = t.loc[t["status"] != "done", ["variant", "seed", "status"]]
+    held = (
+        t["status"].eq("done") & ~t["seed"].astype(int).isin(a.seeds)
+        if a.seeds is not None
+        else t["status"].ne(t["status"])
+    )
+    left_out = t.loc[t["status"].ne("done") | held, ["variant", "seed", "status"]].copy()
     if not len(left_out):
         return []
+    left_out.loc[held[held].index, "status"] = "done, held back"
     n_missing = len(a.missing)
     n_diverged = int((left_out["status"] == "diverged").sum())
     said = []
@@ -371,6 +397,15 @@ def _partial(a: Analysis) -> list[str]:
         said.append(
             f"Partial sweep: {n_missing} of {len(t)} trials have no result yet; the "
             "statistics above use the seeds that finished."
+        )
+    if a.seeds is not None:
+        said.append(
+            "Not every variant has finished the same seeds, and a seed moves every variant "
+            "alike, so the statistics, the fronts and the recommended plan use only seed(s) "
+            f"{', '.join(map(str, a.seeds))}, which every variant has finished; "
+            f"{int(held.sum())} finished trial(s) at other seeds are held back (they are in "
+            "`trials.csv`, and the paired comparisons with the baseline use them). Rerun the "
+            "sweep's command to finish the rest."
         )
     if n_diverged:
         said.append(
@@ -453,8 +488,17 @@ def _reproducing(meta: dict) -> list[str]:
         "### Reproducing",
         "",
         f"- Command: `{meta.get('command') or 'kablate run ' + meta['source']}`",
-        f"- Sweep file `{meta['source']}`, fingerprint `{meta['fingerprint']}`; the resolved "
-        "settings are in `sweep.json` beside `trials.csv` and `variants.csv`.",
+        f"- Sweep file `{meta['source']}`"
+        + (f" (SHA-256 `{meta['file_sha256'][:16]}…`)" if meta.get("file_sha256") else "")
+        + (
+            f"; resolved-sweep fingerprint `{meta['sweep_fingerprint']}` (plans, seeds, "
+            "network, recipe, data, with includes merged)"
+            if meta.get("sweep_fingerprint")
+            else ""
+        )
+        + f"; definition fingerprint `{meta['fingerprint']}` (network, recipe and data only: "
+        "it stays the same when seeds or plans are added). The resolved settings are in "
+        "`sweep.json` beside `trials.csv` and `variants.csv`.",
         f"- Machine: {env.get('cpu', 'unknown CPU')}, {env.get('cores', '?')} cores; "
         f"{meta.get('workers')} worker(s) × {meta.get('threads')} thread(s); device "
         f"{meta.get('device', 'cpu')}; storage {meta.get('storage')}.",
