@@ -65,6 +65,7 @@ def test_card_links_images_that_exist_and_holds_the_table_and_recommendation(res
     assert "#### Comparison with the baseline" in text and "ttest_rel" in text
     assert "safety-related" in text
     assert "fingerprint `" in text and "Command: `" in text and "thread(s)" in text
+    assert "SHA-256 `" in text and "resolved-sweep fingerprint `" in text
     # The effective receptive field was computed from the trials' checkpoints.
     erf = text.split("#### Effective receptive field", 1)[1].split("####", 1)[0]
     assert "Not computed" not in erf and "images × seeds" in erf

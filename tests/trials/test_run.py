@@ -3,12 +3,17 @@
 from __future__ import annotations
 
 import csv
+import hashlib
+import json
 
 import pytest
 
+from kablate.costs.catalog import build_catalog
 from kablate.errors import UsageError
 from kablate.report import write_report
+from kablate.spec import load_sweep
 from kablate.trials import RunOptions, open_results, run_sweep
+from kablate.trials.runner import write_manifest
 
 CONTRACT = (
     "variant",
@@ -69,3 +74,21 @@ def test_changed_recipe_is_refused_and_a_new_seed_runs_alone(tiny_sweep, tmp_pat
     tiny_sweep.write_text(text.replace("seeds = [0, 1]", "seeds = [0, 1, 2]"))
     more = run_sweep(tiny_sweep, opts)
     assert more.n_ran == 2 and more.counts == {"done": 6}
+
+
+def test_the_manifest_identifies_the_sweep_file_and_the_resolved_sweep(tiny_sweep, tmp_path):
+    def manifest(path):
+        out = tmp_path / path.stem
+        write_manifest(out, build_catalog(load_sweep(path)), None, RunOptions(), (1, 1))
+        return json.loads((out / "sweep.json").read_text())
+
+    first = manifest(tiny_sweep)
+    assert first["file_sha256"] == hashlib.sha256(tiny_sweep.read_bytes()).hexdigest()
+    # A new seed changes the sweep's fingerprint but not the definition's (network, recipe,
+    # data), which is what a rerun is checked against.
+    more = tiny_sweep.with_name("more.toml")
+    more.write_text(tiny_sweep.read_text().replace("seeds = [0, 1]", "seeds = [0, 1, 2]"))
+    second = manifest(more)
+    assert second["fingerprint"] == first["fingerprint"]
+    assert second["sweep_fingerprint"] != first["sweep_fingerprint"]
+    assert second["file_sha256"] != first["file_sha256"]

@@ -5,6 +5,7 @@ Rerunning the same command continues the sweep: finished trials never run again.
 
 from __future__ import annotations
 
+import hashlib
 import logging
 import os
 import sys
@@ -86,6 +87,11 @@ def choose_layout(n_workers: int, n_threads: int, n_jobs: int) -> tuple[int, int
     return workers, threads
 
 
+def file_sha256(path: Path) -> str | None:
+    """The SHA-256 of the sweep file as it was run (its includes are in the fingerprints)."""
+    return hashlib.sha256(path.read_bytes()).hexdigest() if path.is_file() else None
+
+
 def write_manifest(
     results_dir: Path, catalog: Catalog, url: str | None, opts: RunOptions, layout: tuple[int, int]
 ) -> None:
@@ -96,7 +102,9 @@ def write_manifest(
             "name": sweep.name,
             "source": sanitize(sweep.source),
             "story": sweep.story,
-            "fingerprint": fingerprint(definition(sweep)),
+            "fingerprint": fingerprint(definition(sweep)),  # network, recipe, data
+            "sweep_fingerprint": fingerprint(sweep.raw),  # everything resolved, plans included
+            "file_sha256": file_sha256(Path(sweep.source)),
             "seeds": list(sweep.seeds),
             "baseline": catalog.baseline.variant.id,
             "storage_url": redact(url) if url else None,
