@@ -42,6 +42,15 @@ class Analysis:
         return int(self.variants["n_missing"].sum())
 
     @property
+    def held_back(self) -> pd.Series:
+        """Mask of the trials that finished at a seed outside ``seeds`` (left out to compare
+        every variant on the same seeds); all False when nothing is held back."""
+        t = self.trials
+        if self.seeds is None:
+            return pd.Series(False, index=t.index)
+        return t["status"].eq("done") & ~t["seed"].astype(int).isin(self.seeds)
+
+    @property
     def missing(self) -> pd.DataFrame:
         """The trials without a result yet: variant, seed, status."""
         t = self.trials
@@ -126,6 +135,7 @@ def grid_table(
     A cell is found by its grid coordinates, or by its cell name among a variant's aliases
     (a cell that builds the same network as an earlier plan is kept under that plan's name).
     """
+    values = variants["val_acc_mean"] if values is None else values
     for g, grid in enumerate(grids):
         if len(grid) != 2:
             continue
@@ -135,7 +145,6 @@ def grid_table(
             columns=pd.Index(grid[cols], name=cols),
             dtype=float,
         )
-        values = variants["val_acc_mean"] if values is None else values
         acc = dict(zip(variants["variant_id"], values, strict=True))
         by_name = {}
         for v in plan["variants"]:

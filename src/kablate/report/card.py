@@ -80,7 +80,7 @@ def n_seeds(n: int) -> str:
 
 def ci_prose(row, metric: str = "val_acc") -> str:
     """A variant's 95% CI for running text: the interval, or why there is none."""
-    if row[f"{metric}_ci_low"] != row[f"{metric}_ci_low"]:  # NaN: fewer than two seeds
+    if not math.isfinite(row[f"{metric}_ci_low"]):  # fewer than two seeds
         return "(one seed: no interval)"
     return ci(row[f"{metric}_ci_low"], row[f"{metric}_ci_high"])
 
@@ -380,12 +380,7 @@ def _erf_section(a: Analysis) -> list[str]:
 def _partial(a: Analysis) -> list[str]:
     """The planned trials the statistics do not use: not finished yet, diverged, or held back
     to compare every variant on the same seeds."""
-    t = a.trials
-    held = (
-        t["status"].eq("done") & ~t["seed"].astype(int).isin(a.seeds)
-        if a.seeds is not None
-        else t["status"].ne(t["status"])
-    )
+    t, held = a.trials, a.held_back
     left_out = t.loc[t["status"].ne("done") | held, ["variant", "seed", "status"]].copy()
     if not len(left_out):
         return []
