@@ -16,6 +16,7 @@ from kablate.spec import load_sweep
 from kablate.spec.schema import AugmentSpec
 from kablate.train import TrialInterrupted, train_trial
 from kablate.train.checkpoint import load_checkpoint, save_checkpoint
+from kablate.train.evidence import decode_predictions
 from tests.conftest import REPO
 
 SWEEP = """
@@ -107,13 +108,49 @@ def test_the_record_holds_the_curve_and_the_final_numbers(tiny, tmp_path):
         assert 0.0 <= e.val_acc <= 1.0 and e.seconds > 0
     best = max(record.curve, key=lambda e: e.val_acc)  # the first of equals wins
     assert (record.best_val_acc, record.best_epoch) == (best.val_acc, best.epoch)
-    assert record.test_epoch == record.best_epoch  # recipe.test_from = "best"
+    # recipe.test_from = "last": the last epoch's weights are scored, whatever the best was.
+    assert record.score_epoch == 2
+    assert record.val_acc == record.curve[-1].val_acc
     assert 0.0 <= record.test_acc <= 1.0
     assert record.steps == 3 * math.ceil(160 / 32)
     assert record.samples_per_second > 0 and record.train_seconds > 0 and record.threads == 1
-    # The checkpoint stays, loads with weights_only=True, and holds the best epoch's weights.
+    # The predictions are the evidence: they reproduce both accuracies exactly.
+    for split, acc in (("val", record.val_acc), ("test", record.test_acc)):
+        predicted = decode_predictions(record.predictions[split])
+        labels = getattr(data, split).labels.numpy()
+        assert len(predicted) == len(labels)
+        assert (predicted == labels).mean() == acc
+    # The checkpoint stays, loads with weights_only=True, and holds the scored (last) weights.
     saved = torch.load(tmp_path / loop.CHECKPOINT, weights_only=True)
-    assert saved["epoch"] == 2 and set(saved["best_state"]) == set(saved["model"])
+    assert saved["epoch"] == 2 and saved["best_state"] is None
+    assert loop.scored_state(saved) is saved["model"]
+
+
+@pytest.mark.slow
+def test_best_epoch_is_chosen_on_the_early_stopping_fold_never_on_validation(tiny, tmp_path):
+    recipe, _, layouts = tiny
+    path = tmp_path / "stop.toml"
+    text = SWEEP.replace("test_size = 100", "test_size = 100\nstop_size = 60")
+    path.write_text(text.replace("warmup_epochs = 0.5", 'warmup_epochs = 0.5\ntest_from = "best"'))
+    sweep = load_sweep(path)
+    data = prepare_data(sweep.data)
+    assert len(data.stop.labels) == 60
+    assert not set(data.stop.indices) & set(data.val.indices)
+    assert not set(data.stop.indices) & set(data.train.indices)
+    record = train_trial(layouts["all-3"], sweep.recipe, data, seed=0, workdir=tmp_path)
+    # best_val_acc is the fold's accuracy at the chosen epoch; the scored validation accuracy
+    # is that epoch's validation accuracy, whatever the other epochs scored on validation.
+    assert record.score_epoch == record.best_epoch
+    assert record.val_acc == record.curve[record.best_epoch].val_acc
+    saved = torch.load(tmp_path / loop.CHECKPOINT, weights_only=True)
+    assert loop.scored_state(saved) is saved["best_state"]
+
+
+def test_best_without_an_early_stopping_fold_is_refused(tmp_path):
+    path = tmp_path / "best.toml"
+    path.write_text(SWEEP.replace("warmup_epochs = 0.5", 'warmup_epochs = 0.5\ntest_from = "best"'))
+    with pytest.raises(KablateError, match="data.stop_size"):
+        load_sweep(path)
 
 
 @pytest.mark.slow
@@ -226,8 +263,9 @@ def test_the_model_and_its_inputs_are_channels_last(tiny, monkeypatch):
     monkeypatch.setattr(loop, "build_network", build_and_watch)
     one_step = dataclasses.replace(recipe, epochs=1, max_steps=1)
     train_trial(layouts["all-3"], one_step, data, seed=0)
-    # Every forward pass: the train step, validation and test; input and conv weights.
-    assert len(formats) == 3 and all(formats)
+    # Every forward pass: the train step, the epoch's validation, then the scored weights'
+    # predictions on validation and test; input and conv weights.
+    assert len(formats) == 4 and all(formats)
 
 
 @pytest.mark.slow

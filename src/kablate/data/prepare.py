@@ -35,6 +35,7 @@ class PreparedData:
     mean: tuple[float, ...]
     std: tuple[float, ...]
     test_pool: str  # "test split" or "held out from the training pool"
+    stop: Split | None = None  # the early-stopping fold, carved from the training pool
 
     @property
     def in_shape(self) -> tuple[int, int, int]:
@@ -58,8 +59,10 @@ class PreparedData:
                 "train": len(self.train.labels),
                 "val": len(self.val.labels),
                 "test": len(self.test.labels),
+                **({"stop": len(self.stop.labels)} if self.stop is not None else {}),
             },
             "n_classes": self.n_classes,
+            "classes": list(self.classes),
             "in_shape": list(self.in_shape),
             "mean": list(self.mean),
             "std": list(self.std),
@@ -72,6 +75,12 @@ class PreparedData:
                 "train": self.train.indices.tolist(),
                 "val": self.val.indices.tolist(),
                 "test": self.test.indices.tolist(),
+                **({"stop": self.stop.indices.tolist()} if self.stop is not None else {}),
+            },
+            # The true class of every scored image, in the order of "indices" (the evidence).
+            "labels": {
+                "val": self.val.labels.tolist(),
+                "test": self.test.labels.tolist(),
             },
         }
 
@@ -100,6 +109,11 @@ def prepare_data(spec: DataSpec) -> PreparedData:
         rest, test_set = np.arange(len(labels)), pools.test
         test_idx, test_pool = np.arange(len(test_set.labels)), "the source's test split"
     val_idx, rest = balanced_subset(labels, rest, spec.val_size, spec.split_seed + 1, "val_size")
+    stop_idx = np.array([], dtype=np.int64)
+    if spec.stop_size:
+        stop_idx, rest = balanced_subset(
+            labels, rest, spec.stop_size, spec.split_seed + 4, "stop_size"
+        )
     train_idx, _ = balanced_subset(labels, rest, spec.train_size, spec.split_seed + 2, "train_size")
     test_idx, _ = balanced_subset(
         test_set.labels.numpy(), test_idx, spec.test_size, spec.split_seed + 3, "test_size"
@@ -126,4 +140,5 @@ def prepare_data(spec: DataSpec) -> PreparedData:
         mean=tuple(float(m) for m in mean),
         std=tuple(float(s) for s in std),
         test_pool=test_pool,
+        stop=cut(pool, stop_idx) if spec.stop_size else None,
     )

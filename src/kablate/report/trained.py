@@ -11,9 +11,8 @@ import torch
 from kablate.analysis.erf import ErfMap, effective_rf
 from kablate.analysis.summary import Analysis
 from kablate.errors import KablateError
+from kablate.train.loop import CHECKPOINT, scored_state
 from kablate.trials.results import ResultsFolder
-
-CHECKPOINT = "checkpoint.pt"
 
 
 def erf_maps(folder: ResultsFolder, analysis: Analysis, data: dict) -> tuple[list[ErfMap], str]:
@@ -27,19 +26,16 @@ def erf_maps(folder: ResultsFolder, analysis: Analysis, data: dict) -> tuple[lis
     from kablate.nets.build import build_network
     from kablate.spec.loader import sweep_from_dict
 
-    if analysis.selection is None:
-        return [], "no trial has finished yet"
+    if analysis.decision is None:
+        return [], "there is no recommended plan yet to map"
     trials = analysis.trials
     done = trials[trials["status"] == "done"]
-    names = [analysis.selection.recommended]
+    # A decision needs the baseline's evidence, so both have finished trials here.
+    names = list(dict.fromkeys([analysis.decision.recommended, analysis.baseline]))
     note = ""
-    if analysis.baseline in set(done["variant"]):
-        names = list(dict.fromkeys([*names, analysis.baseline]))
-    else:
-        note = f"the baseline {analysis.baseline} has no finished trial yet, so it has no map"
     ids = dict(zip(analysis.variants["variant"], analysis.variants["variant_id"], strict=True))
     states = {
-        name: _best_states(
+        name: _scored_states(
             folder.path, ids[name], sorted(done.loc[done["variant"] == name, "seed"].astype(int))
         )
         for name in names
@@ -70,8 +66,8 @@ def erf_maps(folder: ResultsFolder, analysis: Analysis, data: dict) -> tuple[lis
     return maps, note
 
 
-def _best_states(results: Path, variant_id: str, seeds: list[int]) -> dict[int, dict]:
-    """seed → ``best_state`` of each given (finished) trial whose checkpoint exists."""
+def _scored_states(results: Path, variant_id: str, seeds: list[int]) -> dict[int, dict]:
+    """seed → the scored weights of each given (finished) trial whose checkpoint exists."""
     out = {}
     for seed in seeds:
         path = results / "trials" / f"{variant_id}-s{seed}" / CHECKPOINT
@@ -81,6 +77,6 @@ def _best_states(results: Path, variant_id: str, seeds: list[int]) -> dict[int, 
             saved = torch.load(path, map_location="cpu", weights_only=True)
         except Exception:  # a torn or foreign file: skip it, the others still count
             continue
-        if isinstance(saved, dict) and saved.get("best_state"):
-            out[seed] = saved["best_state"]
+        if isinstance(saved, dict) and (saved.get("best_state") or saved.get("model")):
+            out[seed] = scored_state(saved)
     return out

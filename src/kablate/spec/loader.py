@@ -87,6 +87,14 @@ def sweep_from_dict(raw: dict, path: Path) -> SweepSpec:
     grids = read_grids(raw.get("grid", []), where.key("grid"))
     if not plans and not grids:
         raise SweepError(source, "plan", "is missing: give at least one [[plan]] or [[grid]]")
+    if recipe.test_from == "best" and not data.stop_size:
+        raise SweepError(
+            source,
+            "recipe.test_from",
+            '= "best" chooses an epoch, which must not be chosen on the validation images that '
+            "score it: set `data.stop_size` (e.g. 200) to carve an early-stopping fold out of "
+            'the training pool, or use test_from = "last"',
+        )
     resolved = dict(raw, network=network_raw, recipe=recipe_raw)
     return SweepSpec(
         name=head.name,

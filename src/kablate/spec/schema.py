@@ -46,6 +46,9 @@ class DataSpec:
     download: bool = False
     train_size: int = check(at_least(0), 0)  # 0: all of the training pool
     val_size: int = check(at_least(1), 300)
+    # Images carved out of the training pool to choose an epoch on (recipe.test_from = "best"),
+    # so that the epoch is never chosen on the validation images that score it. 0: no fold.
+    stop_size: int = check(at_least(0), 0)
     test_size: int = check(at_least(0), 0)  # 0: all of the test split
     test_fraction: float = check(between(0.05, 0.5), 0.25)  # for sources with no test split
     split_seed: int = check(at_least(0), 0)
@@ -108,7 +111,9 @@ class RecipeSpec:
     step_gamma: float = check(between(0.0, 1.0), 0.1)
     label_smoothing: float = check(below(1.0), 0.0)
     augment: AugmentSpec = field(default_factory=AugmentSpec)
-    test_from: Literal["best", "last"] = "best"  # which epoch's weights test accuracy comes from
+    # Which weights are scored (validation and test accuracy, the predictions): the last
+    # epoch's, or the epoch with the best accuracy on the early-stopping fold (data.stop_size).
+    test_from: Literal["best", "last"] = "last"
 
 
 @dataclass(frozen=True)
@@ -124,10 +129,17 @@ class FilterSpec:
 
 @dataclass(frozen=True)
 class PickSpec:
-    """How the report picks the recommended plan: the cheapest variant by ``cost`` whose mean
-    validation accuracy is within ``within_se`` standard errors of the best one's (the
-    one-standard-error rule). ``kablate report --cost/--within-se`` override it."""
+    """How the report picks the recommended plan (see `kablate.analysis.decide`).
 
+    ``margin`` (the default rule): the cheapest plan by ``cost`` that costs less than the
+    baseline and whose one-sided 95% lower bound of (plan − baseline) validation accuracy lies
+    above −``margin`` percentage points; else the baseline. ``one-se``: the one-standard-error
+    rule with ``within_se`` standard errors (seeds and images). ``kablate report --rule,
+    --margin, --cost, --within-se`` override these.
+    """
+
+    rule: Literal["margin", "one-se"] = "margin"
+    margin: float = check(between(0.0, 50.0), 1.0)  # percentage points
     cost: Literal["macs", "params", "latency"] = "macs"
     within_se: float = check(between(0.0, 10.0), 1.0)
 

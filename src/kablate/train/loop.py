@@ -1,10 +1,17 @@
 """One trial: train one variant with one seed under one recipe, then evaluate it.
 
 Read top to bottom: build the model, restore a checkpoint if there is one, run the epochs
-(validation after each, a checkpoint after each), then test with the best-validation or last
-weights as the recipe says. Everything random is seeded by ``seed`` alone, so the same variant
-and seed give the same numbers on the same machine, and every variant sees the same batches
-(paired design). A resumed trial gives the numbers it would have given uninterrupted.
+(validation after each, a checkpoint after each), then score the chosen weights: validation and
+test accuracy and the class predicted for every validation and test image (the evidence).
+
+The scored weights are the last epoch's by default. A maximum over epochs of the accuracy on
+the very images it is scored on would be biased upwards, and unequally across variants; so with
+``recipe.test_from = "best"`` the epoch is chosen on a separate early-stopping fold carved from
+the training pool (``data.stop_size``), never on the validation images.
+
+Everything random is seeded by ``seed`` alone, so the same variant and seed give the same
+numbers on the same machine, and every variant sees the same batches (paired design). A
+resumed trial gives the numbers it would have given uninterrupted.
 
 The hot loop does only tensor work per step, besides three cheap Python checks (stop
 requested, lr, loss finite). On CPU the finiteness check costs no synchronisation.
@@ -19,6 +26,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import torch
 import torch.nn.functional as F
 from torch import nn
@@ -30,6 +38,7 @@ from kablate.nets.build import build_network
 from kablate.nets.layout import Layout
 from kablate.spec.schema import RecipeSpec
 from kablate.train.checkpoint import load_checkpoint, save_checkpoint
+from kablate.train.evidence import encode_predictions
 from kablate.train.record import EpochRecord, TrialRecord
 from kablate.train.schedule import get_lr_factor
 
@@ -98,6 +107,28 @@ def evaluate(model: nn.Module, split: Split) -> tuple[float, float]:
         correct += int((logits.argmax(1) == y).sum())
     n = max(1, len(split.labels))
     return loss_sum / n, correct / n
+
+
+@torch.no_grad()
+def predict(model: nn.Module, split: Split) -> np.ndarray:
+    """The predicted class of every image of a split, in the split's order, in eval mode."""
+    model.eval()
+    batches = eval_batches(split.images, split.labels, EVAL_BATCH)
+    out = [model(x).argmax(1).cpu() for x, _ in batches]
+    return torch.cat(out).numpy() if out else np.zeros(0, dtype=np.int64)
+
+
+def score(model: nn.Module, val: Split, test: Split, record: TrialRecord) -> None:
+    """Validation and test accuracy of the model's current weights, from its predictions."""
+    for name, split in (("val", val), ("test", test)):
+        predicted = predict(model, split)
+        record.predictions[name] = encode_predictions(predicted)
+        correct = int((predicted == split.labels.cpu().numpy()).sum())
+        acc = correct / max(1, len(predicted))
+        if name == "val":
+            record.val_acc = acc
+        else:
+            record.test_acc = acc
 
 
 def train_epoch(
@@ -179,7 +210,8 @@ def restore(
 def checkpoint_state(
     identity: str, model: nn.Module, optimizer: torch.optim.Optimizer, progress: Progress
 ) -> dict[str, Any]:
-    """What `restore` reads back. ``best_state`` stays in the file after the trial ends."""
+    """What `restore` reads back. The file stays after the trial ends: `scored_state` gives the
+    weights the trial was scored with."""
     return {
         "identity": identity,
         "model": model.state_dict(),
@@ -192,6 +224,12 @@ def checkpoint_state(
         "eval_seconds": progress.eval_seconds,
         "record": progress.record.to_dict(),
     }
+
+
+def scored_state(saved: dict[str, Any]) -> dict[str, torch.Tensor]:
+    """The weights a finished trial's checkpoint was scored with: the chosen epoch's when it
+    kept one (``test_from = "best"``), else the last epoch's."""
+    return saved["best_state"] or saved["model"]
 
 
 def train_trial(
@@ -216,6 +254,7 @@ def train_trial(
     torch.set_num_threads(threads)
     dev = torch.device(device)
     train, val, test = (to_device(s, dev) for s in (data.train, data.val, data.test))
+    stop = to_device(data.stop, dev) if data.stop is not None else None
     torch.manual_seed(seed)  # initialisation; data order and augmentation have their own
     model = build_network(layout).to(dev, memory_format=torch.channels_last)
     optimizer = make_optimizer(model, recipe)
@@ -237,6 +276,8 @@ def train_trial(
             break
         eval_start = time.perf_counter()
         val_loss, val_acc = evaluate(model, val)
+        # The epoch is chosen on the early-stopping fold when there is one (never on val).
+        chosen_acc = evaluate(model, stop)[1] if stop is not None else val_acc
         progress.eval_seconds += time.perf_counter() - eval_start
         seconds = time.perf_counter() - epoch_start
         record.curve.append(EpochRecord(progress.epoch, train_loss, val_loss, val_acc, seconds))
@@ -244,9 +285,10 @@ def train_trial(
             record.status = "diverged"
             record.note = f"validation loss was {val_loss} after epoch {progress.epoch}"
             break
-        if not record.best_val_acc >= val_acc:  # also true while best is still NaN
-            record.best_val_acc, record.best_epoch = val_acc, progress.epoch
-            progress.best_state = {k: v.detach().clone() for k, v in model.state_dict().items()}
+        if not record.best_val_acc >= chosen_acc:  # also true while best is still NaN
+            record.best_val_acc, record.best_epoch = chosen_acc, progress.epoch
+            if recipe.test_from == "best":  # only then are these weights ever scored
+                progress.best_state = {k: v.detach().clone() for k, v in model.state_dict().items()}
         progress.epoch += 1
         record.steps = progress.step
         record.train_seconds = time.perf_counter() - clock
@@ -262,14 +304,15 @@ def train_trial(
         return record
     if recipe.test_from == "best" and progress.best_state is not None:
         model.load_state_dict(progress.best_state)
-        record.test_epoch = record.best_epoch
+        record.score_epoch = record.best_epoch
     else:
-        record.test_epoch = record.curve[-1].epoch if record.curve else -1
-    _, record.test_acc = evaluate(model, test)
+        record.score_epoch = record.curve[-1].epoch if record.curve else -1
+    score(model, val, test, record)
     return record
 
 
 def to_device(split: Split, device: torch.device) -> Split:
+    """The split on ``device`` (images channels_last); the same object when already there."""
     if split.images.device == device:
         return split
     images = split.images.to(device, memory_format=torch.channels_last)

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, field, fields
 
 
 @dataclass
@@ -18,10 +18,16 @@ class EpochRecord:
 class TrialRecord:
     status: str = "done"  # done | diverged | stopped
     curve: list[EpochRecord] = field(default_factory=list)
+    # The score: validation and test accuracy of the scored weights (the last epoch's, or the
+    # epoch chosen on the early-stopping fold), and the class each image got from them.
+    val_acc: float = float("nan")
+    test_acc: float = float("nan")
+    score_epoch: int = -1  # whose weights gave val_acc, test_acc and the predictions
+    predictions: dict[str, str] = field(default_factory=dict)  # split → evidence.encode_predictions
+    # Diagnostics, never the score: the highest per-epoch validation accuracy and its epoch
+    # (on the early-stopping fold, when there is one).
     best_val_acc: float = float("nan")
     best_epoch: int = -1
-    test_acc: float = float("nan")
-    test_epoch: int = -1  # whose weights gave test_acc: the best-validation or the last epoch
     train_seconds: float = 0.0
     samples_per_second: float = 0.0  # training samples per second of wall time, validation aside
     threads: int = 1
@@ -34,4 +40,5 @@ class TrialRecord:
     @classmethod
     def from_dict(cls, raw: dict) -> TrialRecord:
         curve = [EpochRecord(**row) for row in raw.get("curve", [])]
-        return cls(**{**raw, "curve": curve})
+        known = {f.name for f in fields(cls)}
+        return cls(**{k: v for k, v in raw.items() if k in known and k != "curve"}, curve=curve)

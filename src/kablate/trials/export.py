@@ -2,15 +2,21 @@
 
 ``trials.csv`` has one row per (variant, seed) of the current sweep, whatever its status, with
 at least ``variant, seed, status, val_acc, test_acc, params, macs, rf, train_seconds``.
+``predictions.csv.gz`` has one row per (finished trial, scored image): ``variant, seed, split,
+index, label, predicted``, where ``split`` is ``val`` or ``test`` and ``index`` is the image's
+index in its source, as listed under ``indices`` in ``data.json``.
 """
 
 from __future__ import annotations
 
 import csv
+import gzip
+import io
 from pathlib import Path
 
 import optuna
 
+from kablate.train.evidence import SPLITS, decode_predictions
 from kablate.trials.queue import job_status, tagged_trials
 
 TRIAL_COLUMNS = (
@@ -20,6 +26,7 @@ TRIAL_COLUMNS = (
     "status",
     "val_acc",
     "test_acc",
+    "score_epoch",
     "best_epoch",
     "params",
     "macs",
@@ -32,6 +39,8 @@ TRIAL_COLUMNS = (
     "n_attempts",
 )
 CURVE_COLUMNS = ("variant", "seed", "epoch", "train_loss", "val_loss", "val_acc", "seconds")
+PREDICTION_COLUMNS = ("variant", "seed", "split", "index", "label", "predicted")
+PREDICTIONS_FILE = "predictions.csv.gz"
 
 
 def collect_trials(study: optuna.Study, plan: dict) -> tuple[list[dict], list[dict]]:
@@ -69,12 +78,14 @@ def collect_trials(study: optuna.Study, plan: dict) -> tuple[list[dict], list[di
                 for name in (
                     "val_acc",
                     "test_acc",
+                    "score_epoch",
                     "best_epoch",
                     "train_seconds",
                     "samples_per_second",
                     "threads",
                 ):
                     row[name] = attrs.get(name)
+                row["predictions"] = attrs.get("predictions") or {}
                 for epoch, tl, vl, va, sec in attrs.get("curve", []):
                     curves.append(
                         dict(
@@ -100,3 +111,33 @@ def write_csv(path: Path, rows: list[dict], columns: tuple[str, ...]) -> None:
         for row in rows:
             writer.writerow({k: ("" if row.get(k) is None else row.get(k)) for k in columns})
     tmp.replace(path)
+
+
+def write_predictions(path: Path, rows: list[dict], data: dict) -> int:
+    """Write ``predictions.csv.gz`` from the trial rows of `collect_trials` (finished trials
+    with their encoded predictions) and ``data.json``'s indices and labels; return its rows.
+
+    Written to a temporary file and renamed, so a reader never sees half a file.
+    """
+    tmp = path.with_name(path.name + ".tmp")
+    n = 0
+    # mtime=0: the same evidence gives the same bytes.
+    with (
+        open(tmp, "wb") as raw,
+        gzip.GzipFile(fileobj=raw, mode="wb", mtime=0) as gz,
+        io.TextIOWrapper(gz, encoding="utf-8", newline="") as text,
+    ):
+        writer = csv.writer(text, lineterminator="\n")
+        writer.writerow(PREDICTION_COLUMNS)
+        for row in rows:
+            for split in SPLITS:
+                encoded = (row.get("predictions") or {}).get(split)
+                if not encoded or row.get("status") != "done":
+                    continue
+                predicted = decode_predictions(encoded).tolist()
+                index, label = data["indices"][split], data["labels"][split]
+                for i, y, p in zip(index, label, predicted, strict=True):
+                    writer.writerow((row["variant"], row["seed"], split, i, y, p))
+                n += len(predicted)
+    tmp.replace(path)
+    return n

@@ -56,9 +56,11 @@ def record_attrs(record: TrialRecord) -> dict:
     """The numbers every consumer (status, report) reads from storage, JSON-safe."""
     return {
         "status": record.status,
-        "val_acc": clean(record.best_val_acc),
+        "val_acc": clean(record.val_acc),
         "test_acc": clean(record.test_acc),
+        "score_epoch": record.score_epoch,
         "best_epoch": record.best_epoch,
+        "predictions": record.predictions,
         "train_seconds": round(record.train_seconds, 3),
         "samples_per_second": round(record.samples_per_second, 1),
         "threads": record.threads,
@@ -121,12 +123,12 @@ def _train_and_tell(ctx: WorkerContext, trial: optuna.Trial, key: str) -> str:
         trial.set_user_attr("outcome", "diverged")
         ctx.study.tell(trial, state=TrialState.FAIL)
     else:
-        ctx.study.tell(trial, values=[record.best_val_acc, float(item.cost.macs)])
+        ctx.study.tell(trial, values=[record.val_acc, float(item.cost.macs)])
     log.info(
         "done %s: %s val %.4f test %.4f in %.1fs",
         key,
         record.status,
-        record.best_val_acc,
+        record.val_acc,
         record.test_acc,
         record.train_seconds,
     )
