@@ -6,9 +6,17 @@ import math
 
 import numpy as np
 import pytest
-from scipy import stats
 
-from kablate.analysis.summary import analyze
+from kablate.analysis.summary import analyze as analyze_rows
+from kablate.spec.schema import PickSpec
+from tests.analysis.synthetic import data_json, with_predictions
+
+
+def analyze(rows, curves, plan, grids, cost="macs"):
+    """The analysis of synthetic rows, with predictions that reproduce their accuracies."""
+    return analyze_rows(
+        with_predictions(rows), curves, plan, grids, data_json(), PickSpec(cost=cost)
+    )
 
 
 def plan(latency: bool = False) -> dict:
@@ -70,13 +78,13 @@ def test_variant_statistics_match_scipy_and_missing_trials_are_counted():
     assert a.seeds is None  # nothing to balance
     v = a.variants.set_index("variant")
     x = np.array(VAL["v0"])
-    low, high = stats.t.interval(0.95, df=2, loc=x.mean(), scale=stats.sem(x))  # reference
     assert v.loc["base", "val_acc_mean"] == pytest.approx(x.mean())
     assert v.loc["base", "val_acc_std"] == pytest.approx(x.std(ddof=1))
-    assert (v.loc["base", "val_acc_ci_low"], v.loc["base", "val_acc_ci_high"]) == (
-        pytest.approx(low),
-        pytest.approx(high),
-    )
+    assert v.loc["base", "n_correct"] == round(100 * x.sum())
+    # Both intervals come from the evidence (bootstrap over seeds and images).
+    assert v.loc["base", "val_acc_ci_low"] < x.mean() < v.loc["base", "val_acc_ci_high"]
+    t = x.mean() - 0.01
+    assert v.loc["base", "test_acc_ci_low"] < t < v.loc["base", "test_acc_ci_high"]
     assert v.loc["base", "test_acc_mean"] == pytest.approx(x.mean() - 0.01)
     assert v["n_seeds"].to_dict() == {"base": 3, "cheap": 3, "big": 3, "never": 0}
     assert v["n_missing"].to_dict() == {"base": 0, "cheap": 0, "big": 0, "never": 3}
@@ -102,8 +110,9 @@ def test_a_partial_sweep_compares_every_variant_on_the_seeds_all_have_finished()
     assert a.n_missing == 4
     assert v.loc["base", "val_acc_mean"] == pytest.approx(np.mean(VAL["v0"][:2]))
     assert v.loc["cheap", "val_acc_mean"] == pytest.approx(np.mean(VAL["v1"][:2]))
-    # The paired comparisons keep every seed shared with the baseline.
-    assert a.comparisons["cheap"].n == 3 and a.comparisons["big"].n == 2
+    # The comparisons use the same seeds (the evidence is paired on seeds and images).
+    assert a.evidence.seeds == (0, 1)
+    assert set(a.decision.contrasts) == {"cheap", "big"}  # never has no result
 
 
 def test_fronts_are_booleans_and_ignore_untrained_variants():
@@ -128,16 +137,18 @@ def test_latency_front_when_measured():
         "big": True,
         "never": False,
     }
-    assert a.selection.cost == "latency_ms"
+    assert a.decision.cost == "latency_ms"
 
 
-def test_baseline_comparison_is_paired_by_seed():
+def test_baseline_comparison_is_paired_on_seeds_and_images():
     a = analyze(rows(), [], plan(), [])
-    big = a.comparisons["big"]
-    assert big.n == 2  # seeds 0 and 1 only: big's seed 2 is still running
-    assert big.mean_diff == pytest.approx(np.mean([0.93 - 0.90, 0.94 - 0.91]))
-    assert a.comparisons["never"].too_few
-    assert set(a.comparisons) == {"cheap", "big", "never"}
+    big = a.decision.contrasts["big"]
+    # seeds 0 and 1 only (big's seed 2 is still running): (0.93 + 0.94 − 0.90 − 0.91) / 2
+    assert big.diff == pytest.approx(np.mean([0.93 - 0.90, 0.94 - 0.91]))
+    assert big.low <= big.diff <= big.high
+    v = a.variants.set_index("variant")
+    assert v.loc["big", "diff"] == pytest.approx(big.diff)
+    assert v.loc["big", "p_holm"] >= v.loc["big", "p_value"]
 
 
 def test_grid_table_for_a_two_axis_grid():
@@ -152,10 +163,10 @@ def test_grid_table_for_a_two_axis_grid():
     assert a.grid.loc["5", "3"] == pytest.approx(0.935)
     assert math.isnan(a.grid.loc["5", "5"])
     assert analyze(rows(), [], p, [{"stem": ["3", "5"]}]).grid is None
-    # Each cell's CI half-width: t(0.975, n-1) · s / √n over its seeds (scipy.stats.t).
-    for cell, accs in ((("3", "3"), VAL["v0"][:2]), (("5", "3"), VAL["v2"])):
-        n = len(accs)
-        expected = stats.t.ppf(0.975, n - 1) * np.std(accs, ddof=1) / math.sqrt(n)
+    # Each cell's half-width is its variant's 95% interval's.
+    v = a.variants.set_index("variant")
+    for cell, name in ((("3", "3"), "base"), (("5", "3"), "big")):
+        expected = (v.loc[name, "val_acc_ci_high"] - v.loc[name, "val_acc_ci_low"]) / 2
         assert a.grid_ci_half.loc[cell] == pytest.approx(expected)
     assert math.isnan(a.grid_ci_half.loc["5", "5"])  # never trained
 

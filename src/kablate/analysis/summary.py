@@ -1,25 +1,37 @@
-"""Everything the report needs, computed once from a results folder's rows."""
+"""Everything the report needs, computed once from a results folder's rows.
+
+The numbers a user acts on come from the per-image evidence: each variant's validation
+accuracy and its interval, the comparisons with the baseline and the recommended plan
+(`decide`). The per-seed table (`tables.variant_frame`) supplies counts, costs, seed spreads,
+test accuracy and the fronts; its validation columns are then replaced by the evidence's.
+"""
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 
+import numpy as np
 import pandas as pd
 
+from kablate.analysis.bootstrap import resample_accuracies
+from kablate.analysis.decide import Contrast, Decision, accuracies, contrasts, decide
 from kablate.analysis.erf import ErfMap
-from kablate.analysis.select import Selection, one_se_rule
-from kablate.analysis.stats import PairedResult, paired_comparison
+from kablate.analysis.evidence import Evidence, gather_evidence
+from kablate.analysis.flags import variant_flags
+from kablate.analysis.power import Resolution, resolution_after
 from kablate.analysis.tables import (
     COST_COLUMNS,
     FINISHED,
+    add_fronts,
     balanced_seeds,
     trial_frame,
     variant_frame,
 )
+from kablate.errors import UsageError
 from kablate.plans.expand import cell_name, grid_cells
-
-# The columns of curves.csv (kablate.trials.export.CURVE_COLUMNS), for an empty table.
-CURVE_COLUMNS = ("variant", "seed", "epoch", "train_loss", "val_loss", "val_acc", "seconds")
+from kablate.spec.schema import PickSpec
+from kablate.trials.export import CURVE_COLUMNS
 
 
 @dataclass
@@ -28,14 +40,22 @@ class Analysis:
     variants: pd.DataFrame
     curves: pd.DataFrame
     baseline: str
-    selection: Selection | None
-    comparisons: dict[str, PairedResult] = field(default_factory=dict)  # on validation accuracy
+    pick: PickSpec  # the rule's settings, as used
+    decision: Decision | None
+    evidence: Evidence | None = None  # validation evidence on the compared seeds
+    test_contrast: Contrast | None = None  # recommended vs baseline on test, reported only
+    flags: dict[str, list[str]] = field(default_factory=dict)  # variant → warnings
+    resolution: Resolution | None = None  # what the sweep could resolve
     grid: pd.DataFrame | None = None  # mean val acc pivoted over a 2-axis grid
     grid_ci_half: pd.DataFrame | None = None  # half-width of each cell's 95% CI, same shape
-    test_comparison: PairedResult | None = None  # recommended vs baseline, on test accuracy
     erf: list[ErfMap] = field(default_factory=list)  # filled by the report, if it can
     erf_note: str = ""  # why there is no effective-receptive-field map, when there is none
     seeds: list[int] | None = None  # the seeds a partial sweep is compared on; None: all
+    classes: tuple[str, ...] = ()
+
+    @property
+    def recommended(self) -> str | None:
+        return self.decision.recommended if self.decision else None
 
     @property
     def n_missing(self) -> int:
@@ -62,8 +82,8 @@ def analyze(
     curves: list[dict],
     plan: dict,
     grids: list[dict],
-    cost: str = "macs",
-    within_se: float = 1.0,
+    data: dict,
+    pick: PickSpec | None = None,
 ) -> Analysis:
     """Tables, fronts, the recommended plan and the baseline comparisons.
 
@@ -71,59 +91,146 @@ def analyze(
         rows, curves: `kablate.trials.export.collect_trials` output.
         plan: the content of ``plan.json``.
         grids: the sweep's grids (``sweep.json``'s ``grids``).
-        cost: ``macs``, ``params`` or ``latency``: what the recommended plan minimises.
-        within_se: the selection rule's tolerance, in standard errors of the best variant.
+        data: the content of ``data.json`` (labels of the scored images, class names).
+        pick: the selection rule's settings (default: the non-inferiority rule, 1 pp, MACs).
     """
+    pick = pick or PickSpec()
     trials = trial_frame(rows)
     seeds = balanced_seeds(trials)
     variants = variant_frame(trials, plan, seeds=seeds)
     base_id = plan["baseline"]
     baseline = variants.loc[variants["variant_id"] == base_id, "variant"].iloc[0]
-    selection = None
-    if (variants["n_seeds"] > 0).any():
-        selection = one_se_rule(variants, COST_COLUMNS[cost], within_se)
-    variants["recommended"] = variants["variant"] == (selection.recommended if selection else "")
-    comparisons = compare_to_baseline(trials, variants, base_id, "val_acc")
-    test_comparison = None
-    if selection is not None and selection.recommended != baseline:
-        rec_id = variants.loc[variants["recommended"], "variant_id"].iloc[0]
-        test_comparison = paired_comparison(
-            per_seed(trials, rec_id, "test_acc"), per_seed(trials, base_id, "test_acc")
+    curves_frame = pd.DataFrame(curves) if curves else pd.DataFrame(columns=list(CURVE_COLUMNS))
+    evidence = gather_evidence(trials, data, seeds)
+    decision, resolution = None, None
+    if evidence is not None and baseline in evidence.names:
+        cost_col = COST_COLUMNS[pick.cost]
+        costs = dict(zip(variants["variant"], variants[cost_col].astype(float), strict=True))
+        if any(not math.isfinite(costs[n]) for n in evidence.names):
+            raise UsageError(
+                f"the selection cost {pick.cost} was not measured for this sweep's variants; "
+                "choose --cost macs or params (or [pick] cost in the sweep file)"
+            )
+        decision = decide(
+            evidence,
+            {n: costs[n] for n in evidence.names},
+            baseline,
+            pick.rule,
+            pick.margin / 100,
+            pick.within_se,
+            cost_col,
         )
+        resolution = observed_resolution(evidence, decision)
+        apply_decision(variants, decision)
+    variants["recommended"] = variants["variant"] == (decision.recommended if decision else "")
+    n_classes = int(data.get("n_classes") or len(data.get("classes", [])) or 2)
+    flags = variant_flags(
+        trials[trials["status"].isin(FINISHED)],
+        curves_frame,
+        dict(zip(evidence.names, evidence.n_correct.tolist(), strict=True)) if evidence else {},
+        evidence.n_images if evidence else 0,
+        len(evidence.seeds) if evidence else 0,
+        n_classes,
+    )
+    variants["flags"] = ["; ".join(flags.get(n, [])) for n in variants["variant"]]
     return Analysis(
         trials,
         variants,
-        pd.DataFrame(curves) if curves else pd.DataFrame(columns=list(CURVE_COLUMNS)),
+        curves_frame,
         baseline,
-        selection,
-        comparisons,
+        pick,
+        decision,
+        evidence,
+        contrast_on_test(trials, data, seeds, decision, variants),
+        flags,
+        resolution,
         grid_table(variants, plan, grids),
-        grid_ci_half=grid_table(variants, plan, grids, ci_half_width(variants)),
-        test_comparison=test_comparison,
+        grid_table(variants, plan, grids, ci_half_width(variants)),
         seeds=seeds,
+        classes=tuple(str(c) for c in data.get("classes", range(n_classes))),
     )
 
 
+def apply_decision(variants: pd.DataFrame, decision: Decision) -> None:
+    """Put the evidence's numbers into the variants table (in place).
+
+    ``val_acc_mean``, ``val_acc_se``, ``val_acc_ci_low`` and ``val_acc_ci_high`` become the
+    accuracy over every (seed, image) pair and its two-level bootstrap standard error and 95%
+    interval; ``val_acc_std`` stays the spread over seeds. The fronts are recomputed on them.
+    """
+    acc, found = decision.accuracy, decision.contrasts
+    names = variants["variant"]
+
+    def column(get, default=math.nan):
+        return [get(n) if n in acc else default for n in names]
+
+    variants["n_correct"] = column(lambda n: acc[n].n_correct, pd.NA)
+    variants["n_scored"] = column(lambda n: acc[n].n_scored, pd.NA)
+    variants["val_acc_mean"] = column(lambda n: acc[n].mean)
+    variants["val_acc_se"] = column(lambda n: acc[n].se)
+    variants["val_acc_ci_low"] = column(lambda n: acc[n].low)
+    variants["val_acc_ci_high"] = column(lambda n: acc[n].high)
+    for col, attr in (
+        ("diff", "diff"),
+        ("diff_ci_low", "low"),
+        ("diff_ci_high", "high"),
+        ("diff_lower_bound", "lower_bound"),
+        ("p_value", "p_value"),
+        ("p_holm", "p_holm"),
+    ):
+        variants[col] = [getattr(found[n], attr) if n in found else math.nan for n in names]
+    variants["noninferior"] = [
+        n in found and found[n].lower_bound > -decision.margin for n in names
+    ]
+    variants["pick_share"] = column(lambda n: decision.pick_share.get(n, 0.0))
+    base_cost = variants.loc[names == decision.baseline, decision.cost].iloc[0]
+    variants["cost_ratio"] = variants[decision.cost].astype(float) / float(base_cost)
+    add_fronts(variants)
+
+
+def observed_resolution(evidence: Evidence, decision: Decision) -> Resolution | None:
+    """The smallest difference the sweep resolved with 80% power, from the median standard
+    error of the comparisons with the baseline, and the observed disagreement rate."""
+    if not decision.contrasts:
+        return None
+    se = float(np.median([c.se for c in decision.contrasts.values()]))
+    n_pairs = evidence.correct.shape[1] * evidence.n_images
+    disagreement = float(np.mean([c.n_discordant / n_pairs for c in decision.contrasts.values()]))
+    return resolution_after(se, evidence.n_images, disagreement)
+
+
+def contrast_on_test(
+    trials: pd.DataFrame,
+    data: dict,
+    seeds: list[int] | None,
+    decision: Decision | None,
+    variants: pd.DataFrame,
+) -> Contrast | None:
+    """Test accuracy from the test evidence, reported only: each variant's accuracy and
+    bootstrap interval go into the variants table (in place), and the recommended plan is
+    compared with the baseline. Returns that comparison (None when there is none)."""
+    test = gather_evidence(trials, data, seeds, split="test")
+    if test is None:
+        return None
+    boot = resample_accuracies(test.correct)
+    acc = accuracies(test, boot)
+    names = variants["variant"]
+    for col, get in (
+        ("test_acc_mean", lambda a: a.mean),
+        ("test_acc_ci_low", lambda a: a.low),
+        ("test_acc_ci_high", lambda a: a.high),
+    ):
+        variants[col] = [get(acc[n]) if n in acc else math.nan for n in names]
+    if decision is None or decision.keeps_baseline:
+        return None
+    if not {decision.recommended, decision.baseline} <= set(test.names):
+        return None
+    return contrasts(test, boot, decision.baseline)[decision.recommended]
+
+
 def ci_half_width(variants: pd.DataFrame) -> pd.Series:
-    """Half the width of each variant's 95% t-interval of validation accuracy (NaN at n < 2)."""
+    """Half the width of each variant's 95% interval of validation accuracy."""
     return (variants["val_acc_ci_high"] - variants["val_acc_ci_low"]) / 2
-
-
-def per_seed(trials: pd.DataFrame, vid: str, metric: str) -> dict[int, float]:
-    """seed → metric of the variant's finished trials."""
-    mine = trials[(trials["status"] == "done") & (trials["variant_id"] == vid)]
-    return dict(zip(mine["seed"].astype(int), mine[metric].astype(float), strict=True))
-
-
-def compare_to_baseline(
-    trials: pd.DataFrame, variants: pd.DataFrame, base_id: str, metric: str
-) -> dict[str, PairedResult]:
-    base = per_seed(trials, base_id, metric)
-    return {
-        row.variant: paired_comparison(per_seed(trials, row.variant_id, metric), base)
-        for row in variants.itertuples()
-        if row.variant_id != base_id
-    }
 
 
 def grid_table(
