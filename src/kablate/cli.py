@@ -34,8 +34,9 @@ Example:
 EPILOG_REPORT = """\b
 Example:
   kablate report results/quickstart
-  kablate report results/quickstart --cost params --within-se 0.5 --out card
-The rule's cost and tolerance default to the sweep file's [pick] table.
+  kablate report results/quickstart --margin 0.5 --cost params --out card
+  kablate report results/quickstart --rule one-se --within-se 2
+The rule, margin, cost and tolerance default to the sweep file's [pick] table.
 """
 
 
@@ -245,6 +246,21 @@ def status(results: Path, fmt: str, storage: str | None) -> None:
     help="Where to write the report (default: RESULTS/report).",
 )
 @click.option(
+    "--rule",
+    type=click.Choice(["margin", "one-se"]),
+    default=None,
+    help="How the plan is picked: the cheapest plan shown within the margin of the baseline "
+    "(margin), or the one-standard-error rule (one-se). Default: the sweep's [pick] rule, "
+    "else margin.",
+)
+@click.option(
+    "--margin",
+    type=float,
+    default=None,
+    help="The accuracy loss, in percentage points, accepted for a cheaper plan (default: "
+    "the sweep's [pick] margin, else 1).",
+)
+@click.option(
     "--cost",
     type=click.Choice(["macs", "params", "latency"]),
     default=None,
@@ -252,10 +268,10 @@ def status(results: Path, fmt: str, storage: str | None) -> None:
 )
 @click.option(
     "--within-se",
-    type=click.FloatRange(min=0),
+    type=float,
     default=None,
-    help="Tolerance of the selection rule, in standard errors of the best variant "
-    "(default: the sweep's [pick] within_se, else 1).",
+    help="The one-se rule's tolerance, in standard errors (seeds and images) of the best "
+    "variant (default: the sweep's [pick] within_se, else 1).",
 )
 @click.option(
     "--storage",
@@ -271,14 +287,18 @@ def status(results: Path, fmt: str, storage: str | None) -> None:
 def report(
     results: Path,
     out: Path | None,
+    rule: str | None,
+    margin: float | None,
     cost: str | None,
     within_se: float | None,
     storage: str | None,
     no_erf: bool,
 ) -> None:
     """Rebuild the tables, plots and model-card section of a results folder."""
-    from kablate.report.build import write_report
+    from kablate.report.build import pick_settings, write_report
     from kablate.trials.results import open_results
 
-    path = write_report(open_results(results, storage), out, cost, within_se, not no_erf)
+    folder = open_results(results, storage)
+    pick = pick_settings(folder.meta, rule=rule, margin=margin, cost=cost, within_se=within_se)
+    path = write_report(folder, out, pick, not no_erf)
     click.echo(f"report: {path}")

@@ -8,6 +8,7 @@ import pytest
 
 from kablate.analysis.erf import ErfMap, Geometry
 from kablate.analysis.summary import analyze
+from kablate.report import plots
 from kablate.report.card import CardContext, render_card
 from kablate.report.plots import (
     ERF_SQUARES,
@@ -15,6 +16,7 @@ from kablate.report.plots import (
     erf_view,
     heatmap_limits,
     plot_accuracy_vs_cost,
+    plot_confusion,
     plot_effective_rf,
     plot_grid_heatmap,
     plot_learning_curves,
@@ -22,6 +24,8 @@ from kablate.report.plots import (
     rendering,
     square_shown,
 )
+from kablate.spec.schema import PickSpec
+from tests.analysis.synthetic import data_json, with_predictions
 from tests.analysis.test_tables import plan, rows
 
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
@@ -48,7 +52,8 @@ def analysis():
         for s in (0, 1)
         for e in range(4)
     ]
-    a = analyze(rows(), curves, p, [{"stem": ["3", "5"], "body": ["3", "5"]}])
+    grids = [{"stem": ["3", "5"], "body": ["3", "5"]}]
+    a = analyze(with_predictions(rows()), curves, p, grids, data_json(), PickSpec(margin=2.0))
     grad = np.exp(-((np.indices((9, 9)) - 4.0) ** 2).sum(axis=0) / 4.0)
     a.erf = [
         ErfMap("base", grad / grad.max(), Geometry((4.0, 4.0), (7, 7), (1, 1)), 8, (0, 1), 3, 5)
@@ -73,6 +78,50 @@ def check(paths, stem):
 def test_accuracy_vs_cost(analysis, tmp_path, cost, label, stem):
     with rendering():
         check(plot_accuracy_vs_cost(analysis, cost, label, tmp_path, "sub"), stem)
+
+
+def drawn(monkeypatch, draw):
+    """Call ``draw`` and return the figure it made, before it is saved and closed."""
+    figures = []
+    save = plots._save
+    monkeypatch.setattr(
+        plots, "_save", lambda fig, out, stem: figures.append(fig) or save(fig, out, stem)
+    )
+    draw()
+    return figures[0]
+
+
+def test_accuracy_vs_cost_draws_the_margin_band_and_hollow_markers(analysis, tmp_path, monkeypatch):
+    with rendering():
+        fig = drawn(
+            monkeypatch, lambda: plot_accuracy_vs_cost(analysis, "macs", "MACs", tmp_path, "s")
+        )
+    ax = fig.axes[0]
+    base = analysis.variants.set_index("variant").loc["base", "val_acc_mean"]
+    bands = [p for p in ax.patches if p.get_label().startswith("baseline − margin")]
+    assert len(bands) == 1
+    y0, y1 = sorted((bands[0].get_y(), bands[0].get_y() + bands[0].get_height()))
+    assert (y0, y1) == pytest.approx((base - 0.02, base))  # margin 2 pp
+    # No Pareto staircase: no stepped line through the points.
+    assert not [line for line in ax.get_lines() if line.get_drawstyle().startswith("steps")]
+    # cheap (0.5 pp below on 100 images) cannot be told apart: hollow; base: filled.
+    faces = {
+        c.get_label().split(" (n=")[0]: c.lines[0].get_markerfacecolor() for c in ax.containers
+    }
+    assert faces["cheap"] == "white" and faces["base"] != "white"
+
+
+def test_confusion_matrices_show_the_pooled_counts(analysis, tmp_path, monkeypatch):
+    with rendering():
+        fig = drawn(monkeypatch, lambda: plot_confusion(analysis, tmp_path, "s"))
+    d = analysis.decision
+    names = list(dict.fromkeys([d.recommended, d.baseline]))
+    panels = [ax for ax in fig.axes if ax.get_title()]
+    assert [ax.get_title().split(": ")[1] for ax in panels] == names
+    # The cells' annotations add up to seeds × images (2 seeds × 100 validation images).
+    total = sum(int(t.get_text()) for t in panels[0].texts)
+    assert total == 2 * 100
+    assert (tmp_path / "confusion.png").read_bytes()[:8] == PNG_SIGNATURE
 
 
 def test_rf_vs_accuracy(analysis, tmp_path):
@@ -155,7 +204,8 @@ def test_card_of_a_partial_sweep_lists_the_missing_trials(analysis):
     assert "#### Trials without a result" in text
     assert "Partial sweep: 4 of 12 trials have no result yet" in text
     assert "| never | 0 | waiting |" in text and "| big | 2 | running |" in text
-    assert "0/3" in text  # the untrained variant's seeds are shown as 0 of 3
+    never = next(x for x in text.splitlines() if x.startswith("| never |"))
+    assert "not compared yet" in never
     assert "![" in text and "(a.png)" in text
 
 

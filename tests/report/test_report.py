@@ -14,9 +14,10 @@ from click.testing import CliRunner
 from kablate.cli import main
 from kablate.errors import SweepError
 from kablate.report import write_report
-from kablate.report.build import selection_settings
+from kablate.report.build import pick_settings
 from kablate.spec import load_sweep
 from kablate.trials import RunOptions, open_results, run_sweep
+from kablate.trials.export import PREDICTION_COLUMNS
 from tests.conftest import TINY_SWEEP, write_sweep
 
 
@@ -55,14 +56,19 @@ def test_card_links_images_that_exist_and_holds_the_table_and_recommendation(res
         "### Caveats and recommendations",
     ):
         assert heading in text  # Mitchell et al. 2019's section headings
-    assert "#### Variants and Pareto fronts" in text
+    assert "#### Variants against the baseline" in text
     assert "| all-3" in text and "| stem-5" in text
     rows = list(csv.DictReader((results / "variants.csv").open()))
     rec = [r["variant"] for r in rows if r["recommended"] == "True"]
     assert len(rec) == 1
-    assert f"**Recommended kernel plan: {rec[0]}**" in text
-    assert "one-standard-error rule" in text and "§7.10" in text
-    assert "#### Comparison with the baseline" in text and "ttest_rel" in text
+    verdict = (
+        f"**Recommended kernel plan: {rec[0]}**"
+        if rec[0] != "all-3"
+        else ("**Keep the baseline all-3**")
+    )
+    assert verdict in text
+    assert "non-inferiority with a 1.00 pp margin" in text
+    assert "#### Per-class validation accuracy" in text and "Holm" in text
     assert "safety-related" in text
     assert "fingerprint `" in text and "Command: `" in text and "thread(s)" in text
     assert "SHA-256 `" in text and "resolved-sweep fingerprint `" in text
@@ -92,6 +98,10 @@ def test_variants_csv_has_the_contract_and_an_independent_front_agrees(results):
         "front_macs",
         "front_params",
         "recommended",
+        "diff_ci_low",
+        "diff_lower_bound",
+        "p_holm",
+        "pick_share",
     ]
     assert set(contract) <= set(rows[0])
     for cost in ("macs", "params"):
@@ -153,13 +163,16 @@ def test_cli_report_writes_to_out_and_refuses_an_unmeasured_cost(results, tmp_pa
 
 
 def test_pick_table_sets_the_rule_and_the_command_line_overrides_it(tmp_path):
-    body = TINY_SWEEP + '\n[pick]\ncost = "params"\nwithin_se = 2\n'
+    body = TINY_SWEEP + '\n[pick]\ncost = "params"\nmargin = 0.5\nrule = "one-se"\n'
     sweep = load_sweep(write_sweep(tmp_path, body))
-    assert (sweep.pick.cost, sweep.pick.within_se) == ("params", 2.0)
+    assert (sweep.pick.cost, sweep.pick.margin, sweep.pick.rule) == ("params", 0.5, "one-se")
     meta = {"resolved": sweep.raw}
-    assert selection_settings(meta, None, None) == ("params", 2.0)
-    assert selection_settings(meta, "macs", 0.5) == ("macs", 0.5)
-    assert selection_settings({"resolved": {}}, None, None) == ("macs", 1.0)
+    assert pick_settings(meta) == sweep.pick
+    over = pick_settings(meta, cost="macs", margin=2.0, rule=None, within_se=None)
+    assert (over.cost, over.margin, over.rule) == ("macs", 2.0, "one-se")
+    assert pick_settings({"resolved": {}}).margin == 1.0
+    with pytest.raises(SweepError, match="pick.margin"):
+        pick_settings(meta, margin=-1.0)
     with pytest.raises(SweepError, match="pick.within_se"):
         load_sweep(write_sweep(tmp_path, TINY_SWEEP + "\n[pick]\nwithin_se = -1\n"))
     with pytest.raises(SweepError, match="pick.cost"):
@@ -167,18 +180,39 @@ def test_pick_table_sets_the_rule_and_the_command_line_overrides_it(tmp_path):
 
 
 @pytest.mark.slow
-def test_effective_rf_without_a_finished_baseline_maps_the_recommended_plan(results):
+def test_predictions_reproduce_the_accuracies_of_trials_csv(results):
+    import pandas as pd
+
+    preds = pd.read_csv(results / "predictions.csv.gz")
+    assert tuple(preds.columns) == PREDICTION_COLUMNS
+    trials = pd.read_csv(results / "trials.csv")
+    data = json.loads((results / "data.json").read_text())
+    for row in trials.itertuples():
+        for split in ("val", "test"):
+            mine = preds[
+                (preds.variant == row.variant) & (preds.seed == row.seed) & (preds.split == split)
+            ]
+            assert mine["index"].tolist() == data["indices"][split]
+            acc = (mine["label"] == mine["predicted"]).mean()
+            assert acc == pytest.approx(getattr(row, f"{split}_acc"), abs=1e-12)
+
+
+@pytest.mark.slow
+def test_without_a_finished_baseline_there_is_no_verdict_and_no_map(results):
     from kablate.analysis.summary import analyze
+    from kablate.report.card import render_card
     from kablate.report.trained import erf_maps
     from kablate.trials.meta import read_json
+    from tests.report.test_plots import card_context
 
     folder = open_results(results)
     rows, curves = folder.rows()
     for row in rows:  # as if the baseline's trials had not run yet
         if row["variant"] == "all-3":
             row.update(status="waiting", val_acc=None, test_acc=None)
-    analysis = analyze(rows, curves, folder.plan, folder.meta.get("grids", []))
-    assert analysis.selection.recommended == "stem-5"
-    maps, note = erf_maps(folder, analysis, read_json(results / "data.json"))
-    assert [m.variant for m in maps] == ["stem-5"]
-    assert note == "the baseline all-3 has no finished trial yet, so it has no map"
+    data = read_json(results / "data.json")
+    analysis = analyze(rows, curves, folder.plan, folder.meta.get("grids", []), data)
+    assert analysis.decision is None  # no baseline to compare with
+    assert "has not finished" in render_card(analysis, card_context())
+    maps, note = erf_maps(folder, analysis, data)
+    assert maps == [] and note == "there is no recommended plan yet to map"

@@ -3,24 +3,31 @@
 from __future__ import annotations
 
 import json
-import math
 from pathlib import Path
 
 from kablate import __version__
 from kablate.analysis.summary import Analysis, analyze
-from kablate.analysis.tables import COST_COLUMNS
-from kablate.errors import KablateError, UsageError
+from kablate.errors import KablateError
 from kablate.report.card import PLOT_CAPTIONS, CardContext, render_card
 from kablate.report.plots import (
     plot_accuracy_vs_cost,
+    plot_confusion,
     plot_effective_rf,
     plot_grid_heatmap,
     plot_learning_curves,
     plot_rf_vs_accuracy,
     rendering,
 )
+from kablate.spec.fields import Where, read_table
+from kablate.spec.schema import PickSpec
 from kablate.trials.environment import sanitize
-from kablate.trials.export import CURVE_COLUMNS, TRIAL_COLUMNS, write_csv
+from kablate.trials.export import (
+    CURVE_COLUMNS,
+    PREDICTIONS_FILE,
+    TRIAL_COLUMNS,
+    write_csv,
+    write_predictions,
+)
 from kablate.trials.meta import read_json, write_json
 from kablate.trials.results import DATA_FILE, ResultsFolder
 from kablate.trials.store import redact
@@ -50,6 +57,18 @@ VARIANT_COLUMNS = (
     "act_mem_bytes",
     "latency_ms",
     "train_seconds_mean",
+    "n_correct",
+    "n_scored",
+    "diff",
+    "diff_ci_low",
+    "diff_ci_high",
+    "diff_lower_bound",
+    "p_value",
+    "p_holm",
+    "noninferior",
+    "cost_ratio",
+    "pick_share",
+    "flags",
     "front_macs",
     "front_params",
     "front_latency",
@@ -75,22 +94,19 @@ def subtitle(meta: dict, data: dict) -> str:
     )
 
 
-def selection_settings(meta: dict, cost: str | None, within_se: float | None) -> tuple[str, float]:
-    """The selection rule's cost and tolerance: the command line's, else the sweep file's
-    ``[pick]`` table, else MACs and one standard error."""
-    pick = meta.get("resolved", {}).get("pick", {})
-    cost = cost or pick.get("cost", "macs")
-    within_se = within_se if within_se is not None else float(pick.get("within_se", 1.0))
-    if cost not in COST_COLUMNS:
-        raise UsageError(f"the selection cost must be one of macs, params, latency; got {cost}")
-    if not (math.isfinite(within_se) and within_se >= 0):
-        raise UsageError(f"the selection tolerance must be ≥ 0 standard errors; got {within_se}")
-    return cost, within_se
+def pick_settings(meta: dict, **overrides) -> PickSpec:
+    """The selection rule's settings: the command line's (``overrides`` that are not None),
+    else the sweep file's ``[pick]`` table, else the defaults of `PickSpec`."""
+    raw = dict(meta.get("resolved", {}).get("pick", {}))
+    raw.update({k: v for k, v in overrides.items() if v is not None})
+    return read_table(PickSpec, raw, Where("the command line or [pick]").key("pick"))
 
 
-def write_tables(folder: ResultsFolder, analysis: Analysis) -> None:
-    """trials.csv/json, variants.csv/json and curves.csv in the results folder."""
+def write_tables(folder: ResultsFolder, analysis: Analysis, data: dict) -> None:
+    """trials.csv/json, variants.csv/json, curves.csv and predictions.csv.gz in the results
+    folder."""
     out = folder.path
+    write_predictions(out / PREDICTIONS_FILE, analysis.trials.to_dict("records"), data)
     write_csv(out / "trials.csv", analysis.trials.to_dict("records"), TRIAL_COLUMNS)
     write_csv(out / "curves.csv", analysis.curves.to_dict("records"), CURVE_COLUMNS)
     table = analysis.variants.reindex(columns=list(VARIANT_COLUMNS))
@@ -118,8 +134,10 @@ def draw_plots(analysis: Analysis, out: Path, sub: str) -> list[Path]:
             plots += plot_learning_curves(analysis, out, sub)
         if analysis.grid is not None:
             plots += plot_grid_heatmap(analysis, out, sub)
+        if analysis.decision is not None:
+            plots += plot_confusion(analysis, out, sub)
         if analysis.erf:
-            rec = analysis.selection.recommended if analysis.selection else ""
+            rec = analysis.recommended or ""
             roles = ["recommended" if m.variant == rec else "baseline" for m in analysis.erf]
             if len(analysis.erf) == 1 and rec == analysis.baseline:
                 roles = ["recommended and baseline"]
@@ -135,26 +153,25 @@ def scrub(text: str) -> str:
 def write_report(
     folder: ResultsFolder,
     out: Path | None = None,
-    cost: str | None = None,
-    within_se: float | None = None,
+    pick: PickSpec | None = None,
     with_erf: bool = True,
 ) -> Path:
     """Analyse the folder's trials and write tables, plots and ``model_card.md``.
 
     Args:
-        cost, within_se: the selection rule's settings; None takes the sweep's ``[pick]``.
+        pick: the selection rule's settings; None takes the sweep's ``[pick]``.
         with_erf: compute the effective-receptive-field maps (needs checkpoints and data).
 
     Returns:
         The path of the Markdown file.
     """
-    cost, within_se = selection_settings(folder.meta, cost, within_se)
+    pick = pick or pick_settings(folder.meta)
     rows, curves = folder.rows()
-    analysis = analyze(rows, curves, folder.plan, folder.meta.get("grids", []), cost, within_se)
-    write_tables(folder, analysis)
+    data = read_json(folder.path / DATA_FILE)
+    analysis = analyze(rows, curves, folder.plan, folder.meta.get("grids", []), data, pick)
+    write_tables(folder, analysis, data)
     out = out or folder.path / "report"
     out.mkdir(parents=True, exist_ok=True)
-    data = read_json(folder.path / DATA_FILE)
     if with_erf:
         from kablate.report.trained import erf_maps
 
@@ -171,7 +188,7 @@ def write_report(
         data,
         __version__,
         tuple(p.name for p in plots if p.suffix == ".png"),
-        COST_LABELS[cost],
+        COST_LABELS[pick.cost],
     )
     path = out / "model_card.md"
     tmp = path.with_suffix(".md.tmp")

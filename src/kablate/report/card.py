@@ -12,30 +12,48 @@ import math
 from dataclasses import dataclass
 from datetime import UTC, datetime
 
+from kablate.analysis.classes import per_class_accuracy
 from kablate.analysis.summary import Analysis
 from kablate.costs.export import human
+from kablate.report.verdict import (
+    cost_ratio,
+    diff_prose,
+    headline,
+    pct,
+    pp,
+    rule_sentence,
+)
 
 STAMP_PREFIX = "Generated "
 CAUTION = (
     "These results come from short CPU training runs, often on subsets of the data, with a "
     "few seeds. They are evidence for choosing between kernel plans under identical "
-    "conditions, not a measurement of how the chosen network will perform once deployed. "
-    "Confidence intervals over a handful of seeds are wide and rest on the t-distribution's "
-    "assumptions (roughly normal seed-to-seed variation); with n = 2 or 3 seeds only large "
-    "differences can be told apart. Do not use this section as a deployment sign-off, and do "
-    "not use it for a safety-related application without a full evaluation of the final model "
-    "under the rules that apply to that use."
+    "conditions, not a measurement of how the chosen network will perform once deployed. The "
+    "intervals count two sources of chance, the seeds and the particular validation images "
+    "(a paired two-level bootstrap); they do not count a change of recipe, data distribution "
+    "or hardware, and with 2 or 3 seeds a bootstrap over seeds tends to be too narrow. "
+    "Do not use this section as a deployment sign-off, and do not use it for a "
+    "safety-related application without a full evaluation of the final model under the rules "
+    "that apply to that use."
 )
 PLOT_CAPTIONS = {
-    "accuracy_vs_params": "Validation accuracy against parameters, with the Pareto staircase",
-    "accuracy_vs_macs": "Validation accuracy against MACs, with the Pareto staircase",
-    "accuracy_vs_latency": "Validation accuracy against CPU latency, with the Pareto staircase",
+    "accuracy_vs_params": "Validation accuracy (95% bootstrap interval) against parameters; the "
+    "band runs from the baseline's accuracy down by the margin; hollow markers cannot be told "
+    "apart from the baseline",
+    "accuracy_vs_macs": "Validation accuracy (95% bootstrap interval) against MACs; the band "
+    "runs from the baseline's accuracy down by the margin; hollow markers cannot be told apart "
+    "from the baseline",
+    "accuracy_vs_latency": "Validation accuracy (95% bootstrap interval) against CPU latency; "
+    "the band runs from the baseline's accuracy down by the margin; hollow markers cannot be "
+    "told apart from the baseline",
     "rf_vs_accuracy": "Validation accuracy against the theoretical receptive field",
     "learning_curves": "Validation accuracy per epoch (mean over seeds; band: min–max)",
     "grid_heatmap": "Mean validation accuracy over the two-axis grid, ± the half-width of each "
     "cell's 95% CI; the colour scale spans at least one typical CI, so cells that differ by "
     "less than the seed-to-seed noise look alike",
     "effective_rf": "Effective receptive field of the recommended plan and the baseline",
+    "confusion": "Confusion matrices of the recommended plan and the baseline on the validation "
+    "images, pooled over seeds",
 }
 
 
@@ -50,28 +68,11 @@ class CardContext:
     cost_label: str  # "MACs", "params" or "latency"
 
 
-def pct(x: float | None) -> str:
-    return "n/a" if x is None or not math.isfinite(x) else f"{100 * x:.2f}%"
-
-
-def pp(x: float | None) -> str:
-    return "n/a" if x is None or not math.isfinite(x) else f"{100 * x:+.2f} pp"
-
-
 def flag(value) -> bool:
     """A front flag: True, False, or None/NaN where that front was not computed."""
     return (
         value is not None and not (isinstance(value, float) and math.isnan(value)) and bool(value)
     )
-
-
-def paired_ci(c) -> str:
-    """The 95% CI of a paired difference, or why there is none."""
-    if c.too_few:
-        return "n/a"
-    if not (math.isfinite(c.ci_low) and math.isfinite(c.ci_high)):
-        return "none (no spread)"
-    return f"[{pp(c.ci_low)}, {pp(c.ci_high)}]"
 
 
 def n_seeds(n: int) -> str:
@@ -92,6 +93,12 @@ def ci(low: float, high: float) -> str:
     return f"[{pct(max(low, 0.0))}, {pct(min(high, 1.0))}]"
 
 
+def scored_weights(recipe: dict) -> str:
+    if recipe.get("test_from", "last") == "best":
+        return "the epoch with the best accuracy on the early-stopping fold"
+    return "the last epoch's"
+
+
 def render_card(a: Analysis, ctx: CardContext, now: datetime | None = None) -> str:
     """The Markdown text of the model-card section."""
     meta = ctx.meta
@@ -101,15 +108,15 @@ def render_card(a: Analysis, ctx: CardContext, now: datetime | None = None) -> s
         "",
         f"{STAMP_PREFIX}{stamp} by kablate {ctx.version}.",
         "",
-        *_summary(a, ctx),
+        *headline(a, ctx.cost_label),
         *_details(a, ctx),
         *_data_sections(ctx.data),
         "### Quantitative analyses",
         "",
         *_recommendation(a, ctx),
-        *_front_table(a),
+        *_variant_table(a, ctx),
         *_test_table(a),
-        *_comparison_table(a),
+        *_class_table(a),
         *_erf_section(a),
         *_partial(a),
         *_plots(ctx.plots),
@@ -117,42 +124,10 @@ def render_card(a: Analysis, ctx: CardContext, now: datetime | None = None) -> s
         "",
         CAUTION,
         "",
-        *_caveats(a, int(ctx.data["sizes"]["val"])),
+        *_caveats(a),
         *_reproducing(meta),
     ]
     return "\n".join(out)
-
-
-def _summary(a: Analysis, ctx: CardContext) -> list[str]:
-    sel = a.selection
-    if sel is None:
-        return ["**No trial has finished yet, so no plan is recommended.**", ""]
-    rec = a.variants[a.variants["recommended"]].iloc[0]
-    base = a.variants[a.variants["variant"] == a.baseline].iloc[0]
-    line = f"**Recommended kernel plan: {sel.recommended}** (`{rec['plan']}`), "
-    if sel.recommended == a.baseline:
-        line += f"the baseline, {human(rec['macs'])} MACs"
-    elif rec["macs"] <= base["macs"]:
-        ratio = base["macs"] / rec["macs"]
-        line += f"{human(rec['macs'])} MACs, {ratio:.3g}× fewer than the baseline {a.baseline}"
-    else:
-        ratio = rec["macs"] / base["macs"]
-        line += f"{human(rec['macs'])} MACs, {ratio:.3g}× those of the baseline {a.baseline}"
-    versus = a.comparisons.get(sel.recommended)
-    against = (
-        ""
-        if versus is None
-        else f" Paired with the baseline on validation accuracy: {pp(versus.mean_diff)}, "
-        f"{versus.verdict}."
-    )
-    return [
-        f"{line}; mean validation accuracy {pct(rec['val_acc_mean'])} over "
-        f"{n_seeds(rec['n_seeds'])}"
-        + (" (those every variant has finished: the sweep is partial)" if a.seeds else "")
-        + f", chosen by the one-standard-error rule on {ctx.cost_label}."
-        + against,
-        "",
-    ]
 
 
 def _details(a: Analysis, ctx: CardContext) -> list[str]:
@@ -191,14 +166,21 @@ def _details(a: Analysis, ctx: CardContext) -> list[str]:
         "",
         "### Metrics",
         "",
-        "- Selection metric: mean validation accuracy over seeds. Test accuracy is reported "
-        "separately and is never used to choose.",
+        "- Selection metric: validation accuracy of each trial's scored weights ("
+        + scored_weights(recipe)
+        + "), over every (seed, image) pair. Test accuracy is reported separately and is "
+        "never used to choose.",
         "- Costs, counted before training: parameters; MACs (multiply-accumulates of conv and "
         "linear layers, FLOPs = 2 × MACs); the theoretical receptive field at the head "
         "(Araujo, Norris & Sim 2019)"
         + ("; CPU latency at batch 1." if a.variants["latency_ms"].notna().any() else "."),
-        "- Uncertainty: 95% Student-t intervals over seeds. Comparisons: per-seed paired "
-        "differences against the baseline, with a paired t-test (`scipy.stats.ttest_rel`).",
+        "- Uncertainty: every trial keeps the class it predicted for every validation and test "
+        "image (`predictions.csv.gz`). Intervals come from a paired two-level bootstrap that "
+        "resamples seeds, then images, with the same draw for every plan (Bouthillier et al. "
+        "2021), 95% percentile intervals, never narrower than the exact binomial interval "
+        "(Clopper–Pearson) of one seed's images. Comparisons with the baseline are paired on "
+        "seeds and images; their p-values are Holm-adjusted over the comparisons (Holm 1979), "
+        "and a one-seed comparison uses the exact McNemar test.",
         "",
     ]
     return out
@@ -220,6 +202,14 @@ def _data_sections(data: dict) -> list[str]:
         "",
         f"- Validation: {sizes['val']} images from the training pool, class-balanced "
         f"(`{sha['val']}`); the only data model selection looks at.",
+        *(
+            [
+                f"- Early-stopping fold: {sizes['stop']} images from the training pool "
+                f"(`{sha['stop']}`), on which each trial chose the epoch it is scored with."
+            ]
+            if "stop" in sizes
+            else []
+        ),
         f"- Test: {sizes['test']} images, {data['test_pool']} (`{sha['test']}`); reported, "
         "never used to choose.",
         "",
@@ -227,89 +217,111 @@ def _data_sections(data: dict) -> list[str]:
 
 
 def _recommendation(a: Analysis, ctx: CardContext) -> list[str]:
-    sel = a.selection
-    if sel is None:
-        return ["No trial has finished yet, so no plan is recommended.", ""]
-    rec = a.variants[a.variants["recommended"]].iloc[0]
+    d = a.decision
+    if d is None:
+        return []
+    rec = a.variants.set_index("variant").loc[d.recommended]
     latency = f", {rec['latency_ms']:.3g} ms" if math.isfinite(rec["latency_ms"]) else ""
+    acc = d.accuracy[d.recommended]
     out = [
         "#### Recommended plan",
         "",
-        f"**{sel.recommended}** (`{rec['plan']}`): {human(rec['macs'])} MACs, "
-        f"{human(rec['params'])} params, receptive field {rec['rf']} px{latency}. "
-        f"Validation accuracy {pct(rec['val_acc_mean'])} {ci_prose(rec)} over "
-        f"{n_seeds(rec['n_seeds'])}.",
+        f"**{d.recommended}** (`{rec['plan']}`)"
+        + (" (the baseline)" if d.keeps_baseline else "")
+        + f": {human(rec['macs'])} MACs, {human(rec['params'])} params, receptive field "
+        f"{rec['rf']} px{latency}. Validation accuracy {pct(acc.mean)} "
+        f"{ci(acc.low, acc.high)}: {acc.n_correct} of {acc.n_scored} (seed, image) pairs.",
         "",
-        "Why: by the one-standard-error rule (Breiman et al. 1984; Hastie, Tibshirani & "
-        f"Friedman, *The Elements of Statistical Learning*, §7.10), {sel.reason}. The rule "
-        f"keeps every variant whose mean is at least {pct(sel.threshold)} ("
-        + (
-            f"the best mean minus {sel.within_se:g} × its standard error"
-            if math.isfinite(sel.best_se)
-            else "the best mean itself, for want of a standard error"
-        )
-        + f") and takes the cheapest by {ctx.cost_label}: {', '.join(sel.candidates)} "
-        "qualified.",
+        f"Rule: {rule_sentence(d, ctx.cost_label)}. Plans that qualified: "
+        f"{', '.join(d.qualifying) or 'none'}.",
         "",
     ]
-    tc = a.test_comparison
-    test_line = (
-        f"Held-out test accuracy of {sel.recommended}, reported separately: "
+    if d.worth_cost:
+        out += [
+            "**Worth its cost?** These plans cost more than the baseline and are shown better "
+            "than it (one-sided 95% lower bound above zero). The rule never picks them; weigh "
+            "the gain against the cost yourself:",
+            "",
+        ]
+        out += [
+            f"- {n}: {diff_prose(d.contrasts[n])}; {cost_ratio(a, n)} {ctx.cost_label} "
+            "(× the baseline's)."
+            for n in d.worth_cost
+        ]
+        out.append("")
+    tc = a.test_contrast
+    test = (
+        f"Held-out test accuracy of {d.recommended}, reported separately: "
         f"{pct(rec['test_acc_mean'])} {ci_prose(rec, 'test_acc')}"
     )
-    if tc is not None and not tc.too_few:
-        test_line += (
-            f"; paired against the baseline on test: {pp(tc.mean_diff)} "
-            f"{paired_ci(tc)}, p = {tc.p_value:.3g}"
-        )
-    out += [test_line + ".", ""]
-    return out
+    if tc is not None:
+        test += f"; against the baseline on the test images: {diff_prose(tc)}"
+    return out + [test + ".", ""]
 
 
-def _front_table(a: Analysis) -> list[str]:
+def _variant_cells(a: Analysis, name: str) -> list[str]:
+    """Accuracy, difference, lower bound, Holm p, cost, within margin, picked share."""
+    d = a.decision
+    acc = d.accuracy.get(name) if d else None
+    if acc is None:
+        return ["not compared yet"] + ["-"] * 6
+    c = d.contrasts.get(name)
+    return [
+        f"{pct(acc.mean)} {ci(acc.low, acc.high)}",
+        "-" if c is None else f"{pp(c.diff)} [{pp(c.low)}, {pp(c.high)}]",
+        "-" if c is None else pp(c.lower_bound),
+        "-" if c is None else f"{c.p_holm:.3g}",
+        cost_ratio(a, name),
+        within_margin(a, name),
+        f"{100 * d.pick_share.get(name, 0):.0f}%",
+    ]
+
+
+def within_margin(a: Analysis, name: str) -> str:
+    """yes/no for the plans the rule can pick; a costlier plan is marked as such."""
+    d = a.decision
+    c = d.contrasts.get(name)
+    if c is None:
+        return "-"
+    word = "yes" if c.lower_bound > -d.margin else "no"
+    return (
+        word
+        if float(a.variants.set_index("variant").loc[name, "cost_ratio"]) < 1
+        else (f"{word} (costlier: not eligible)")
+    )
+
+
+def _variant_table(a: Analysis, ctx: CardContext) -> list[str]:
     v = a.variants.sort_values(["macs", "variant"])
-    sel = a.selection
-    tol = f"±{sel.within_se if sel is not None else 1.0:g} SE"
+    lines = [
+        "#### Variants against the baseline",
+        "",
+        "Sorted by MACs. Validation accuracy over every (seed, image) pair with its 95% "
+        f"bootstrap interval; *difference* is plan − baseline ({a.baseline}), paired on seeds "
+        "and images; *lower bound* is its one-sided 95% lower bound; *p (Holm)* tests "
+        '"no difference", adjusted over the comparisons; *picked* is how often the rule picks '
+        "the plan in a bootstrap resample; *front* names the costs on whose Pareto front "
+        "(accuracy up, cost down; on point estimates) the plan lies.",
+        "",
+        f"| variant | kernel plan | val acc [95% CI] | difference [95% CI] | lower bound | "
+        f"p (Holm) | {ctx.cost_label} (× baseline) | within margin | picked | front | warnings |",
+        "|---|---|---|---|---:|---:|---:|---|---:|---|---|",
+    ]
     fronts = [("MACs", "front_macs"), ("params", "front_params")]
     if v["front_latency"].notna().all():
         fronts.append(("latency", "front_latency"))
-    lines = [
-        "#### Variants and Pareto fronts",
-        "",
-        "Sorted by MACs. *front* names the costs on whose Pareto front (validation accuracy up, "
-        "cost down) the variant lies; *all* means the front over every cost at once.",
-        "",
-        f"| variant | kernel plan | val acc, mean [95% CI] | {tol} | MACs | params | rf "
-        "| seeds | front |",
-        "|---|---|---|---:|---:|---:|---:|---:|---|",
-    ]
     for row in v.itertuples():
-        on = [label for label, col in fronts if flag(getattr(row, col))]
-        if row.front_all:
-            on.append("all")
         marks = []
         if row.recommended:
             marks.append("**recommended**")
         if row.variant == a.baseline:
             marks.append("baseline")
         name = row.variant + (f" ({', '.join(marks)})" if marks else "")
-        if row.n_seeds:
-            acc = f"{pct(row.val_acc_mean)} {ci(row.val_acc_ci_low, row.val_acc_ci_high)}"
-        else:
-            acc = "not trained yet"
-        within = "yes" if sel is not None and row.variant in sel.candidates else "-"
-        seeds = f"{row.n_seeds}/{row.n_planned}"
-        lines.append(
-            f"| {name} | `{row.plan}` | {acc} | {within} | {human(row.macs)} | "
-            f"{human(row.params)} | {row.rf} | {seeds} | {', '.join(on) or '-'} |"
-        )
-    lines += [
-        "",
-        f"*{tol}*: within the selection rule's tolerance of the best mean. Intervals are shown "
-        "clipped to [0%, 100%]; `variants.csv` keeps the raw t-limits.",
-        "",
-    ]
-    return lines
+        on = [label for label, col in fronts if flag(getattr(row, col))]
+        warn = "; ".join(a.flags.get(row.variant, [])) or "-"
+        cells = " | ".join(_variant_cells(a, row.variant))
+        lines.append(f"| {name} | `{row.plan}` | {cells} | {', '.join(on) or '-'} | {warn} |")
+    return lines + [""]
 
 
 def _test_table(a: Analysis) -> list[str]:
@@ -317,7 +329,10 @@ def _test_table(a: Analysis) -> list[str]:
     lines = [
         "#### Held-out test accuracy (reported, not used to choose)",
         "",
-        "| variant | test acc, mean [95% CI] | seeds |",
+        "Over every (seed, test image) pair, with the same paired two-level bootstrap as "
+        "validation.",
+        "",
+        "| variant | test acc [95% CI] | seeds |",
         "|---|---|---:|",
     ]
     for row in v.itertuples():
@@ -328,23 +343,24 @@ def _test_table(a: Analysis) -> list[str]:
     return lines + [""]
 
 
-def _comparison_table(a: Analysis) -> list[str]:
+def _class_table(a: Analysis) -> list[str]:
+    """Per-class validation accuracy of the recommended plan and the baseline."""
+    d = a.decision
+    if d is None or a.evidence is None:
+        return []
+    names = list(dict.fromkeys([d.recommended, d.baseline]))
+    table = per_class_accuracy(a.evidence, names, a.classes)
     lines = [
-        "#### Comparison with the baseline",
+        "#### Per-class validation accuracy",
         "",
-        f"Paired by seed against the baseline **{a.baseline}** on validation accuracy "
-        "(variant minus baseline; same seed, same data order and augmentation). p is the "
-        "two-sided paired t-test of `scipy.stats.ttest_rel`; where every seed shows the same "
-        "difference the t-test is undefined, and p is the exact two-sided sign test's.",
+        f"Pooled over {len(a.evidence.seeds)} seed(s) of the recommended plan and the baseline.",
         "",
-        "| variant | pairs | mean difference | 95% CI | p | reading |",
-        "|---|---:|---:|---|---:|---|",
+        f"| class | images | {' | '.join(names)} |",
+        "|---|---:|" + "---:|" * len(names),
     ]
-    for name, c in a.comparisons.items():
-        p = "n/a" if not math.isfinite(c.p_value) else f"{c.p_value:.3g}"
-        lines.append(f"| {name} | {c.n} | {pp(c.mean_diff)} | {paired_ci(c)} | {p} | {c.verdict} |")
-    if not a.comparisons:
-        lines.append("| (no other variant) | | | | | |")
+    for _, row in table.iterrows():
+        accs = " | ".join(pct(row[n]) for n in names)
+        lines.append(f"| {row['class']} | {row['n_images']} | {accs} |")
     return lines + [""]
 
 
@@ -422,40 +438,14 @@ def _plots(plots: tuple[str, ...]) -> list[str]:
     return out
 
 
-def _resolution_caveat(a: Analysis, val_size: int) -> list[str]:
-    """Warn when the seed-to-seed standard error is finer than one validation image.
-
-    The standard error over seeds measures training noise only. The validation set adds its
-    own: accuracy moves in steps of 1/val_size, and a binomial standard error of
-    sqrt(p(1 − p)/val_size) (common practice). When the seed SE is below one step, the
-    selection rule's tolerance is narrower than a single image.
-    """
-    sel = a.selection
-    if sel is None or not val_size or not math.isfinite(sel.best_se):
-        return []
-    step = 1.0 / val_size
-    if sel.best_se >= step:
-        return []
-    best = a.variants.loc[a.variants["variant"] == sel.best, "val_acc_mean"].iloc[0]
-    binomial = math.sqrt(max(best * (1 - best), 0.0) / val_size)
-    return [
-        f"- The standard error over seeds of the best variant ({100 * sel.best_se:.2f} pp) is "
-        "smaller "
-        f"than one validation image ({100 * step:.2f} pp of {val_size}); the validation set's "
-        f"own sampling error is about {100 * binomial:.2f} pp (binomial). The rule may therefore "
-        "separate variants that differ by a single image: treat the variants within "
-        "about one validation image of the best as tied, or raise `val_size` or "
-        "`within_se` (`[pick]`)."
-    ]
-
-
-def _caveats(a: Analysis, val_size: int = 0) -> list[str]:
+def _caveats(a: Analysis) -> list[str]:
     out = []
     n = a.variants.loc[a.variants["n_seeds"] > 0, "n_seeds"]
     if len(n) and n.min() < 3:
         out.append(
-            f"- Some variants have only {int(n.min())} finished seed(s); their intervals are "
-            "very wide or missing."
+            f"- Some variants have only {int(n.min())} finished seed(s): the seed level of the "
+            "bootstrap has almost nothing to resample, so their intervals mostly reflect the "
+            "validation images."
         )
     if a.n_missing:
         out.append(f"- {a.n_missing} planned trials have no result: see the list above.")
@@ -466,13 +456,18 @@ def _caveats(a: Analysis, val_size: int = 0) -> list[str]:
             "only the seeds that trained, so they flatter a plan that is unstable under this "
             "recipe."
         )
-    out += _resolution_caveat(a, val_size)
-    unclear = [name for name, c in a.comparisons.items() if c.too_few or c.p_value >= 0.05]
-    if unclear:
-        out.append(
-            f"- At these seed counts, {len(unclear)} of {len(a.comparisons)} variants cannot be "
-            "told apart from the baseline; more seeds narrow the intervals by about 1/√n."
-        )
+    for name, found in a.flags.items():
+        if found:
+            out.append(f"- {name}: {'; '.join(found)}.")
+    d = a.decision
+    if d is not None and d.contrasts:
+        unclear = [n for n, c in d.contrasts.items() if c.p_holm >= 0.05]
+        if unclear:
+            out.append(
+                f"- {len(unclear)} of {len(d.contrasts)} variants cannot be told apart from the "
+                'baseline after Holm\'s adjustment; "not told apart" is not "equal": see what '
+                "the sweep could resolve, in the first paragraph."
+            )
     return out + ([""] if out else [])
 
 

@@ -27,8 +27,8 @@ from matplotlib.ticker import (  # noqa: E402
     PercentFormatter,
 )
 
+from kablate.analysis.classes import confusion  # noqa: E402
 from kablate.analysis.erf import ErfMap  # noqa: E402
-from kablate.analysis.pareto import staircase  # noqa: E402
 from kablate.analysis.summary import Analysis  # noqa: E402
 from kablate.costs.export import human  # noqa: E402
 
@@ -79,11 +79,13 @@ def _save(fig: plt.Figure, out: Path, stem: str) -> list[Path]:
 def _legend_below(fig: plt.Figure, ax: plt.Axes, n_items: int) -> None:
     """One legend under the plot, so it never hides a point."""
     handles, labels = ax.get_legend_handles_labels()
+    longest = max((len(label) for label in labels), default=0)
+    per_row = 2 if longest > 32 else 3 if longest > 22 else 4  # keep the rows inside 6.4 in
     fig.legend(
         handles,
         labels,
         loc="outside lower center",
-        ncol=min(4, max(1, n_items)),
+        ncol=min(per_row, max(1, n_items)),
         frameon=False,
         markerscale=0.8,
         handletextpad=0.4,
@@ -118,21 +120,60 @@ def _ci_error(row) -> np.ndarray:
     return np.array([[row.val_acc_mean - low], [high - row.val_acc_mean]])
 
 
+def _told_apart(row) -> bool:
+    """Filled marker: the baseline itself, or a plan shown different from it (Holm p < 0.05)."""
+    p = getattr(row, "p_holm", math.nan)
+    return bool(p < 0.05) if p is not None and math.isfinite(p) else True
+
+
 def _points(ax: plt.Axes, v: pd.DataFrame, x: str) -> None:
     for row in v.itertuples():
         colour, marker = style(row.order)
+        filled = _told_apart(row)
         ax.errorbar(
             getattr(row, x),
             row.val_acc_mean,
             yerr=_ci_error(row),
             fmt=marker,
             color=colour,
+            markerfacecolor=colour if filled else "white",
             markersize=6,
             capsize=3,
             elinewidth=1.1,
             label=f"{row.variant} (n={row.n_seeds})",
             zorder=3,
         )
+
+
+def _margin_band(ax: plt.Axes, v: pd.DataFrame, analysis: Analysis) -> None:
+    """The baseline's accuracy as a dashed line and, under the margin rule, the band down to
+    baseline − margin: a plan is recommended only if its whole lower bound of the difference
+    clears that band's bottom edge (the card gives the bound)."""
+    base = v[v["variant"] == analysis.baseline]
+    if not len(base):
+        return
+    level = float(base["val_acc_mean"].iloc[0])
+    ax.axhline(level, color="#555555", linestyle="--", linewidth=0.9, zorder=1)
+    d = analysis.decision
+    if d is not None and d.rule == "margin" and d.margin > 0:
+        ax.axhspan(
+            level - d.margin,
+            level,
+            color="#56B4E9",
+            alpha=0.15,
+            linewidth=0,
+            zorder=0,
+            label=f"baseline − margin ({100 * d.margin:.2g} pp)",
+        )
+    ax.plot(
+        [],
+        [],
+        marker="o",
+        color="#555555",
+        markerfacecolor="white",
+        linestyle="none",
+        label="hollow: not told apart from the baseline (Holm p ≥ 0.05)",
+    )
 
 
 def _mark(ax: plt.Axes, v: pd.DataFrame, x: str, analysis: Analysis) -> None:
@@ -167,24 +208,20 @@ def _mark(ax: plt.Axes, v: pd.DataFrame, x: str, analysis: Analysis) -> None:
 def plot_accuracy_vs_cost(
     analysis: Analysis, cost: str, label: str, out: Path, subtitle: str
 ) -> list[Path]:
-    """Mean validation accuracy (95% CI) against a cost on a log axis, with the front's
-    staircase, the baseline and the recommended plan marked."""
+    """Validation accuracy (95% bootstrap interval) against a cost on a log axis, with the
+    baseline, the margin band and the recommended plan marked. No Pareto staircase: a line
+    through point estimates would suggest an order that the intervals often do not support
+    (the fronts are in the card's table)."""
     v = _trained(analysis)
     fig, (ax,) = _figure(f"Validation accuracy vs {label}", subtitle)
-    front_col = {"params": "front_params", "macs": "front_macs", "latency_ms": "front_latency"}
-    steps = staircase(v["val_acc_mean"].tolist(), v[cost].tolist(), v[front_col[cost]].tolist())
-    if steps:
-        xs, ys = zip(*steps, strict=True)
-        ax.step(
-            xs, ys, where="post", color="#888888", linewidth=1.2, zorder=1, label="Pareto front"
-        )
+    _margin_band(ax, v, analysis)
     _points(ax, v, cost)
     _mark(ax, v, cost, analysis)
     _log_cost_axis(ax, label)
     lo, hi = v[cost].min(), v[cost].max()
     ax.set_xlim(lo / 1.6, hi * 1.6)  # room for markers at both ends of a log axis
-    _percent_axis(ax, "validation accuracy (mean, 95% CI)")
-    _legend_below(fig, ax, len(v) + 3)
+    _percent_axis(ax, "validation accuracy (95% bootstrap CI)")
+    _legend_below(fig, ax, len(v) + 4)
     return _save(fig, out, f"accuracy_vs_{cost.removesuffix('_ms')}")
 
 
@@ -416,6 +453,42 @@ def plot_effective_rf(maps: list[ErfMap], roles: list[str], out: Path, subtitle:
         handles.append(Patch(facecolor="#D9D9D9", label="outside the input"))
     fig.legend(handles=handles, loc="outside lower center", ncol=2, frameon=False, fontsize=7)
     return _save(fig, out, "effective_rf")
+
+
+def plot_confusion(analysis: Analysis, out: Path, subtitle: str) -> list[Path]:
+    """Row-normalised confusion matrices (true class down, predicted across) of the
+    recommended plan and the baseline, each cell annotated with its count."""
+    d, ev = analysis.decision, analysis.evidence
+    names = list(dict.fromkeys([d.recommended, d.baseline]))
+    fig, axes = _figure("Confusion on the validation images", subtitle, ncols=len(names))
+    image = None
+    for ax, name in zip(axes, names, strict=True):
+        ax.grid(False)
+        counts = confusion(ev, name)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            share = counts / counts.sum(axis=1, keepdims=True)
+        image = ax.imshow(share, cmap="cividis", vmin=0, vmax=1)
+        n = len(counts)
+        if n <= 12:  # counts stay legible up to about a dozen classes
+            for (r, c), k in np.ndenumerate(counts):
+                if k:
+                    colour = "black" if share[r, c] > 0.5 else "white"
+                    ax.text(c, r, str(k), ha="center", va="center", fontsize=6.5, color=colour)
+        labels = list(analysis.classes)[:n] if len(analysis.classes) >= n else list(range(n))
+        ax.set_xticks(range(n), labels, rotation=90 if n > 10 else 0, fontsize=7)
+        ax.set_yticks(range(n), labels, fontsize=7)
+        role = (
+            "recommended and baseline"
+            if len(names) == 1
+            else ("recommended" if name == d.recommended else "baseline")
+        )
+        ax.set_title(f"{role}: {name}", fontsize=8)
+        ax.set_xlabel("predicted class")
+        ax.set_ylabel("true class")
+    fig.colorbar(
+        image, ax=axes, shrink=0.8, label="share of the true class (counts: seeds × images)"
+    )
+    return _save(fig, out, "confusion")
 
 
 def rendering():

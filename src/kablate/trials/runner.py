@@ -14,6 +14,7 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from kablate.analysis.power import plan_note
 from kablate.costs.catalog import Catalog, build_catalog
 from kablate.costs.export import variant_json
 from kablate.data.prepare import prepare_data
@@ -201,6 +202,7 @@ def dry_run(sweep_path: Path, opts: RunOptions) -> RunSummary:
             done = set()
     data = prepare_data(sweep.data)
     _, text = estimate(catalog, data, jobs, done, layout, opts.budget_seconds)
+    text += "\n" + plan_note(len(data.val.labels), sweep.pick.margin, len(sweep.seeds))
     if opts.echo:
         opts.echo(text)
     summary = RunSummary(results_dir, len(jobs), 0, 0, layout=layout, estimate=text)
