@@ -12,6 +12,7 @@ from kablate.nets.layout import layout_network
 from kablate.nets.padding import is_symmetric
 from kablate.plans.expand import Variant, expand_plans, pick_baseline, with_alias
 from kablate.plans.filters import filter_reason
+from kablate.spec.bounds import check_input_bounds
 from kablate.spec.schema import SweepSpec
 
 
@@ -57,6 +58,7 @@ def build_catalog(
     """
     if in_shape is None or n_classes is None:
         in_shape, n_classes = describe_source(sweep.data)
+    check_input_bounds(sweep, in_shape)
     variants = expand_plans(sweep)
     base_name = pick_baseline(sweep, variants).name  # before merging: an all-3×3 spec wins
     costed: list[CostedVariant] = []
