@@ -6,6 +6,7 @@ from dataclasses import dataclass, field
 
 from kablate.costs.latency import Latency, measure_latency
 from kablate.costs.static import StaticCost, static_cost
+from kablate.data.prepare import check_splits
 from kablate.data.sources import describe_source
 from kablate.errors import PlanError
 from kablate.nets.layout import layout_network
@@ -58,6 +59,7 @@ def build_catalog(
     """
     if in_shape is None or n_classes is None:
         in_shape, n_classes = describe_source(sweep.data)
+        check_splits(sweep.data)
     check_input_bounds(sweep, in_shape)
     variants = expand_plans(sweep)
     base_name = pick_baseline(sweep, variants).name  # before merging: an all-3×3 spec wins
