@@ -90,12 +90,18 @@ def build_catalog(
             dropped.append((item, reason))
         else:
             kept.append(item)
+    catalog = Catalog(sweep, in_shape, n_classes, kept, baseline, dropped, padding_warnings(kept))
     if latency:
-        for item in kept:
-            item.latency = measure_latency(
-                item.cost.layout, sweep.recipe.batch_size, threads=threads
-            )
-    return Catalog(sweep, in_shape, n_classes, kept, baseline, dropped, padding_warnings(kept))
+        measure_latencies(catalog, threads)
+    return catalog
+
+
+def measure_latencies(catalog: Catalog, threads: int | None = None) -> None:
+    """Measure every kept variant's CPU latency (`kablate plan --latency`), in place."""
+    for item in catalog.variants:
+        item.latency = measure_latency(
+            item.cost.layout, catalog.sweep.recipe.batch_size, threads=threads
+        )
 
 
 def padding_warnings(items: list[CostedVariant], n_named: int = 4) -> list[str]:
