@@ -22,6 +22,7 @@ from kablate.report.plots import (
 from kablate.trials.environment import sanitize
 from kablate.trials.export import CURVE_COLUMNS, TRIAL_COLUMNS, write_csv
 from kablate.trials.meta import read_json, write_json
+from kablate.trials.preflight import writable_folder
 from kablate.trials.results import DATA_FILE, ResultsFolder
 from kablate.trials.store import redact
 
@@ -88,9 +89,8 @@ def selection_settings(meta: dict, cost: str | None, within_se: float | None) ->
     return cost, within_se
 
 
-def write_tables(folder: ResultsFolder, analysis: Analysis) -> None:
-    """trials.csv/json, variants.csv/json and curves.csv in the results folder."""
-    out = folder.path
+def write_tables(out: Path, analysis: Analysis) -> None:
+    """trials.csv/json, variants.csv/json and curves.csv in ``out``."""
     write_csv(out / "trials.csv", analysis.trials.to_dict("records"), TRIAL_COLUMNS)
     write_csv(out / "curves.csv", analysis.curves.to_dict("records"), CURVE_COLUMNS)
     table = analysis.variants.reindex(columns=list(VARIANT_COLUMNS))
@@ -142,6 +142,9 @@ def write_report(
     """Analyse the folder's trials and write tables, plots and ``model_card.md``.
 
     Args:
+        out: where the card and plots go, and then the tables too, so that nothing is written
+            into the results folder (which may be read-only); None: the tables go into the
+            results folder and the card into its ``report/``.
         cost, within_se: the selection rule's settings; None takes the sweep's ``[pick]``.
         with_erf: compute the effective-receptive-field maps (needs checkpoints and data).
 
@@ -151,9 +154,12 @@ def write_report(
     cost, within_se = selection_settings(folder.meta, cost, within_se)
     rows, curves = folder.rows()
     analysis = analyze(rows, curves, folder.plan, folder.meta.get("grids", []), cost, within_se)
-    write_tables(folder, analysis)
-    out = out or folder.path / "report"
-    out.mkdir(parents=True, exist_ok=True)
+    if out is None:
+        hint = "; give --out DIR to write the report elsewhere"
+        write_tables(writable_folder(folder.path, "results folder", hint), analysis)
+        out = writable_folder(folder.path / "report", "report folder", hint)
+    else:
+        write_tables(writable_folder(out, "--out folder"), analysis)
     data = read_json(folder.path / DATA_FILE)
     if with_erf:
         from kablate.report.trained import erf_maps
