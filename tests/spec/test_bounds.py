@@ -23,7 +23,12 @@ def tiny_with(tmp_path, old: str, new: str):
 @pytest.mark.parametrize(
     ("old", "new", "key", "words"),
     [
-        ('name = "tiny"', f'name = "{"n" * 300}"', "sweep.name", ["at most 100", "has 300"]),
+        (
+            'name = "tiny"',
+            f'name = "{"n" * 300}"',
+            "sweep.name",
+            ["at most 100 characters long", "has 300)"],
+        ),
         ("seeds = [0, 1]", "seeds = [0, 3000000000000]", "sweep.seeds", [str(MAX_SEED)]),
         ("seeds = [0, 1]", "seeds = [0, -1]", "sweep.seeds", ["from 0"]),
         ("val_size = 100", "val_size = 100\nsplit_seed = 2147483648", "data.split_seed", []),

@@ -32,7 +32,7 @@ NAME_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]*$")
 
 def _slug(value: str) -> str | None:
     if len(value) > MAX_NAME:
-        return f"must be at most {MAX_NAME} characters, but has {len(value)}"
+        return f"must be at most {MAX_NAME} characters long (this one has {len(value)})"
     return None if NAME_RE.match(value) else "must be letters, digits, '.', '_' or '-'"
 
 
