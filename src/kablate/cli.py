@@ -3,9 +3,12 @@
 from __future__ import annotations
 
 import json
+import os
 import re
 import shlex
+import signal
 import sys
+import threading
 import time
 from pathlib import Path
 
@@ -51,18 +54,44 @@ def parse_duration(text: str) -> float:
     return h * 3600 + m * 60 + s
 
 
+def quit_while_starting(signum, frame) -> None:
+    """Ctrl-C before a command has imported what it needs: leave at once, in one line.
+
+    A KeyboardInterrupt raised inside an import can leave a half-imported module behind (numpy
+    then fails with a RecursionError of its own), so this handler does not raise one.
+    """
+    os.write(2, b"interrupted (Ctrl-C) while starting; nothing was written\n")
+    os._exit(130)
+
+
+def started() -> None:
+    """The command's imports are done: from here Ctrl-C raises KeyboardInterrupt again (which
+    `kablate run` turns into a clean stop)."""
+    if threading.current_thread() is threading.main_thread():
+        signal.signal(signal.SIGINT, signal.default_int_handler)
+
+
 class KablateGroup(click.Group):
-    """Turns our usage errors into one line on stderr and exit code 2, with no traceback."""
+    """Turns our usage errors into one line on stderr and exit code 2, with no traceback, and
+    Ctrl-C into exit code 130 with one line."""
 
     def invoke(self, ctx: click.Context):
+        main_thread = threading.current_thread() is threading.main_thread()
+        previous = signal.signal(signal.SIGINT, quit_while_starting) if main_thread else None
         try:
             return super().invoke(ctx)
         except UsageError as exc:
             click.echo(f"error: {exc}", err=True)
             sys.exit(2)
+        except KeyboardInterrupt:
+            click.echo("interrupted (Ctrl-C)", err=True)
+            sys.exit(130)
         except KablateError as exc:
             click.echo(f"error: {exc}", err=True)
             sys.exit(1)
+        finally:
+            if previous is not None:
+                signal.signal(signal.SIGINT, previous)
 
 
 @click.group(cls=KablateGroup, context_settings={"help_option_names": ["-h", "--help"]})
@@ -98,11 +127,15 @@ def main() -> None:
 )
 def plan(sweep: Path, fmt: str, latency: bool, threads: int | None) -> None:
     """Expand a sweep into variants with their static costs, without training."""
-    from kablate.costs.catalog import build_catalog
+    from kablate.costs.catalog import build_catalog, measure_latencies
     from kablate.costs.export import catalog_csv, catalog_json, catalog_table
     from kablate.spec.loader import load_sweep
+    from kablate.trials.preflight import run_preflight
 
-    catalog = build_catalog(load_sweep(sweep), latency=latency, threads=threads)
+    catalog = build_catalog(load_sweep(sweep))
+    run_preflight(catalog)  # before --latency allocates anything at the recipe's batch size
+    if latency:
+        measure_latencies(catalog, threads)
     render = {"table": catalog_table, "json": catalog_json, "csv": catalog_csv}[fmt]
     click.echo(render(catalog))
     if fmt != "table":  # the table lists them; keep JSON and CSV parseable on stdout
@@ -175,6 +208,7 @@ def run(
     from kablate.trials.results import open_results
     from kablate.trials.runner import RunOptions, run_sweep
 
+    started()
     if device.startswith("cuda"):
         import torch
 
@@ -230,6 +264,7 @@ def status(results: Path, fmt: str, storage: str | None) -> None:
     from kablate.trials.results import open_results
     from kablate.trials.status import format_status, read_status
 
+    started()
     summary = read_status(open_results(results, storage))
     if fmt == "json":
         click.echo(json.dumps(summary.to_dict(), indent=2))
@@ -243,7 +278,8 @@ def status(results: Path, fmt: str, storage: str | None) -> None:
     "--out",
     type=click.Path(path_type=Path),
     default=None,
-    help="Where to write the report (default: RESULTS/report).",
+    help="Where to write the report and its tables; the results folder is then left as it is "
+    "(default: the tables in RESULTS, the report in RESULTS/report).",
 )
 @click.option(
     "--rule",
@@ -298,6 +334,7 @@ def report(
     from kablate.report.build import pick_settings, write_report
     from kablate.trials.results import open_results
 
+    started()
     folder = open_results(results, storage)
     pick = pick_settings(folder.meta, rule=rule, margin=margin, cost=cost, within_se=within_se)
     path = write_report(folder, out, pick, not no_erf)

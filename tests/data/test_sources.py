@@ -134,12 +134,13 @@ def test_train_and_test_folders_must_have_the_same_classes(tmp_path):
         prepare_data(DataSpec(source="folder", root=str(tmp_path), val_size=100))
 
 
-def test_unreadable_idx_files_get_torchvision_words_or_the_error_type(tmp_path):
+def test_a_file_that_is_not_idx_is_named(tmp_path):
     raw = tmp_path / "MNIST" / "raw"
     raw.mkdir(parents=True)
     for name in SOURCES["mnist"].expects:
-        (tmp_path / name).write_bytes(bytes(100))  # magic number 0: not an IDX file
-    with pytest.raises(DataError, match=r"MNIST said: \S.*\)\. Put the files there"):
+        (tmp_path / name).write_bytes(b"\x1f\x8b" + bytes(98))  # a gzip header, not unpacked
+    first = tmp_path.resolve() / SOURCES["mnist"].expects[0]
+    with pytest.raises(DataError, match=rf"^{first} is not an IDX file"):
         prepare_data(DataSpec(source="mnist", root=str(tmp_path)))
 
 
@@ -281,3 +282,159 @@ def test_an_unreadable_image_is_named(tmp_path):
     (tmp_path / "class3" / "broken.png").write_bytes(b"not a png")
     with pytest.raises(DataError, match=r"broken\.png cannot be read"):
         prepare_data(DataSpec(source="folder", root=str(tmp_path), val_size=100))
+
+
+def rewrite_idx(path: Path, type_byte: int | None = None, keep: int | None = None) -> None:
+    """Change an IDX file's type byte (the third byte of its magic number), or keep only its
+    first ``keep`` items (header fixed up), or cut its last 10 bytes (header left as is)."""
+    data = bytearray(path.read_bytes())
+    n_dims = data[3]
+    if type_byte is not None:
+        data[2] = type_byte
+    elif keep is not None:
+        dims = struct.unpack(f">{n_dims}I", data[4 : 4 + 4 * n_dims])
+        item = int(np.prod(dims[1:])) if n_dims > 1 else 1
+        data[4:8] = struct.pack(">I", keep)
+        data = data[: 4 + 4 * n_dims + keep * item]
+    else:
+        data = data[:-10]
+    path.write_bytes(bytes(data))
+
+
+@pytest.mark.parametrize(("type_byte", "shown"), [(0x0A, "0x0A"), (0x09, "0x09"), (0x0D, "0x0D")])
+def test_an_idx_file_of_another_type_is_named(tmp_path, type_byte, shown):
+    # 0x0A is no IDX type at all, 0x09 is signed bytes, 0x0D floats (the MNIST page's table)
+    write_mnist_layout(tmp_path, "MNIST")
+    path = tmp_path / "MNIST" / "raw" / "t10k-labels-idx1-ubyte"
+    rewrite_idx(path, type_byte=type_byte)
+    with pytest.raises(DataError) as info:
+        prepare_data(DataSpec(source="mnist", root=str(tmp_path), val_size=100))
+    message = str(info.value)
+    assert str(path.resolve()) in message and f"type byte {shown}" in message
+    assert "not found" not in message
+
+
+@pytest.mark.parametrize("n_labels", [1000, 1299])
+def test_labels_and_images_of_different_counts_are_refused_naming_both(tmp_path, n_labels):
+    write_mnist_layout(tmp_path, "FashionMNIST")
+    raw = tmp_path / "FashionMNIST" / "raw"
+    rewrite_idx(raw / "train-labels-idx1-ubyte", keep=n_labels)
+    with pytest.raises(DataError) as info:
+        prepare_data(DataSpec(source="fashion-mnist", root=str(tmp_path), val_size=100))
+    message = str(info.value)
+    assert f"{raw.resolve() / 'train-images-idx3-ubyte'} holds 1,300 images" in message
+    assert f"{raw.resolve() / 'train-labels-idx1-ubyte'} holds {n_labels:,} labels" in message
+
+
+def test_more_labels_than_images_are_refused_too(tmp_path):
+    write_mnist_layout(tmp_path, "KMNIST")
+    raw = tmp_path / "KMNIST" / "raw"
+    rewrite_idx(raw / "t10k-images-idx3-ubyte", keep=400)  # 497 labels stay
+    with pytest.raises(DataError, match=r"holds 400 images but .*t10k-labels.* holds 497 labels"):
+        prepare_data(DataSpec(source="kmnist", root=str(tmp_path), val_size=100))
+
+
+def test_a_truncated_idx_file_is_named(tmp_path):
+    write_mnist_layout(tmp_path, "MNIST")
+    path = tmp_path / "MNIST" / "raw" / "train-images-idx3-ubyte"
+    rewrite_idx(path)
+    with pytest.raises(DataError, match=r"idx3-ubyte is 1,019,206 bytes, but its header"):
+        prepare_data(DataSpec(source="mnist", root=str(tmp_path), val_size=100))
+
+
+def cut_in_half(path: Path) -> None:
+    data = path.read_bytes()
+    path.write_bytes(data[: len(data) // 2])
+
+
+def test_a_truncated_png_is_named_by_plan(tmp_path):
+    write_png_folder(tmp_path, "L")
+    bad = sorted((tmp_path / "class4").iterdir())[3]
+    cut_in_half(bad)
+    spec = DataSpec(source="folder", root=str(tmp_path), val_size=100)
+    with pytest.raises(DataError, match=rf"^image {bad.resolve()} cannot be read: .*runcated"):
+        describe_source(spec)  # what `kablate plan` reads: the headers and the files' bytes
+    with pytest.raises(DataError, match=rf"^image {bad.resolve()} cannot be read"):
+        prepare_data(spec)
+
+
+def test_a_truncated_jpeg_is_named_when_the_images_are_read(tmp_path):
+    noise = np.random.default_rng(0).integers(0, 256, (20, 64, 64), dtype=np.uint8)
+    for name in ("a", "b"):
+        (tmp_path / name).mkdir()
+        for i in range(10):
+            Image.fromarray(noise[i]).save(tmp_path / name / f"{i}.jpg", quality=95)
+    bad = tmp_path / "b" / "7.jpg"
+    bad.write_bytes(bad.read_bytes()[:-200])  # the header and most of the scan survive
+    spec = DataSpec(source="folder", root=str(tmp_path), val_size=4)
+    assert describe_source(spec) == ((1, 64, 64), 2)  # PIL's verify() does not decode a JPEG
+    with pytest.raises(DataError, match=rf"^image {bad.resolve()} cannot be read: .*truncated"):
+        prepare_data(spec)
+
+
+def test_a_one_class_folder_is_refused_at_plan_time(tmp_path):
+    pixels, _ = digits_uint8(8)
+    (tmp_path / "only").mkdir()
+    for i in range(20):
+        Image.fromarray(pixels[i]).save(tmp_path / "only" / f"{i}.png")
+    with pytest.raises(DataError, match=r"has 1 class, but a classifier needs at least two"):
+        describe_source(DataSpec(source="folder", root=str(tmp_path), val_size=4))
+
+
+def test_a_one_class_idx_copy_is_refused_when_read(tmp_path):
+    write_mnist_layout(tmp_path, "MNIST")
+    labels = tmp_path / "MNIST" / "raw" / "train-labels-idx1-ubyte"
+    data = bytearray(labels.read_bytes())
+    data[8:] = bytes(len(data) - 8)  # every training label 0
+    labels.write_bytes(bytes(data))
+    with pytest.raises(DataError, match=r"training pool of dataset mnist has 1 class"):
+        prepare_data(DataSpec(source="mnist", root=str(tmp_path), val_size=100))
+
+
+def test_a_cifar_copy_with_a_wrong_checksum_is_a_checksum_mismatch(tmp_path):
+    write_cifar(tmp_path, hundred=False)  # our files are not the published ones
+    with pytest.raises(DataError) as info:
+        prepare_data(DataSpec(source="cifar10", root=str(tmp_path), val_size=50))
+    message = str(info.value)
+    batch = tmp_path.resolve() / "cifar-10-batches-py" / "data_batch_1"
+    assert message.startswith("checksum mismatch in dataset CIFAR10: ")
+    assert f"{batch} has MD5 " in message and "expected c99cafc152244af753f735de768cd75f" in message
+    assert "not found" not in message
+
+
+def test_a_missing_cifar_file_is_still_missing_not_a_mismatch(tmp_path, monkeypatch):
+    import torchvision.datasets.cifar
+
+    import kablate.data.integrity as integrity
+
+    write_cifar(tmp_path, hundred=False)
+    good = torchvision.datasets.cifar.CIFAR10.train_list[0][1]  # pretend data_batch_1 is fine
+    monkeypatch.setattr(integrity, "file_md5", lambda path: good)
+    for path in (tmp_path / "cifar-10-batches-py").iterdir():
+        if path.name != "data_batch_1":
+            path.unlink()
+    with pytest.raises(DataError, match="was not found or could not be read"):
+        prepare_data(DataSpec(source="cifar10", root=str(tmp_path), val_size=50))
+
+
+def test_an_svhn_copy_with_a_wrong_checksum_names_the_file(tmp_path):
+    write_svhn(tmp_path)
+    with pytest.raises(
+        DataError, match=rf"checksum mismatch in dataset SVHN: {tmp_path.resolve()}"
+    ):
+        prepare_data(DataSpec(source="svhn", root=str(tmp_path), val_size=50))
+
+
+@pytest.mark.parametrize("source", ["digits", "folder"])
+def test_a_split_that_leaves_no_training_image_is_refused_by_plan(tmp_path, source):
+    from kablate.data.prepare import check_splits
+
+    if source == "folder":
+        write_png_folder(tmp_path, "L")  # 600 images, 150 held out for test
+    val_size = 1347 if source == "digits" else 450
+    spec = DataSpec(source=source, root=str(tmp_path), val_size=val_size)
+    with pytest.raises(DataError, match=r"leaves no training image.*lower `data.val_size`"):
+        check_splits(spec)
+    with pytest.raises(DataError, match=r"leaves no training image"):
+        prepare_data(spec)
+    check_splits(DataSpec(source=source, root=str(tmp_path), val_size=val_size - 10))

@@ -76,3 +76,21 @@ specs = st.builds(
 @given(specs)
 def test_written_specs_read_back_the_same(spec):
     assert parse_kernel(str(spec)) == spec
+
+
+@pytest.mark.parametrize("text", ["３", "٣", "５x3", "3d٢", "3:bottleneck/４"])
+def test_digits_of_other_scripts_are_not_kernel_sizes(text):
+    assert int("３") == int("٣") == 3  # int() reads them; the grammar must not
+    with pytest.raises(KernelSpecError, match="must be a kernel spec"):
+        parse_kernel(text)
+
+
+@pytest.mark.parametrize("text", ["256", "10001", "3d256", "3x" + "9" * 40, "0" * 50 + "3000"])
+def test_sizes_and_dilations_past_the_cap_are_refused(text):
+    with pytest.raises(KernelSpecError, match="at most 255"):
+        parse_kernel(text)
+
+
+def test_sizes_at_the_cap_and_leading_zeros_parse():
+    assert parse_kernel("255d255") == KernelSpec(255, 255, 255)
+    assert parse_kernel("0" * 50 + "3") == KernelSpec(3, 3)

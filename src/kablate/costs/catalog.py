@@ -6,12 +6,14 @@ from dataclasses import dataclass, field
 
 from kablate.costs.latency import Latency, measure_latency
 from kablate.costs.static import StaticCost, static_cost
+from kablate.data.prepare import check_splits
 from kablate.data.sources import describe_source
 from kablate.errors import PlanError
 from kablate.nets.layout import layout_network
 from kablate.nets.padding import is_symmetric
 from kablate.plans.expand import Variant, expand_plans, pick_baseline, with_alias
 from kablate.plans.filters import filter_reason
+from kablate.spec.bounds import check_input_bounds
 from kablate.spec.schema import SweepSpec
 
 
@@ -57,6 +59,8 @@ def build_catalog(
     """
     if in_shape is None or n_classes is None:
         in_shape, n_classes = describe_source(sweep.data)
+        check_splits(sweep.data)
+    check_input_bounds(sweep, in_shape)
     variants = expand_plans(sweep)
     base_name = pick_baseline(sweep, variants).name  # before merging: an all-3×3 spec wins
     costed: list[CostedVariant] = []
@@ -86,12 +90,18 @@ def build_catalog(
             dropped.append((item, reason))
         else:
             kept.append(item)
+    catalog = Catalog(sweep, in_shape, n_classes, kept, baseline, dropped, padding_warnings(kept))
     if latency:
-        for item in kept:
-            item.latency = measure_latency(
-                item.cost.layout, sweep.recipe.batch_size, threads=threads
-            )
-    return Catalog(sweep, in_shape, n_classes, kept, baseline, dropped, padding_warnings(kept))
+        measure_latencies(catalog, threads)
+    return catalog
+
+
+def measure_latencies(catalog: Catalog, threads: int | None = None) -> None:
+    """Measure every kept variant's CPU latency (`kablate plan --latency`), in place."""
+    for item in catalog.variants:
+        item.latency = measure_latency(
+            item.cost.layout, catalog.sweep.recipe.batch_size, threads=threads
+        )
 
 
 def padding_warnings(items: list[CostedVariant], n_named: int = 4) -> list[str]:

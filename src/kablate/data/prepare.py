@@ -12,7 +12,7 @@ from dataclasses import dataclass
 import numpy as np
 import torch
 
-from kablate.data.sources import SOURCES, ImageSet
+from kablate.data.sources import SOURCES, ImageSet, require_classes
 from kablate.data.splits import balanced_subset, stratified_split
 from kablate.errors import DataError
 from kablate.spec.schema import DataSpec
@@ -85,6 +85,56 @@ class PreparedData:
         }
 
 
+def split_indices(
+    spec: DataSpec, labels: np.ndarray, test_labels: np.ndarray | None
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """(train, val, stop, test) indices: into the training pool, and into the test split if
+    there is one (``test_labels``), else into the training pool too. ``stop`` is the
+    early-stopping fold (empty unless ``data.stop_size``).
+
+    Raises:
+        DataError: fewer than two classes, a subset larger than what is left, or no training
+            image left once validation (and a held-out test share) are taken.
+    """
+    require_classes(len(np.unique(labels)), f"the training pool of dataset {spec.source}")
+    if test_labels is None:
+        rest, test_idx = stratified_split(labels, spec.test_fraction, spec.split_seed)
+        test_labels = labels
+    else:
+        rest, test_idx = np.arange(len(labels)), np.arange(len(test_labels))
+    val_idx, rest = balanced_subset(labels, rest, spec.val_size, spec.split_seed + 1, "val_size")
+    stop_idx = np.array([], dtype=np.int64)
+    if spec.stop_size:
+        stop_idx, rest = balanced_subset(
+            labels, rest, spec.stop_size, spec.split_seed + 4, "stop_size"
+        )
+    train_idx, _ = balanced_subset(labels, rest, spec.train_size, spec.split_seed + 2, "train_size")
+    if len(train_idx) == 0:
+        held = f" and the test share {len(test_idx)}" if test_labels is labels else ""
+        raise DataError(
+            f"dataset {spec.source} leaves no training image: its training pool has "
+            f"{len(labels)} images, `data.val_size` takes {len(val_idx)}{held}; "
+            "lower `data.val_size`"
+        )
+    test_idx, _ = balanced_subset(
+        test_labels, test_idx, spec.test_size, spec.split_seed + 3, "test_size"
+    )
+    return train_idx, val_idx, stop_idx, test_idx
+
+
+def check_splits(spec: DataSpec) -> None:
+    """Cut the splits from the labels alone, where the source can list them cheaply (digits,
+    an image folder), so that `kablate plan` refuses splits that `run` would refuse. Other
+    sources are checked when `prepare_data` reads them, still before anything trains.
+
+    Raises:
+        DataError: as `split_indices`.
+    """
+    reader = SOURCES[spec.source].labels
+    if reader is not None:
+        split_indices(spec, *reader(spec))
+
+
 def prepare_data(spec: DataSpec) -> PreparedData:
     """Load the source and cut the fixed-seed, class-balanced splits.
 
@@ -101,22 +151,13 @@ def prepare_data(spec: DataSpec) -> PreparedData:
             f"dataset {spec.source} under {spec.root} has images of shape {shape}, but "
             f"{spec.source} images are {source.shape} (channels, height, width)"
         )
-    labels = pool.labels.numpy()
-    if pools.test is None:
-        rest, test_idx = stratified_split(labels, spec.test_fraction, spec.split_seed)
-        test_set, test_pool = pool, "held out from the training pool (stratified)"
-    else:
-        rest, test_set = np.arange(len(labels)), pools.test
-        test_idx, test_pool = np.arange(len(test_set.labels)), "the source's test split"
-    val_idx, rest = balanced_subset(labels, rest, spec.val_size, spec.split_seed + 1, "val_size")
-    stop_idx = np.array([], dtype=np.int64)
-    if spec.stop_size:
-        stop_idx, rest = balanced_subset(
-            labels, rest, spec.stop_size, spec.split_seed + 4, "stop_size"
-        )
-    train_idx, _ = balanced_subset(labels, rest, spec.train_size, spec.split_seed + 2, "train_size")
-    test_idx, _ = balanced_subset(
-        test_set.labels.numpy(), test_idx, spec.test_size, spec.split_seed + 3, "test_size"
+    test_set = pool if pools.test is None else pools.test
+    test_labels = None if pools.test is None else pools.test.labels.numpy()
+    train_idx, val_idx, stop_idx, test_idx = split_indices(spec, pool.labels.numpy(), test_labels)
+    test_pool = (
+        "held out from the training pool (stratified)"
+        if pools.test is None
+        else "the source's test split"
     )
     # Normalisation statistics from the training subset only (no peeking at val or test).
     train_images = pool.as_float(torch.from_numpy(train_idx)).double()

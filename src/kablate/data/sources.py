@@ -16,6 +16,7 @@ from pathlib import Path
 import numpy as np
 import torch
 
+from kablate.data.integrity import check_idx_pair, checksum_mismatch
 from kablate.errors import DataError
 from kablate.spec.schema import DataSpec
 
@@ -56,6 +57,9 @@ class Source:
     n_classes: int | None
     read: Callable[[DataSpec], Pools]
     expects: tuple[str, ...] = ()  # files or folders under `root` that the reader needs
+    # (training labels, test labels or None) without decoding any image, for sources where
+    # that is cheap, so that `kablate plan` can check the splits; None: checked when read
+    labels: Callable[[DataSpec], tuple[np.ndarray, np.ndarray | None]] | None = None
 
 
 def _to_images(array: np.ndarray, layout: str) -> torch.Tensor:
@@ -66,6 +70,12 @@ def _to_images(array: np.ndarray, layout: str) -> torch.Tensor:
     elif layout == "NHWC":
         t = t.permute(0, 3, 1, 2)
     return t.contiguous()
+
+
+def digits_labels(spec: DataSpec) -> tuple[np.ndarray, None]:
+    from sklearn.datasets import load_digits
+
+    return load_digits().target.astype(np.int64), None
 
 
 def read_digits(spec: DataSpec) -> Pools:
@@ -89,18 +99,30 @@ def _torchvision(name: str, cls_name: str, layout: str) -> Callable[[DataSpec], 
         import torchvision.datasets as tvd
 
         cls = getattr(tvd, cls_name)
+        expected = [Path(spec.root) / path for path in SOURCES[name].expects]
+        if layout == "NHW" and all(path.is_file() for path in expected):
+            check_idx_pair(*expected[:2])  # torchvision's errors would not name the file
+            check_idx_pair(*expected[2:])
         sets = []
         for train in (True, False):
             split = {"split": "train" if train else "test"} if name == "svhn" else {"train": train}
             try:
                 ds = cls(root=spec.root, download=spec.download, **split)
             except (RuntimeError, OSError, ValueError, AssertionError) as exc:
-                raise DataError(missing_message(spec, cls_name, exc)) from None
+                mismatch = checksum_mismatch(cls, Path(spec.root))
+                raise DataError(mismatch or missing_message(spec, cls_name, exc)) from None
             data = ds.data.numpy() if isinstance(ds.data, torch.Tensor) else np.asarray(ds.data)
             targets = getattr(ds, "targets", None)
             if targets is None:
                 targets = ds.labels  # SVHN
             labels = torch.as_tensor(np.asarray(targets), dtype=torch.int64)
+            if len(labels) != len(data):
+                where = Path(spec.root).resolve()
+                raise DataError(
+                    f"dataset {name} under {where} has {len(data)} images but {len(labels)} "
+                    f"labels in its {'train' if train else 'test'} split; the files are damaged "
+                    "or from different copies"
+                )
             classes = getattr(ds, "classes", None) or sorted({int(x) for x in labels})
             sets.append(ImageSet(_to_images(data, layout), labels, tuple(map(str, classes))))
         return Pools(sets[0], sets[1])
@@ -195,7 +217,8 @@ def _scan_headers(root: Path, paths: list[str]) -> tuple[int, int, int]:
             with Image.open(path) as img:
                 modes.add(img.mode)
                 sizes.add(img.size)
-        except OSError as exc:  # PIL's UnidentifiedImageError is an OSError
+                img.verify()  # reads the file without decoding it: finds a truncated PNG
+        except (OSError, SyntaxError, ValueError) as exc:  # UnidentifiedImageError: an OSError
             raise DataError(f"image {Path(path).resolve()} cannot be read: {exc}") from None
     if len(sizes) != 1:
         raise DataError(
@@ -215,10 +238,21 @@ def _read_image_folder(root: Path) -> ImageSet:
     mode = "L" if _scan_headers(root, paths)[0] == 1 else "RGB"
     tensors = []
     for path in paths:
-        with Image.open(path) as img:
-            tensors.append(pil_to_tensor(img.convert(mode)))
+        try:
+            with Image.open(path) as img:
+                tensors.append(pil_to_tensor(img.convert(mode)))
+        except (OSError, SyntaxError, ValueError) as exc:  # e.g. a truncated JPEG
+            raise DataError(f"image {Path(path).resolve()} cannot be read: {exc}") from None
     labels = torch.tensor([label for _, label in ds.samples], dtype=torch.int64)
     return ImageSet(torch.stack(tensors), labels, tuple(ds.classes))
+
+
+def folder_labels(spec: DataSpec) -> tuple[np.ndarray, np.ndarray | None]:
+    """The labels of an image folder's training tree (and test tree), from the listing."""
+    train_root, test_root = _folder_splits(Path(spec.root))
+    train = _list_image_folder(train_root).targets
+    test = _list_image_folder(test_root).targets if test_root is not None else None
+    return np.asarray(train, dtype=np.int64), None if test is None else np.asarray(test)
 
 
 def _folder_shape(root: Path) -> tuple[tuple[int, int, int], int]:
@@ -246,7 +280,7 @@ def _idx_files(folder: str) -> tuple[str, ...]:
 
 
 SOURCES: dict[str, Source] = {
-    "digits": Source("digits", (1, 8, 8), 10, read_digits),
+    "digits": Source("digits", (1, 8, 8), 10, read_digits, labels=digits_labels),
     "mnist": _torchvision_source("mnist", "MNIST", "NHW", (1, 28, 28), 10, _idx_files("MNIST")),
     "fashion-mnist": _torchvision_source(
         "fashion-mnist", "FashionMNIST", "NHW", (1, 28, 28), 10, _idx_files("FashionMNIST")
@@ -271,13 +305,28 @@ SOURCES: dict[str, Source] = {
     "svhn": _torchvision_source(
         "svhn", "SVHN", "NCHW", (3, 32, 32), 10, ("train_32x32.mat", "test_32x32.mat")
     ),
-    "folder": Source("folder", None, None, read_folder),
+    "folder": Source("folder", None, None, read_folder, labels=folder_labels),
 }
 
 
 def describe_source(spec: DataSpec) -> tuple[tuple[int, int, int], int]:
-    """Input shape (C, H, W) and class count, without decoding the images."""
+    """Input shape (C, H, W) and class count, without decoding the images.
+
+    Raises:
+        DataError: the data cannot be read, or has fewer than two classes.
+    """
     source = SOURCES[spec.source]
     if source.shape is not None and source.n_classes is not None:
         return source.shape, source.n_classes
-    return _folder_shape(Path(spec.root))
+    shape, n_classes = _folder_shape(Path(spec.root))
+    require_classes(n_classes, f"image folder {Path(spec.root).resolve()}")
+    return shape, n_classes
+
+
+def require_classes(n_classes: int, what: str) -> None:
+    """Refuse data with fewer than two classes: every model would score 100% on it."""
+    if n_classes < 2:
+        raise DataError(
+            f"{what} has {n_classes} class{'es' if n_classes != 1 else ''}, but a classifier "
+            "needs at least two"
+        )

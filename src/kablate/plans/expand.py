@@ -64,6 +64,7 @@ def expand_plans(sweep: SweepSpec) -> list[Variant]:
         SweepError: an unknown layer group, a bad kernel spec or a name used twice for
             different networks, naming the key in the sweep file.
     """
+    check_grid_axes(sweep)
     candidates: list[tuple[PlanSpec, tuple[tuple[str, str], ...], int]] = [
         (plan, (), -1) for plan in sweep.plans
     ]
@@ -92,6 +93,18 @@ def expand_plans(sweep: SweepSpec) -> list[Variant]:
             continue
         by_key[variant.key] = variant
     return list(by_key.values())
+
+
+def check_grid_axes(sweep: SweepSpec) -> None:
+    """Check every grid axis's group name and kernel specs once, before any cell is built, so
+    a typo in a large grid is reported at once rather than after building its cells."""
+    for g, grid in enumerate(sweep.grids):
+        for group, specs in grid.items():
+            for spec in specs:
+                try:
+                    resolve_kernels(sweep.network, {group: spec})
+                except GroupError as exc:
+                    raise SweepError(sweep.source, f"grid[{g}].{exc.group}", str(exc)) from None
 
 
 def with_alias(variant: Variant, alias: str) -> Variant:

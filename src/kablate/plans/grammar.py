@@ -16,11 +16,15 @@ import re
 from dataclasses import dataclass
 from typing import Literal
 
+from kablate.spec.bounds import MAX_KERNEL, MAX_SPEC_DIGITS
+
 Form = Literal["dense", "stack", "split", "depthwise", "bottleneck"]
 FORMS: tuple[str, ...] = ("dense", "stack", "split", "depthwise", "bottleneck")
 
+# ASCII digits only: `\d` would also take full-width and Arabic-Indic digits, which int() reads.
 _SPEC_RE = re.compile(
-    r"^(?P<kh>\d+)(?:[x×](?P<kw>\d+))?(?:d(?P<dil>\d+))?(?::(?P<form>[a-z]+)(?:/(?P<ratio>\d+))?)?$"
+    r"^(?P<kh>[0-9]+)(?:[x×](?P<kw>[0-9]+))?(?:d(?P<dil>[0-9]+))?"
+    r"(?::(?P<form>[a-z]+)(?:/(?P<ratio>[0-9]+))?)?$"
 )
 GRAMMAR_HELP = (
     'a kernel spec such as "3", "5x3", "3d2", "7:stack", "5:split", "3:depthwise" '
@@ -62,9 +66,9 @@ def parse_kernel(text: str) -> KernelSpec:
     match = _SPEC_RE.match(text.strip().lower().replace(" ", ""))
     if not match:
         raise KernelSpecError(f"must be {GRAMMAR_HELP}")
-    kh = int(match["kh"])
-    kw = int(match["kw"]) if match["kw"] else kh
-    dilation = int(match["dil"]) if match["dil"] else 1
+    kh = _number(match["kh"])
+    kw = _number(match["kw"]) if match["kw"] else kh
+    dilation = _number(match["dil"]) if match["dil"] else 1
     form = match["form"] or "dense"
     if form not in FORMS:
         raise KernelSpecError(f"names form `{form}`; the forms are {', '.join(FORMS)}")
@@ -72,7 +76,7 @@ def parse_kernel(text: str) -> KernelSpec:
         raise KernelSpecError("needs kernel sizes and dilation ≥ 1")
     if match["ratio"] and form != "bottleneck":
         raise KernelSpecError("gives a ratio, which only the bottleneck form takes")
-    ratio = int(match["ratio"]) if match["ratio"] else 4
+    ratio = _number(match["ratio"]) if match["ratio"] else 4
     if kh == kw == 1:
         dilation = 1  # dilation has no effect on a 1×1 kernel; keep one spelling per network
     if ratio < 1:
@@ -80,6 +84,18 @@ def parse_kernel(text: str) -> KernelSpec:
     spec = KernelSpec(kh, kw, dilation, form, ratio)  # type: ignore[arg-type]
     _check_form(spec)
     return spec
+
+
+def _number(digits: str) -> int:
+    """One size, dilation or ratio, at most `MAX_KERNEL` (its digits are counted before int()
+    reads them, so a 5,000-digit number costs nothing)."""
+    significant = digits.lstrip("0") or "0"
+    if len(significant) > MAX_SPEC_DIGITS or int(significant) > MAX_KERNEL:
+        shown = significant if len(significant) <= 12 else f"{significant[:12]}..."
+        raise KernelSpecError(
+            f"has the number {shown}; kernel sizes, dilations and ratios are at most {MAX_KERNEL}"
+        )
+    return int(significant)
 
 
 def _check_form(spec: KernelSpec) -> None:

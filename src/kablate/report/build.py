@@ -29,6 +29,7 @@ from kablate.trials.export import (
     write_predictions,
 )
 from kablate.trials.meta import read_json, write_json
+from kablate.trials.preflight import writable_folder
 from kablate.trials.results import DATA_FILE, ResultsFolder
 from kablate.trials.store import redact
 
@@ -102,10 +103,8 @@ def pick_settings(meta: dict, **overrides) -> PickSpec:
     return read_table(PickSpec, raw, Where("the command line or [pick]").key("pick"))
 
 
-def write_tables(folder: ResultsFolder, analysis: Analysis, data: dict) -> None:
-    """trials.csv/json, variants.csv/json, curves.csv and predictions.csv.gz in the results
-    folder."""
-    out = folder.path
+def write_tables(out: Path, analysis: Analysis, data: dict) -> None:
+    """trials.csv/json, variants.csv/json, curves.csv and predictions.csv.gz in ``out``."""
     write_predictions(out / PREDICTIONS_FILE, analysis.trials.to_dict("records"), data)
     write_csv(out / "trials.csv", analysis.trials.to_dict("records"), TRIAL_COLUMNS)
     write_csv(out / "curves.csv", analysis.curves.to_dict("records"), CURVE_COLUMNS)
@@ -159,6 +158,9 @@ def write_report(
     """Analyse the folder's trials and write tables, plots and ``model_card.md``.
 
     Args:
+        out: where the card and plots go, and then the tables too, so that nothing is written
+            into the results folder (which may be read-only); None: the tables go into the
+            results folder and the card into its ``report/``.
         pick: the selection rule's settings; None takes the sweep's ``[pick]``.
         with_erf: compute the effective-receptive-field maps (needs checkpoints and data).
 
@@ -169,9 +171,12 @@ def write_report(
     rows, curves = folder.rows()
     data = read_json(folder.path / DATA_FILE)
     analysis = analyze(rows, curves, folder.plan, folder.meta.get("grids", []), data, pick)
-    write_tables(folder, analysis, data)
-    out = out or folder.path / "report"
-    out.mkdir(parents=True, exist_ok=True)
+    if out is None:
+        hint = "; give --out DIR to write the report elsewhere"
+        write_tables(writable_folder(folder.path, "results folder", hint), analysis, data)
+        out = writable_folder(folder.path / "report", "report folder", hint)
+    else:
+        write_tables(writable_folder(out, "--out folder"), analysis, data)
     if with_erf:
         from kablate.report.trained import erf_maps
 

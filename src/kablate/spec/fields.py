@@ -9,6 +9,7 @@ bad value and what is allowed, with a "did you mean" for misspelt keys.
 from __future__ import annotations
 
 import dataclasses
+import math
 import types
 import typing
 from collections.abc import Callable
@@ -43,8 +44,10 @@ def below(high: float, kind: str = "a number") -> Check:
 
 
 def describe(value: Any) -> str:
-    """How a bad value is shown in an error message."""
-    return repr(value) if not isinstance(value, str) else f'"{value}"'
+    """How a bad value is shown in an error message: on one line, at most about 60 characters."""
+    readable = isinstance(value, str) and value.isprintable()
+    text = f'"{value}"' if readable else repr(value)
+    return text if len(text) <= 60 else f"{text[:57]}..."
 
 
 class Where:
@@ -126,6 +129,9 @@ def read_scalar(hint: type, raw: Any, where: Where) -> Any:
         ok = isinstance(raw, int) and not isinstance(raw, bool)
     elif hint is float:
         ok = isinstance(raw, int | float) and not isinstance(raw, bool)
+        # TOML writes inf and nan, and integers too large for a float; no setting means them.
+        if ok and not (math.isfinite(raw) if isinstance(raw, float) else abs(raw) < 1e308):
+            raise where.fail(f"must be a finite number, but got {describe(raw)}")
         raw = float(raw) if ok else raw
     elif hint is str:
         ok = isinstance(raw, str)

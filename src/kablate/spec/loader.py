@@ -7,6 +7,7 @@ the sweep then override it, table by table.
 
 from __future__ import annotations
 
+import math
 import re
 import tomllib
 from dataclasses import dataclass
@@ -14,6 +15,7 @@ from pathlib import Path
 from typing import Any
 
 from kablate.errors import SweepError
+from kablate.spec.bounds import MAX_DEPTH, MAX_GRID_CELLS, MAX_NAME, MAX_SEED
 from kablate.spec.fields import Where, check, read_table, read_value
 from kablate.spec.schema import (
     DataSpec,
@@ -29,14 +31,16 @@ NAME_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]*$")
 
 
 def _slug(value: str) -> str | None:
+    if len(value) > MAX_NAME:
+        return f"must be at most {MAX_NAME} characters long (this one has {len(value)})"
     return None if NAME_RE.match(value) else "must be letters, digits, '.', '_' or '-'"
 
 
 def _seeds(value: tuple[int, ...]) -> str | None:
     if not value:
         return "must list at least one seed"
-    if len(set(value)) != len(value) or min(value) < 0:
-        return "must be distinct integers ≥ 0"
+    if len(set(value)) != len(value) or min(value) < 0 or max(value) > MAX_SEED:
+        return f"must be distinct integers from 0 to {MAX_SEED} (2³¹ − 1)"
     return None
 
 
@@ -134,12 +138,32 @@ def read_toml(path: Path, source: str) -> dict:
     except (OSError, UnicodeDecodeError) as exc:
         raise SweepError(source, "", f"cannot be read ({exc})") from None
     try:
-        return tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
+        raw = tomllib.loads(text)
+    except RecursionError:
+        raise SweepError(source, "", "nests arrays or tables too deeply to read") from None
+    except ValueError as exc:  # TOMLDecodeError, or an integer of over 4,300 digits
         match = re.search(r"\(at line (\d+), column (\d+)\)", str(exc))
         line = int(match.group(1)) if match else None
-        reason = re.sub(r"\s*\(at line \d+, column \d+\)", "", str(exc))
+        reason = re.sub(r"\s*\(at line \d+, column \d+\)", "", str(exc)).split(";")[0]
         raise SweepError(source, "", f"is not valid TOML: {reason}", line=line) from None
+    if nesting_depth(raw) > MAX_DEPTH:
+        raise SweepError(
+            source, "", f"nests tables and arrays more than {MAX_DEPTH} deep; no setting needs that"
+        )
+    return raw
+
+
+def nesting_depth(value: Any) -> int:
+    """How deeply tables and arrays nest in ``value`` (a scalar is 0); without recursion."""
+    if not isinstance(value, dict | list):
+        return 0
+    deepest, stack = 0, [(value, 1)]
+    while stack:
+        item, depth = stack.pop()
+        children = item.values() if isinstance(item, dict) else item
+        deepest = max(deepest, depth)
+        stack += [(child, depth + 1) for child in children if isinstance(child, dict | list)]
+    return deepest
 
 
 def find_include(name: str, sweep_path: Path) -> Path | None:
@@ -192,6 +216,8 @@ def read_plans(raw: Any, where: Where) -> tuple[PlanSpec, ...]:
         if "name" not in table:
             raise at.key("name").fail("is required: every explicit plan needs a name")
         name = read_value(str, table["name"], at.key("name"))
+        if len(name) > MAX_NAME:
+            raise at.key("name").fail(f"must be at most {MAX_NAME} characters")
         if _slug(name) or name in seen:
             raise at.key("name").fail(
                 f'must be a unique name of letters, digits, ".", "_", "-", but got "{name}"'
@@ -219,4 +245,10 @@ def read_grids(raw: Any, where: Where) -> tuple[dict[str, tuple[str, ...]], ...]
                 raise at.key(group).fail("must list at least one kernel spec")
             axes[group] = values
         grids.append(axes)
+    n_cells = sum(math.prod(len(values) for values in axes.values()) for axes in grids)
+    if n_cells > MAX_GRID_CELLS:
+        raise where.fail(
+            f"has {n_cells:,} cells in all, but a sweep may have at most {MAX_GRID_CELLS:,}: "
+            "split it into several sweeps or drop some kernel specs"
+        )
     return tuple(grids)

@@ -10,6 +10,15 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import Literal
 
+from kablate.spec.bounds import (
+    MAX_BATCH,
+    MAX_CHANNELS,
+    MAX_CONVS,
+    MAX_CROP_PADDING,
+    MAX_SEED,
+    MAX_STAGES,
+    MAX_STRIDE,
+)
 from kablate.spec.fields import Check, at_least, below, between, check
 
 SourceName = Literal[
@@ -51,22 +60,23 @@ class DataSpec:
     stop_size: int = check(at_least(0), 0)
     test_size: int = check(at_least(0), 0)  # 0: all of the test split
     test_fraction: float = check(between(0.05, 0.5), 0.25)  # for sources with no test split
-    split_seed: int = check(at_least(0), 0)
+    split_seed: int = check(between(0, MAX_SEED, "an integer"), 0)
 
 
 @dataclass(frozen=True)
 class StemSpec:
-    out_ch: int = check(at_least(1), 16)
+    out_ch: int = check(between(1, MAX_CHANNELS, "an integer"), 16)
     kernel: str = check(kernel_spec(allow_empty=True), "3")
-    stride: int = check(at_least(1), 1)
+    stride: int = check(between(1, MAX_STRIDE, "an integer"), 1)
 
 
 @dataclass(frozen=True)
 class StageSpec:
     """Consecutive convs at one resolution; ``down`` is applied at the stage's start."""
 
-    out_ch: int = check(at_least(1))
-    n_convs: int = check(at_least(0), 2)  # 0: a bare downsampling step (pooling only)
+    out_ch: int = check(between(1, MAX_CHANNELS, "an integer"))
+    # 0: a bare downsampling step (pooling only)
+    n_convs: int = check(between(0, MAX_CONVS, "an integer"), 2)
     down: Literal["none", "maxpool", "avgpool", "stride"] = "none"
     residual: bool = False
     name: str = ""  # default: stage1, stage2, ...
@@ -78,11 +88,13 @@ class NetworkSpec:
     """The base network that kernel plans rewrite. The input shape comes from the data."""
 
     stem: StemSpec = field(default_factory=StemSpec)
-    stages: tuple[StageSpec, ...] = ()
+    stages: tuple[StageSpec, ...] = check(
+        lambda v: None if len(v) <= MAX_STAGES else f"must list at most {MAX_STAGES} stages", ()
+    )
     # every conv's kernel spec unless the stem, a stage or a plan says otherwise
     kernel: str = check(kernel_spec(), "3")
     norm: Literal["batch", "group", "none"] = "batch"
-    norm_groups: int = check(at_least(1), 8)
+    norm_groups: int = check(between(1, MAX_CHANNELS, "an integer"), 8)
     act: Literal["relu", "gelu", "silu"] = "relu"
     padding: Literal["same", "valid"] = "same"
     dropout: float = check(below(1.0), 0.0)
@@ -90,7 +102,8 @@ class NetworkSpec:
 
 @dataclass(frozen=True)
 class AugmentSpec:
-    crop_padding: int = check(at_least(0), 0)  # random crop after zero-padding by this many pixels
+    # random crop after zero-padding by this many pixels
+    crop_padding: int = check(between(0, MAX_CROP_PADDING, "an integer"), 0)
     hflip: bool = False
 
 
@@ -100,7 +113,7 @@ class RecipeSpec:
 
     epochs: int = check(at_least(1), 10)
     max_steps: int = check(at_least(0), 0)  # 0: no cap; else stop after this many steps
-    batch_size: int = check(at_least(1), 64)
+    batch_size: int = check(between(1, MAX_BATCH, "an integer"), 64)
     optimizer: Literal["sgd", "adamw"] = "sgd"
     lr: float = check(between(1e-6, 10.0), 0.05)
     momentum: float = check(below(1.0), 0.9)

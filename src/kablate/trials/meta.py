@@ -75,4 +75,14 @@ def write_json(path: Path, value: Any) -> None:
 def read_json(path: Path) -> Any:
     if not path.is_file():
         raise UsageError(f"{path} is missing: is {path.parent} a kablate results folder?")
-    return json.loads(path.read_text())
+    try:
+        value = json.loads(path.read_text(encoding="utf-8"))
+    except (json.JSONDecodeError, UnicodeDecodeError, RecursionError) as exc:
+        reason = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+        raise UsageError(
+            f"{path} is damaged ({reason[:120]}); `kablate run` with the same sweep file "
+            "writes it again"
+        ) from None
+    if not isinstance(value, dict):
+        raise UsageError(f"{path} is damaged (not a JSON object); `kablate run` writes it again")
+    return value

@@ -28,6 +28,7 @@ from kablate.trials.jobs import Job, sweep_jobs
 from kablate.trials.liveness import liveness_for
 from kablate.trials.meta import check_definition, definition, fingerprint, write_json
 from kablate.trials.pool import FILE_ONLY, Progress, run_workers, setup_logging
+from kablate.trials.preflight import run_preflight, writable_folder
 from kablate.trials.queue import enqueue_missing, job_status, tagged_trials
 from kablate.trials.results import DATA_FILE, PLAN_FILE, SWEEP_FILE
 from kablate.trials.store import (
@@ -201,6 +202,7 @@ def dry_run(sweep_path: Path, opts: RunOptions) -> RunSummary:
         except UsageError:
             done = set()
     data = prepare_data(sweep.data)
+    run_preflight(catalog, data, layout[0], opts.device)
     _, text = estimate(catalog, data, jobs, done, layout, opts.budget_seconds)
     text += "\n" + plan_note(len(data.val.labels), sweep.pick.margin, len(sweep.seeds))
     if opts.echo:
@@ -224,13 +226,16 @@ def run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
     results_dir = opts.results_root / sweep.name
     url = resolve_url(opts.storage)
     interactive = opts.show_progress and sys.stderr.isatty()
+    writable_folder(results_dir, "results folder", "; choose another with --results DIR")
     setup_logging(results_dir, to_console=not interactive)
     study = open_study(sweep.name, results_dir, url)
-    check_definition(study, sweep)
     jobs = sweep_jobs(catalog)
     layout = choose_layout(opts.workers, opts.threads, len(jobs))
-    write_manifest(results_dir, catalog, url, opts, layout)
     data = prepare_data(sweep.data)
+    # Before the definition is recorded: a sweep refused here can be fixed and rerun as is.
+    run_preflight(catalog, data, layout[0], opts.device)
+    check_definition(study, sweep)
+    write_manifest(results_dir, catalog, url, opts, layout)
     write_json(results_dir / DATA_FILE, data.manifest())
     plan = {
         "seeds": list(sweep.seeds),
