@@ -12,15 +12,14 @@ import math
 from dataclasses import dataclass
 from datetime import UTC, datetime
 
-from kablate.analysis.classes import per_class_accuracy
 from kablate.analysis.summary import Analysis
 from kablate.costs.export import human
+from kablate.report.tables import ci, class_table, test_table, variant_table
 from kablate.report.verdict import (
     cost_ratio,
     diff_prose,
     headline,
     pct,
-    pp,
     rule_sentence,
 )
 
@@ -68,13 +67,6 @@ class CardContext:
     cost_label: str  # "MACs", "params" or "latency"
 
 
-def flag(value) -> bool:
-    """A front flag: True, False, or None/NaN where that front was not computed."""
-    return (
-        value is not None and not (isinstance(value, float) and math.isnan(value)) and bool(value)
-    )
-
-
 def n_seeds(n: int) -> str:
     return f"{n} seed" if n == 1 else f"{n} seeds"
 
@@ -84,13 +76,6 @@ def ci_prose(row, metric: str = "val_acc") -> str:
     if not math.isfinite(row[f"{metric}_ci_low"]):  # fewer than two seeds
         return "(one seed: no interval)"
     return ci(row[f"{metric}_ci_low"], row[f"{metric}_ci_high"])
-
-
-def ci(low: float, high: float) -> str:
-    """A 95% CI of an accuracy, clipped to [0%, 100%] for display (the CSV keeps raw limits)."""
-    if not (math.isfinite(low) and math.isfinite(high)):
-        return "n/a"
-    return f"[{pct(max(low, 0.0))}, {pct(min(high, 1.0))}]"
 
 
 def scored_weights(recipe: dict) -> str:
@@ -114,9 +99,9 @@ def render_card(a: Analysis, ctx: CardContext, now: datetime | None = None) -> s
         "### Quantitative analyses",
         "",
         *_recommendation(a, ctx),
-        *_variant_table(a, ctx),
-        *_test_table(a),
-        *_class_table(a),
+        *variant_table(a, ctx.cost_label),
+        *test_table(a),
+        *class_table(a),
         *_erf_section(a),
         *_partial(a),
         *_plots(ctx.plots),
@@ -257,111 +242,6 @@ def _recommendation(a: Analysis, ctx: CardContext) -> list[str]:
     if tc is not None:
         test += f"; against the baseline on the test images: {diff_prose(tc)}"
     return out + [test + ".", ""]
-
-
-def _variant_cells(a: Analysis, name: str) -> list[str]:
-    """Accuracy, difference, lower bound, Holm p, cost, within margin, picked share."""
-    d = a.decision
-    acc = d.accuracy.get(name) if d else None
-    if acc is None:
-        return ["not compared yet"] + ["-"] * 6
-    c = d.contrasts.get(name)
-    return [
-        f"{pct(acc.mean)} {ci(acc.low, acc.high)}",
-        "-" if c is None else f"{pp(c.diff)} [{pp(c.low)}, {pp(c.high)}]",
-        "-" if c is None else pp(c.lower_bound),
-        "-" if c is None else f"{c.p_holm:.3g}",
-        cost_ratio(a, name),
-        within_margin(a, name),
-        f"{100 * d.pick_share.get(name, 0):.0f}%",
-    ]
-
-
-def within_margin(a: Analysis, name: str) -> str:
-    """yes/no for the plans the rule can pick; a costlier plan is marked as such."""
-    d = a.decision
-    c = d.contrasts.get(name)
-    if c is None:
-        return "-"
-    word = "yes" if c.lower_bound > -d.margin else "no"
-    return (
-        word
-        if float(a.variants.set_index("variant").loc[name, "cost_ratio"]) < 1
-        else (f"{word} (costlier: not eligible)")
-    )
-
-
-def _variant_table(a: Analysis, ctx: CardContext) -> list[str]:
-    v = a.variants.sort_values(["macs", "variant"])
-    lines = [
-        "#### Variants against the baseline",
-        "",
-        "Sorted by MACs. Validation accuracy over every (seed, image) pair with its 95% "
-        f"bootstrap interval; *difference* is plan − baseline ({a.baseline}), paired on seeds "
-        "and images; *lower bound* is its one-sided 95% lower bound; *p (Holm)* tests "
-        '"no difference", adjusted over the comparisons; *picked* is how often the rule picks '
-        "the plan in a bootstrap resample; *front* names the costs on whose Pareto front "
-        "(accuracy up, cost down; on point estimates) the plan lies.",
-        "",
-        f"| variant | kernel plan | val acc [95% CI] | difference [95% CI] | lower bound | "
-        f"p (Holm) | {ctx.cost_label} (× baseline) | within margin | picked | front | warnings |",
-        "|---|---|---|---|---:|---:|---:|---|---:|---|---|",
-    ]
-    fronts = [("MACs", "front_macs"), ("params", "front_params")]
-    if v["front_latency"].notna().all():
-        fronts.append(("latency", "front_latency"))
-    for row in v.itertuples():
-        marks = []
-        if row.recommended:
-            marks.append("**recommended**")
-        if row.variant == a.baseline:
-            marks.append("baseline")
-        name = row.variant + (f" ({', '.join(marks)})" if marks else "")
-        on = [label for label, col in fronts if flag(getattr(row, col))]
-        warn = "; ".join(a.flags.get(row.variant, [])) or "-"
-        cells = " | ".join(_variant_cells(a, row.variant))
-        lines.append(f"| {name} | `{row.plan}` | {cells} | {', '.join(on) or '-'} | {warn} |")
-    return lines + [""]
-
-
-def _test_table(a: Analysis) -> list[str]:
-    v = a.variants[a.variants["n_seeds"] > 0].sort_values(["macs", "variant"])
-    lines = [
-        "#### Held-out test accuracy (reported, not used to choose)",
-        "",
-        "Over every (seed, test image) pair, with the same paired two-level bootstrap as "
-        "validation.",
-        "",
-        "| variant | test acc [95% CI] | seeds |",
-        "|---|---|---:|",
-    ]
-    for row in v.itertuples():
-        lines.append(
-            f"| {row.variant} | {pct(row.test_acc_mean)} "
-            f"{ci(row.test_acc_ci_low, row.test_acc_ci_high)} | {row.test_acc_n} |"
-        )
-    return lines + [""]
-
-
-def _class_table(a: Analysis) -> list[str]:
-    """Per-class validation accuracy of the recommended plan and the baseline."""
-    d = a.decision
-    if d is None or a.evidence is None:
-        return []
-    names = list(dict.fromkeys([d.recommended, d.baseline]))
-    table = per_class_accuracy(a.evidence, names, a.classes)
-    lines = [
-        "#### Per-class validation accuracy",
-        "",
-        f"Pooled over {len(a.evidence.seeds)} seed(s) of the recommended plan and the baseline.",
-        "",
-        f"| class | images | {' | '.join(names)} |",
-        "|---|---:|" + "---:|" * len(names),
-    ]
-    for _, row in table.iterrows():
-        accs = " | ".join(pct(row[n]) for n in names)
-        lines.append(f"| {row['class']} | {row['n_images']} | {accs} |")
-    return lines + [""]
 
 
 def _erf_section(a: Analysis) -> list[str]:

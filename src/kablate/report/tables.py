@@ -1,0 +1,129 @@
+"""The card's tables: the variants against the baseline, test accuracy and per-class
+accuracy. Only words and layout: every number comes from the `Analysis`."""
+
+from __future__ import annotations
+
+import math
+
+from kablate.analysis.classes import per_class_accuracy
+from kablate.analysis.summary import Analysis
+from kablate.report.verdict import cost_ratio, pct, pp
+
+
+def flag(value) -> bool:
+    """A front flag: True, False, or None/NaN where that front was not computed."""
+    return (
+        value is not None and not (isinstance(value, float) and math.isnan(value)) and bool(value)
+    )
+
+
+def ci(low: float, high: float) -> str:
+    """A 95% CI of an accuracy, clipped to [0%, 100%] for display (the CSV keeps raw limits)."""
+    if not (math.isfinite(low) and math.isfinite(high)):
+        return "n/a"
+    return f"[{pct(max(low, 0.0))}, {pct(min(high, 1.0))}]"
+
+
+def variant_cells(a: Analysis, name: str) -> list[str]:
+    """Accuracy, difference, lower bound, Holm p, cost, within margin, picked share."""
+    d = a.decision
+    acc = d.accuracy.get(name) if d else None
+    if acc is None:
+        return ["not compared yet"] + ["-"] * 6
+    c = d.contrasts.get(name)
+    return [
+        f"{pct(acc.mean)} {ci(acc.low, acc.high)}",
+        "-" if c is None else f"{pp(c.diff)} [{pp(c.low)}, {pp(c.high)}]",
+        "-" if c is None else pp(c.lower_bound),
+        "-" if c is None else f"{c.p_holm:.3g}",
+        cost_ratio(a, name),
+        within_margin(a, name),
+        f"{100 * d.pick_share.get(name, 0):.0f}%",
+    ]
+
+
+def within_margin(a: Analysis, name: str) -> str:
+    """yes/no for the plans the rule can pick; a costlier plan is marked as such."""
+    d = a.decision
+    c = d.contrasts.get(name)
+    if c is None:
+        return "-"
+    word = "yes" if c.lower_bound > -d.margin else "no"
+    return (
+        word
+        if float(a.variants.set_index("variant").loc[name, "cost_ratio"]) < 1
+        else (f"{word} (costlier: not eligible)")
+    )
+
+
+def variant_table(a: Analysis, cost_label: str) -> list[str]:
+    v = a.variants.sort_values(["macs", "variant"])
+    lines = [
+        "#### Variants against the baseline",
+        "",
+        "Sorted by MACs. Validation accuracy over every (seed, image) pair with its 95% "
+        f"bootstrap interval; *difference* is plan − baseline ({a.baseline}), paired on seeds "
+        "and images; *lower bound* is its one-sided 95% lower bound; *p (Holm)* tests "
+        '"no difference", adjusted over the comparisons; *picked* is how often the rule picks '
+        "the plan in a bootstrap resample; *front* names the costs on whose Pareto front "
+        "(accuracy up, cost down; on point estimates) the plan lies.",
+        "",
+        f"| variant | kernel plan | val acc [95% CI] | difference [95% CI] | lower bound | "
+        f"p (Holm) | {cost_label} (× baseline) | within margin | picked | front | warnings |",
+        "|---|---|---|---|---:|---:|---:|---|---:|---|---|",
+    ]
+    fronts = [("MACs", "front_macs"), ("params", "front_params")]
+    if v["front_latency"].notna().all():
+        fronts.append(("latency", "front_latency"))
+    for row in v.itertuples():
+        marks = []
+        if row.recommended:
+            marks.append("**recommended**")
+        if row.variant == a.baseline:
+            marks.append("baseline")
+        name = row.variant + (f" ({', '.join(marks)})" if marks else "")
+        on = [label for label, col in fronts if flag(getattr(row, col))]
+        warn = "; ".join(a.flags.get(row.variant, [])) or "-"
+        cells = " | ".join(variant_cells(a, row.variant))
+        lines.append(f"| {name} | `{row.plan}` | {cells} | {', '.join(on) or '-'} | {warn} |")
+    return lines + [""]
+
+
+def test_table(a: Analysis) -> list[str]:
+    v = a.variants[a.variants["n_seeds"] > 0].sort_values(["macs", "variant"])
+    lines = [
+        "#### Held-out test accuracy (reported, not used to choose)",
+        "",
+        "Over every (seed, test image) pair, with the same paired two-level bootstrap as "
+        "validation.",
+        "",
+        "| variant | test acc [95% CI] | seeds |",
+        "|---|---|---:|",
+    ]
+    for row in v.itertuples():
+        lines.append(
+            f"| {row.variant} | {pct(row.test_acc_mean)} "
+            f"{ci(row.test_acc_ci_low, row.test_acc_ci_high)} | {row.test_acc_n} |"
+        )
+    return lines + [""]
+
+
+def class_table(a: Analysis) -> list[str]:
+    """Per-class validation accuracy of the recommended plan and the baseline."""
+    d = a.decision
+    if d is None or a.evidence is None:
+        return []
+    names = list(dict.fromkeys([d.recommended, d.baseline]))
+    table = per_class_accuracy(a.evidence, names, a.classes)
+    lines = [
+        "#### Per-class validation accuracy",
+        "",
+        f"Pooled over {len(a.evidence.seeds)} seed(s) of the recommended plan and the baseline.",
+        "",
+        f"| class | images | {' | '.join(names)} |",
+        "|---|---:|" + "---:|" * len(names),
+    ]
+    for _, row in table.iterrows():
+        accs = " | ".join(pct(row[n]) for n in names)
+        lines.append(f"| {row['class']} | {row['n_images']} | {accs} |")
+    return lines + [""]
