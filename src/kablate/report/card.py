@@ -45,11 +45,12 @@ PLOT_CAPTIONS = {
     "accuracy_vs_latency": "Validation accuracy (95% bootstrap interval) against CPU latency; "
     "the band runs from the baseline's accuracy down by the margin; hollow markers cannot be "
     "told apart from the baseline",
-    "rf_vs_accuracy": "Validation accuracy against the theoretical receptive field",
+    "rf_vs_accuracy": "Validation accuracy (95% bootstrap interval) against the theoretical "
+    "receptive field; hollow markers cannot be told apart from the baseline",
     "learning_curves": "Validation accuracy per epoch (mean over seeds; band: min–max)",
-    "grid_heatmap": "Mean validation accuracy over the two-axis grid, ± the half-width of each "
-    "cell's 95% CI; the colour scale spans at least one typical CI, so cells that differ by "
-    "less than the seed-to-seed noise look alike",
+    "grid_heatmap": "Validation accuracy over the two-axis grid, ± the half-width of each "
+    "cell's 95% bootstrap interval; the colour scale spans at least one typical interval, so "
+    "cells that differ by less than the noise look alike",
     "effective_rf": "Effective receptive field of the recommended plan and the baseline",
     "confusion": "Confusion matrices of the recommended plan and the baseline on the validation "
     "images, pooled over seeds",

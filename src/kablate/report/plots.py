@@ -165,6 +165,11 @@ def _margin_band(ax: plt.Axes, v: pd.DataFrame, analysis: Analysis) -> None:
             zorder=0,
             label=f"baseline − margin ({100 * d.margin:.2g} pp)",
         )
+    _hollow_key(ax)
+
+
+def _hollow_key(ax: plt.Axes) -> None:
+    """A legend entry that says what a hollow marker means."""
     ax.plot(
         [],
         [],
@@ -232,12 +237,13 @@ def plot_rf_vs_accuracy(analysis: Analysis, out: Path, subtitle: str) -> list[Pa
     size = v.groupby("rf")["rf"].transform("size")
     v["rf_drawn"] = v["rf"] + 0.25 * (rank - (size - 1) / 2)
     fig, (ax,) = _figure("Validation accuracy vs receptive field", subtitle)
+    _hollow_key(ax)
     _points(ax, v, "rf_drawn")
     _mark(ax, v, "rf_drawn", analysis)
     ax.xaxis.set_major_locator(MaxNLocator(integer=True))
     ax.set_xlabel("theoretical receptive field at the head (input pixels; equal values dodged)")
-    _percent_axis(ax, "validation accuracy (mean, 95% CI)")
-    _legend_below(fig, ax, len(v) + 2)
+    _percent_axis(ax, "validation accuracy (95% bootstrap CI)")
+    _legend_below(fig, ax, len(v) + 3)
     return _save(fig, out, "rf_vs_accuracy")
 
 
@@ -287,7 +293,7 @@ def plot_learning_curves(analysis: Analysis, out: Path, subtitle: str) -> list[P
 def heatmap_limits(means: np.ndarray, halves: np.ndarray) -> tuple[float, float]:
     """Colour limits for the grid: the range of the means, widened (about its middle, within
     [0, 1]) to at least one typical 95% interval (the median of the cells' full widths), so
-    that cells which differ by less than the seed-to-seed noise do not look far apart."""
+    that cells which differ by less than the noise (seeds and images) do not look far apart."""
     finite = means[np.isfinite(means)]
     if not finite.size:
         return 0.0, 1.0
@@ -303,7 +309,7 @@ def heatmap_limits(means: np.ndarray, halves: np.ndarray) -> tuple[float, float]
 def plot_grid_heatmap(analysis: Analysis, out: Path, subtitle: str) -> list[Path]:
     table = analysis.grid
     assert table is not None
-    fig, (ax,) = _figure("Mean validation accuracy over the grid", subtitle)
+    fig, (ax,) = _figure("Validation accuracy over the grid", subtitle)
     ax.grid(False)
     data = table.to_numpy(dtype=float)
     halves = (
@@ -327,7 +333,7 @@ def plot_grid_heatmap(analysis: Analysis, out: Path, subtitle: str) -> list[Path
             text += f"\n±{100 * halves[r, c]:.2f} pp"
         colour = "white" if value < middle else "black"
         ax.text(c, r, text, ha="center", va="center", fontsize=8, color=colour)
-    label = "validation accuracy\n(cell: mean over seeds ± half-width of its 95% CI)"
+    label = "validation accuracy\n(cell: seeds × images ± half-width of its 95% bootstrap CI)"
     bar = fig.colorbar(image, ax=ax, label=label)
     bar.formatter = PercentFormatter(xmax=1.0, decimals=1)
     bar.update_ticks()
