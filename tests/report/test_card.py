@@ -118,3 +118,14 @@ def test_the_variants_table_has_a_row_per_variant_with_its_difference():
         assert any(x.startswith(f"| {name}") for x in text.splitlines()), name
     line = next(x for x in text.splitlines() if x.startswith("| cheap | `body=cheap` |"))
     assert "-0.50 pp [" in line
+
+
+def test_when_every_plan_costs_more_the_verdict_says_so():
+    # "cheap" made the costliest: no plan is cheaper than the baseline.
+    p = plan()
+    p["variants"][1]["macs"] = 9000
+    a = analyze_rows(with_predictions(rows()), [], p, [], data_json(), PickSpec())
+    head = first_paragraph(render_card(a, card_context()))
+    assert head.startswith("**Keep the baseline base**")
+    assert "Every other plan costs more MACs than the baseline" in head
+    assert "none is shown better than it" in head

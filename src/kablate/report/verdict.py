@@ -54,14 +54,24 @@ def headline(a: Analysis, cost_label: str) -> list[str]:
     where = f"{d.n_seeds} seed(s) × {d.n_images} validation images"
     if d.keeps_baseline:
         first = f"**Keep the baseline {d.baseline}** (`{v.loc[rec, 'plan']}`)."
-        if d.rule == "margin":
+        closest = closest_cheaper(a)
+        if d.rule == "margin" and closest is None:
+            first += (
+                f" Every other plan costs more {cost_label} than the baseline, so none can be "
+                "recommended for being as good"
+            )
+            first += (
+                f"; shown better than it, and worth weighing: {', '.join(d.worth_cost)}"
+                if d.worth_cost
+                else f", and none is shown better than it ({where})"
+            )
+            first += "."
+        elif d.rule == "margin":
             first += (
                 f" No plan cheaper by {cost_label} is shown to lose less than "
                 f"{100 * d.margin:.2f} pp of validation accuracy ({where})."
+                f" The closest, {closest.name}: {diff_prose(closest)}."
             )
-            closest = closest_cheaper(a)
-            if closest is not None:
-                first += f" The closest, {closest.name}: {diff_prose(closest)}."
     else:
         c = d.contrasts[rec]
         first = (
