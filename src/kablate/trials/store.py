@@ -25,10 +25,10 @@ from pathlib import Path
 
 import optuna
 from optuna.storages import JournalStorage, RDBStorage
-from optuna.storages.journal import JournalFileBackend
 from optuna.trial import FrozenTrial
 
 from kablate.errors import UsageError
+from kablate.trials.journal import GuardedJournal, ReadOnlyJournal
 
 JOURNAL = "study.journal"
 LOCKS = "locks"
@@ -97,10 +97,13 @@ def engine_url(url: str) -> str:
     return url
 
 
-def open_storage(results_dir: Path, url: str | None) -> optuna.storages.BaseStorage:
+def open_storage(
+    results_dir: Path, url: str | None, read_only: bool = False
+) -> optuna.storages.BaseStorage:
+    """The study's storage; the journal file is repaired first unless ``read_only`` (journal.py)."""
     if url is None:
-        results_dir.mkdir(parents=True, exist_ok=True)
-        return JournalStorage(JournalFileBackend(str(results_dir / JOURNAL)))
+        path = results_dir / JOURNAL
+        return JournalStorage(ReadOnlyJournal(path) if read_only else GuardedJournal(path))
     for attempt in range(3):
         try:
             return _rdb_storage(url)
@@ -138,8 +141,12 @@ def storage_exists(results_dir: Path, url: str | None) -> bool:
 
 
 def open_study(name: str, results_dir: Path, url: str | None, create: bool = True) -> optuna.Study:
-    """Open (or create) the sweep's study. Every trial is one (variant, seed)."""
-    storage = open_storage(results_dir, url)
+    """Open (or create) the sweep's study. Every trial is one (variant, seed).
+
+    Without ``create`` the study is only read: a journal file is not written to, not even to
+    repair a torn tail (`status` and `report` may run beside a live run, or on a full disk).
+    """
+    storage = open_storage(results_dir, url, read_only=not create)
     if create:
         return optuna.create_study(
             study_name=name,
