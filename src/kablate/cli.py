@@ -12,7 +12,7 @@ from pathlib import Path
 import click
 
 from kablate import __version__
-from kablate.errors import KablateError, UsageError
+from kablate.errors import EXIT_STOPPED, DiskFullError, KablateError, UsageError, is_disk_full
 
 EPILOG_PLAN = """\b
 Example:
@@ -51,17 +51,20 @@ def parse_duration(text: str) -> float:
 
 
 class KablateGroup(click.Group):
-    """Turns our usage errors into one line on stderr and exit code 2, with no traceback."""
+    """Turns our errors into one line on stderr and their exit code (errors.py), no traceback."""
 
     def invoke(self, ctx: click.Context):
         try:
             return super().invoke(ctx)
-        except UsageError as exc:
-            click.echo(f"error: {exc}", err=True)
-            sys.exit(2)
         except KablateError as exc:
             click.echo(f"error: {exc}", err=True)
-            sys.exit(1)
+            sys.exit(exc.exit_code)
+        except OSError as exc:
+            if not is_disk_full(exc):
+                raise
+            error = DiskFullError(exc.filename or Path.cwd())
+            click.echo(f"error: {error}", err=True)
+            sys.exit(error.exit_code)
 
 
 @click.group(cls=KablateGroup, context_settings={"help_option_names": ["-h", "--help"]})
@@ -150,7 +153,7 @@ def plan(sweep: Path, fmt: str, latency: bool, threads: int | None) -> None:
     "--device",
     default="cpu",
     show_default=True,
-    help="torch device for training: cpu, or cuda when present.",
+    help="torch device for training: cpu, or cuda / cuda:N when present (checked first).",
 )
 @click.option(
     "--dry-run",
@@ -171,14 +174,10 @@ def run(
 ) -> None:
     """Train every (variant, seed) trial of a sweep, then write the report."""
     from kablate.report.build import write_report
+    from kablate.trials.outcome import verdict
     from kablate.trials.results import open_results
     from kablate.trials.runner import RunOptions, run_sweep
 
-    if device.startswith("cuda"):
-        import torch
-
-        if not torch.cuda.is_available():
-            raise UsageError("--device cuda was asked for, but torch sees no CUDA device")
     opts = RunOptions(
         results_root=results_root,
         storage=storage,
@@ -194,23 +193,26 @@ def run(
     summary = run_sweep(sweep, opts)
     if dry_run:
         return
+    code, why = verdict(summary)
     counts = ", ".join(f"{n} {s}" for s, n in sorted(summary.counts.items()))
-    if summary.n_ran == 0 and not summary.interrupted:
+    if summary.n_to_run == 0:
         click.echo(
             f"nothing new to train: all {summary.n_jobs} trials were already finished ({counts})"
         )
-    else:
+    elif counts:
         click.echo(f"ran {summary.n_ran} trials in {time.time() - start:.0f}s; sweep now: {counts}")
-    if summary.interrupted:
+    if code == EXIT_STOPPED:
         click.echo(
             "stopped: the interrupted trials are back in the queue and resume from their last "
             f"epoch checkpoint. Resume with the same command: {opts.command}",
             err=True,
         )
-        sys.exit(130)
-    if not no_report:
+    if not no_report and code != EXIT_STOPPED and summary.counts.get("done"):
         path = write_report(open_results(summary.results_dir, storage))
         click.echo(f"report: {path}")
+    if why:
+        click.echo(f"error: {why}", err=True)
+    sys.exit(code)
 
 
 @main.command(epilog=EPILOG_STATUS)

@@ -28,6 +28,7 @@ from optuna.storages import JournalStorage, RDBStorage
 from optuna.trial import FrozenTrial
 
 from kablate.errors import UsageError
+from kablate.trials.jobs import Job
 from kablate.trials.journal import GuardedJournal, ReadOnlyJournal
 
 JOURNAL = "study.journal"
@@ -79,7 +80,7 @@ def requeue(study: optuna.Study, trial: FrozenTrial) -> None:
     """Put the job of a failed (abandoned or interrupted) trial back in the queue."""
     if not trial.user_attrs.get("job"):
         return
-    attrs = {k: trial.user_attrs[k] for k in ("job", "variant", "variant_id", "seed")}
+    attrs = Job.from_attrs(trial.user_attrs).attrs()
     study.enqueue_trial({}, user_attrs=attrs)
     logging.getLogger("kablate").warning(
         "trial %s had lost its worker: back in the queue", attrs["job"]
