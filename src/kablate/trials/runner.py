@@ -39,6 +39,7 @@ from kablate.trials.store import (
     redact,
     resolve_url,
     storage_exists,
+    strip_password,
 )
 
 log = logging.getLogger("kablate")
@@ -114,8 +115,8 @@ def write_manifest(
             "file_sha256": file_sha256(Path(sweep.source)),
             "seeds": list(sweep.seeds),
             "baseline": catalog.baseline.variant.id,
-            "storage_url": redact(url) if url else None,
-            "storage": redact(url) if url else JOURNAL,
+            "storage_url": strip_password(url) if url else None,
+            "storage": strip_password(url) if url else JOURNAL,
             "command": redact(sanitize(opts.command)),
             "environment": environment(),
             "workers": layout[0],
