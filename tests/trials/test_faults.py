@@ -169,7 +169,9 @@ def test_a_torn_and_garbage_journal_is_repaired_and_the_sweep_finishes(tiny_swee
     status = kablate("status", str(results / "tiny"))
     assert status.exit_code == EXIT_OK, status.output
     assert "3/4 done, 1 running" in status.output
-    assert path.read_bytes() == damaged
+    report = kablate("report", str(results / "tiny"), "--no-erf")
+    assert report.exit_code == EXIT_OK, report.output
+    assert path.read_bytes() == damaged  # neither reader wrote to the journal
 
     again = run(tiny_sweep, results)
     assert again.exit_code == EXIT_OK, again.output
@@ -197,12 +199,15 @@ def small_tmpfs(tmp_path):
 
 
 @pytest.mark.slow
-def test_a_real_full_disk_stops_the_run_and_freeing_space_finishes_it(tiny_sweep, small_tmpfs):
+@pytest.mark.parametrize("workers", ["1", "2"])
+def test_a_real_full_disk_stops_the_run_and_freeing_space_finishes_it(
+    tiny_sweep, small_tmpfs, workers
+):
     filler = small_tmpfs / "filler"
     free = shutil.disk_usage(small_tmpfs).free
     filler.write_bytes(b"\0" * (free - 150 * 1024))  # room for about one trial
     results = small_tmpfs / "results"
-    cmd = [sys.executable, "-m", "kablate", "run", str(tiny_sweep), "--workers", "1"]
+    cmd = [sys.executable, "-m", "kablate", "run", str(tiny_sweep), "--workers", workers]
     cmd += ["--results", str(results), "--no-report"]
     full = subprocess.run(cmd, capture_output=True, text=True, timeout=240)
     assert full.returncode == EXIT_DISK_FULL, full.stderr

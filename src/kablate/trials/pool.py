@@ -281,7 +281,7 @@ def supervise(procs, args, workers, stop, state) -> None:
         if finished != progress.n:
             status = summarize("", rows, study.get_trials(deepcopy=False), datetime.now(), {})
             progress.update(finished, status)
-        for proc in [p for p in procs if not p.is_alive() and p.exitcode not in (0, 130)]:
+        for proc in [p for p in procs if not p.is_alive() and p.exitcode not in (0, EXIT_STOPPED)]:
             procs.remove(proc)
             proc.join()
             if proc.exitcode == EXIT_DISK_FULL and not outcome.disk_full:
