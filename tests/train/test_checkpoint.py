@@ -45,6 +45,10 @@ def numbers(record) -> list:
     ]
 
 
+class Foreign:
+    """An object torch's safe loader refuses to unpickle."""
+
+
 def torch_bytes(value, tmp_path) -> bytes:
     torch.save(value, tmp_path / "x.pt")
     return (tmp_path / "x.pt").read_bytes()
@@ -58,6 +62,7 @@ def torch_bytes(value, tmp_path) -> bytes:
         pytest.param(lambda good, tmp: b"", id="empty"),
         pytest.param(lambda good, tmp: torch_bytes(torch.ones(3), tmp), id="a-bare-tensor"),
         pytest.param(lambda good, tmp: torch_bytes({"epoch": 1}, tmp), id="foreign-dict"),
+        pytest.param(lambda good, tmp: torch_bytes({"x": Foreign()}, tmp), id="foreign-object"),
     ],
 )
 def test_an_unreadable_checkpoint_is_set_aside_and_the_trial_trains_from_epoch_0(
@@ -75,6 +80,7 @@ def test_an_unreadable_checkpoint_is_set_aside_and_the_trial_trains_from_epoch_0
     aside = workdir / f"{CHECKPOINT}.unreadable-1"
     assert aside.read_bytes() == bad
     assert str(workdir / CHECKPOINT) in caplog.text and aside.name in caplog.text
+    assert "weights_only" not in caplog.text  # no advice to load what the safe loader refused
     assert torch.load(workdir / CHECKPOINT, weights_only=True)["epoch"] == recipe.epochs - 1
 
 

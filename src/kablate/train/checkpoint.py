@@ -92,8 +92,14 @@ def read_or_set_aside(path: Path) -> dict[str, Any] | None:
 
 
 def one_line(exc: BaseException) -> str:
-    """``Type: first line of the message``, at most 160 characters."""
+    """``Type: first line of the message``, at most 160 characters.
+
+    torch's refusal to unpickle an object suggests ``weights_only=False``, which would run
+    whatever the file holds; that advice is not passed on.
+    """
     first = (str(exc).strip().splitlines() or [""])[0]
+    if "weights only" in first.lower() or "weights_only" in first:
+        first = "torch's safe loader refused what it holds"
     return f"{type(exc).__name__}: {first}"[:160]
 
 
