@@ -9,6 +9,12 @@ the workers are what is measured. Printed per case: the exit code, jobs complete
 jobs completed twice or never, failed trials, lock or storage errors in the output and in
 run.log, and the wall time with trials per second.
 Run: python tests/bench/bench_load.py [n_journal] [n_postgres]
+
+Measured once on the shared 2-core development machine (other work running):
+  journal    500 trials x 2 workers: exit 0, done once 500, twice 0, never 0, failed 0,
+             lock/storage errors 0, 32 s (15.5 trials/s)
+  postgres   200 trials x 4 workers: exit 0, done once 200, twice 0, never 0, failed 0,
+             lock/storage errors 0, 95 s (2.1 trials/s)
 """
 
 from __future__ import annotations
