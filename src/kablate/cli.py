@@ -15,7 +15,7 @@ from pathlib import Path
 import click
 
 from kablate import __version__
-from kablate.errors import KablateError, UsageError
+from kablate.errors import EXIT_STOPPED, DiskFullError, KablateError, UsageError, is_disk_full
 
 EPILOG_PLAN = """\b
 Example:
@@ -72,23 +72,26 @@ def started() -> None:
 
 
 class KablateGroup(click.Group):
-    """Turns our usage errors into one line on stderr and exit code 2, with no traceback, and
-    Ctrl-C into exit code 130 with one line."""
+    """Turns our errors into one line on stderr and their exit code (errors.py), with no
+    traceback, and Ctrl-C into exit code 130 with one line."""
 
     def invoke(self, ctx: click.Context):
         main_thread = threading.current_thread() is threading.main_thread()
         previous = signal.signal(signal.SIGINT, quit_while_starting) if main_thread else None
         try:
             return super().invoke(ctx)
-        except UsageError as exc:
+        except KablateError as exc:
             click.echo(f"error: {exc}", err=True)
-            sys.exit(2)
+            sys.exit(exc.exit_code)
         except KeyboardInterrupt:
             click.echo("interrupted (Ctrl-C)", err=True)
             sys.exit(130)
-        except KablateError as exc:
-            click.echo(f"error: {exc}", err=True)
-            sys.exit(1)
+        except OSError as exc:
+            if not is_disk_full(exc):
+                raise
+            error = DiskFullError(exc.filename or Path.cwd())
+            click.echo(f"error: {error}", err=True)
+            sys.exit(error.exit_code)
         finally:
             if previous is not None:
                 signal.signal(signal.SIGINT, previous)
@@ -184,7 +187,7 @@ def plan(sweep: Path, fmt: str, latency: bool, threads: int | None) -> None:
     "--device",
     default="cpu",
     show_default=True,
-    help="torch device for training: cpu, or cuda when present.",
+    help="torch device for training: cpu, or cuda / cuda:N when present (checked first).",
 )
 @click.option(
     "--dry-run",
@@ -205,15 +208,11 @@ def run(
 ) -> None:
     """Train every (variant, seed) trial of a sweep, then write the report."""
     from kablate.report.build import write_report
+    from kablate.trials.outcome import verdict
     from kablate.trials.results import open_results
     from kablate.trials.runner import RunOptions, run_sweep
 
     started()
-    if device.startswith("cuda"):
-        import torch
-
-        if not torch.cuda.is_available():
-            raise UsageError("--device cuda was asked for, but torch sees no CUDA device")
     opts = RunOptions(
         results_root=results_root,
         storage=storage,
@@ -229,23 +228,26 @@ def run(
     summary = run_sweep(sweep, opts)
     if dry_run:
         return
+    code, why = verdict(summary)
     counts = ", ".join(f"{n} {s}" for s, n in sorted(summary.counts.items()))
-    if summary.n_ran == 0 and not summary.interrupted:
+    if summary.n_to_run == 0:
         click.echo(
             f"nothing new to train: all {summary.n_jobs} trials were already finished ({counts})"
         )
-    else:
+    elif counts:
         click.echo(f"ran {summary.n_ran} trials in {time.time() - start:.0f}s; sweep now: {counts}")
-    if summary.interrupted:
+    if code == EXIT_STOPPED:
         click.echo(
             "stopped: the interrupted trials are back in the queue and resume from their last "
             f"epoch checkpoint. Resume with the same command: {opts.command}",
             err=True,
         )
-        sys.exit(130)
-    if not no_report:
+    if not no_report and code != EXIT_STOPPED and summary.counts.get("done"):
         path = write_report(open_results(summary.results_dir, storage))
         click.echo(f"report: {path}")
+    if why:
+        click.echo(f"error: {why}", err=True)
+    sys.exit(code)
 
 
 @main.command(epilog=EPILOG_STATUS)

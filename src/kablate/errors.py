@@ -1,20 +1,53 @@
-"""The exceptions kablate raises on purpose.
+"""The exceptions kablate raises on purpose, and the exit codes of the command line.
 
 `KablateError` is the base. `UsageError` (and its subclasses) means the user gave us something
 we cannot use: the CLI prints its message and exits with code 2, without a traceback.
+`DiskFullError` stops a run without failing its trials (exit code 4). Each class carries its
+exit code; the README's exit-code table lists the same codes.
 """
 
 from __future__ import annotations
 
+import errno
 from difflib import get_close_matches
+from pathlib import Path
+
+EXIT_OK = 0  # every trial finished, or the budget ended the run as planned
+EXIT_ERROR = 1  # a KablateError that is not the user's input
+EXIT_USAGE = 2  # bad input: sweep file, command line, data, storage URL
+EXIT_TRIALS = 3  # trials failed, or none could run
+EXIT_DISK_FULL = 4  # no space left: the run stopped, its trials are back in the queue
+EXIT_STOPPED = 130  # Ctrl-C or SIGTERM: the run stopped, its trials are back in the queue
+
+DISK_FULL_ERRNOS = (errno.ENOSPC, errno.EDQUOT)
 
 
 class KablateError(Exception):
     """Base class for every error kablate raises on purpose."""
 
+    exit_code = EXIT_ERROR
+
 
 class UsageError(KablateError):
     """Bad input from the user: a sweep file, a command-line value, a missing dataset."""
+
+    exit_code = EXIT_USAGE
+
+
+class DiskFullError(KablateError):
+    """No space (or quota) left while writing ``path``; nothing is lost, the run must stop."""
+
+    exit_code = EXIT_DISK_FULL
+
+    def __init__(self, path: Path | str, detail: str = "") -> None:
+        self.path = str(path)
+        more = f" ({detail})" if detail else ""
+        super().__init__(f"disk full at {self.path}{more}: free space and rerun the same command")
+
+
+def is_disk_full(exc: BaseException) -> bool:
+    """Whether ``exc`` is an OSError for a full disk or an exhausted quota."""
+    return isinstance(exc, OSError) and exc.errno in DISK_FULL_ERRNOS
 
 
 class SweepError(UsageError):

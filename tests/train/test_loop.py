@@ -11,7 +11,7 @@ import torch
 import kablate.train.loop as loop
 from kablate.costs.catalog import build_catalog
 from kablate.data import prepare_data
-from kablate.errors import KablateError
+from kablate.errors import SweepError
 from kablate.spec import load_sweep
 from kablate.spec.schema import AugmentSpec
 from kablate.train import TrialInterrupted, train_trial
@@ -149,7 +149,7 @@ def test_best_epoch_is_chosen_on_the_early_stopping_fold_never_on_validation(tin
 def test_best_without_an_early_stopping_fold_is_refused(tmp_path):
     path = tmp_path / "best.toml"
     path.write_text(SWEEP.replace("warmup_epochs = 0.5", 'warmup_epochs = 0.5\ntest_from = "best"'))
-    with pytest.raises(KablateError, match="data.stop_size"):
+    with pytest.raises(SweepError, match="data.stop_size"):
         load_sweep(path)
 
 
@@ -296,15 +296,6 @@ def test_an_interrupted_trial_resumes_to_the_numbers_of_an_uninterrupted_one(tin
     # Running a finished trial again trains nothing and reports the same numbers.
     again = train_trial(layouts["all-3"], recipe, data, seed=3, workdir=workdir)
     assert curve_values(again) == curve_values(whole) and again.test_acc == whole.test_acc
-
-
-@pytest.mark.slow
-def test_a_checkpoint_of_another_trial_is_not_resumed(tiny, tmp_path):
-    recipe, data, layouts = tiny
-    short = dataclasses.replace(recipe, epochs=1)
-    train_trial(layouts["all-3"], short, data, seed=0, workdir=tmp_path)
-    with pytest.raises(KablateError, match="belongs to another trial"):
-        train_trial(layouts["all-3"], short, data, seed=1, workdir=tmp_path)
 
 
 def test_a_failed_checkpoint_write_leaves_the_previous_file(tmp_path):

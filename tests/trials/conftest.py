@@ -14,6 +14,8 @@ import shutil
 import socket
 import subprocess
 import tempfile
+from collections.abc import Iterator
+from contextlib import contextmanager
 from pathlib import Path
 
 import pytest
@@ -32,9 +34,12 @@ def free_port() -> int:
         return sock.getsockname()[1]
 
 
-@pytest.fixture(scope="session")
-def postgres_server():
-    """(host URL without a database, password) of a fresh PostgreSQL cluster."""
+@contextmanager
+def throwaway_postgres(max_connections: int = 200) -> Iterator[tuple[str, str]]:
+    """(host URL without a database, password) of a fresh PostgreSQL cluster, stopped after.
+
+    Also used by tests/bench/bench_load.py.
+    """
     for binary in ("initdb", "pg_ctl", "postgres"):
         assert shutil.which(binary), f"{binary} is not on PATH: the PostgreSQL tests need it"
     root = Path(tempfile.mkdtemp(prefix="kablate-pg-"))
@@ -60,7 +65,7 @@ def postgres_server():
     )
     options = (
         f"-c listen_addresses=127.0.0.1 -p {port} -k {root} -c fsync=off "
-        "-c synchronous_commit=off -c full_page_writes=off -c max_connections=200"
+        f"-c synchronous_commit=off -c full_page_writes=off -c max_connections={max_connections}"
     )
     as_postgres(["pg_ctl", "-D", str(data), "-o", options, "-l", str(root / "log"), "-w", "start"])
     try:
@@ -70,20 +75,32 @@ def postgres_server():
         shutil.rmtree(root, ignore_errors=True)
 
 
-@pytest.fixture
-def postgres_url(postgres_server, monkeypatch) -> str:
-    """A fresh database on the server; its password travels in ``PGPASSWORD`` only."""
+def create_database(host_url: str, password: str) -> str:
+    """A fresh database on the server; its URL (the password is not in it)."""
     import psycopg2
 
-    host_url, password = postgres_server
-    monkeypatch.setenv("PGPASSWORD", password)
     name = "t" + secrets.token_hex(6)
-    conn = psycopg2.connect(host_url + "/postgres")
+    conn = psycopg2.connect(host_url + "/postgres", password=password)
     conn.autocommit = True
     with conn.cursor() as cur:
         cur.execute(f"CREATE DATABASE {name}")
     conn.close()
     return f"{host_url}/{name}"
+
+
+@pytest.fixture(scope="session")
+def postgres_server():
+    """(host URL without a database, password) of a fresh PostgreSQL cluster."""
+    with throwaway_postgres() as server:
+        yield server
+
+
+@pytest.fixture
+def postgres_url(postgres_server, monkeypatch) -> str:
+    """A fresh database on the server; its password travels in ``PGPASSWORD`` only."""
+    host_url, password = postgres_server
+    monkeypatch.setenv("PGPASSWORD", password)
+    return create_database(host_url, password)
 
 
 @pytest.fixture(params=["journal", pytest.param("postgres", marks=pytest.mark.postgres)])

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import json
 import os
+import re
 import signal
 import subprocess
 import sys
@@ -209,10 +210,13 @@ def test_two_machines_share_one_postgres_sweep(tiny_sweep, tmp_path, postgres_ur
         )
         for root in (a, b)
     ]
+    n_ran = []
     for proc in procs:
         out, err = proc.communicate(timeout=240)
         assert proc.returncode == 0, err
         assert os.environ["PGPASSWORD"] not in out + err
+        n_ran.append(int(re.search(r"ran (\d+) trials", out).group(1)))
+    assert sum(n_ran) == JOBS  # each runner counts only the trials its own worker ran
     trials = assert_each_job_done_once(a, postgres_url)
     # Both runners enqueued the jobs at once; the extra copies were refused at claim time.
     extra = [t for t in trials if t.state == TrialState.FAIL]

@@ -33,11 +33,10 @@ from torch import nn
 
 from kablate.data.batches import eval_batches, train_batches
 from kablate.data.prepare import PreparedData, Split
-from kablate.errors import KablateError
 from kablate.nets.build import build_network
 from kablate.nets.layout import Layout
 from kablate.spec.schema import RecipeSpec
-from kablate.train.checkpoint import load_checkpoint, save_checkpoint
+from kablate.train.checkpoint import read_or_set_aside, resume_problem, save_checkpoint, set_aside
 from kablate.train.evidence import encode_predictions
 from kablate.train.record import EpochRecord, TrialRecord
 from kablate.train.schedule import get_lr_factor
@@ -183,15 +182,18 @@ def trial_identity(layout: Layout, recipe: RecipeSpec, data: PreparedData, seed:
 def restore(
     path: Path | None, identity: str, model: nn.Module, optimizer: torch.optim.Optimizer
 ) -> Progress | None:
-    """Load the checkpoint into ``model`` and ``optimizer``; None when there is none."""
-    saved = load_checkpoint(path) if path is not None else None
+    """Load the checkpoint into ``model`` and ``optimizer``; None when there is none to resume.
+
+    A checkpoint that cannot be read, belongs to another trial or does not fit the model is
+    set aside with a warning (train/checkpoint.py), and None is returned: start from epoch 0.
+    """
+    saved = read_or_set_aside(path) if path is not None else None
     if saved is None:
         return None
-    if saved.get("identity", identity) != identity:
-        raise KablateError(
-            f"{path} belongs to another trial ({saved['identity']}), not to {identity}; "
-            "move it away to train this trial from the start"
-        )
+    problem = resume_problem(saved, identity, model.state_dict())
+    if problem is not None:
+        set_aside(path, *problem)
+        return None
     model.load_state_dict(saved["model"])
     optimizer.load_state_dict(saved["optimizer"])
     torch.set_rng_state(saved["rng"])
@@ -249,7 +251,7 @@ def train_trial(
 
     Raises:
         TrialInterrupted: ``should_stop()`` became true; the last epoch checkpoint remains.
-        KablateError: the checkpoint in ``workdir`` belongs to a different trial.
+        DiskFullError: too little space left for the next checkpoint.
     """
     torch.set_num_threads(threads)
     dev = torch.device(device)

@@ -20,6 +20,11 @@ class Job:
         """Stable across reruns; names the trial's artifact folder."""
         return f"{self.variant_id}-s{self.seed}"
 
+    @classmethod
+    def from_attrs(cls, attrs: dict) -> Job:
+        """The job a trial was enqueued for, from its user attributes (`attrs`)."""
+        return cls(attrs["variant_id"], attrs["variant"], int(attrs["seed"]))
+
     def attrs(self) -> dict:
         return {
             "job": self.key,

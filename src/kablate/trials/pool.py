@@ -12,9 +12,11 @@ import logging
 import multiprocessing as mp
 import os
 import signal
+import socket
 import sys
 import time
 from collections.abc import Callable
+from dataclasses import dataclass, field
 from datetime import datetime
 from pathlib import Path
 
@@ -22,6 +24,7 @@ from tqdm import tqdm
 
 from kablate.costs.catalog import build_catalog
 from kablate.data.prepare import prepare_data
+from kablate.errors import EXIT_DISK_FULL, EXIT_STOPPED, DiskFullError, is_disk_full
 from kablate.spec.loader import load_sweep
 from kablate.trials.export import collect_trials
 from kablate.trials.jobs import sweep_jobs
@@ -36,6 +39,15 @@ log = logging.getLogger("kablate")
 FILE_ONLY = "file_only"  # a log record with this extra set to True skips the console
 
 
+class RunLogHandler(logging.FileHandler):
+    """run.log: a line that does not fit on a full disk is dropped without a traceback (the
+    console still shows it, and the run stops with its own message)."""
+
+    def handleError(self, record: logging.LogRecord) -> None:  # noqa: N802 (logging's name)
+        if not is_disk_full(sys.exc_info()[1]):
+            super().handleError(record)
+
+
 def setup_logging(results_dir: Path, to_console: bool) -> None:
     logger = logging.getLogger("kablate")
     logger.setLevel(logging.INFO)
@@ -43,7 +55,7 @@ def setup_logging(results_dir: Path, to_console: bool) -> None:
         logger.removeHandler(handler)
     fmt = logging.Formatter("%(asctime)s %(levelname)s %(message)s", "%Y-%m-%d %H:%M:%S")
     results_dir.mkdir(parents=True, exist_ok=True)
-    file_handler = logging.FileHandler(results_dir / "run.log")
+    file_handler = RunLogHandler(results_dir / "run.log")
     file_handler.setFormatter(fmt)
     logger.addHandler(file_handler)
     if to_console:
@@ -124,7 +136,10 @@ def _worker_main(
     try:
         work(ctx)
     except TrialInterrupted:
-        sys.exit(130)
+        sys.exit(EXIT_STOPPED)
+    except DiskFullError as exc:
+        log.error("%s", exc)
+        sys.exit(EXIT_DISK_FULL)
 
 
 class Progress:
@@ -156,13 +171,23 @@ class Progress:
         self.bar.close()
 
 
+@dataclass
+class PoolOutcome:
+    """What the workers of one run did."""
+
+    worker_names: set[str] = field(default_factory=set)  # host:pid of every worker started
+    interrupted: bool = False
+    disk_full: str = ""  # the message, when a worker ran out of disk space
+
+
 def run_workers(sweep_path, results_dir, opts, url, layout, deadline, seconds, state, progress):
-    """Run the workers (in this process when there is one); (trials run, interrupted)."""
+    """Run the workers (in this process when there is one); a `PoolOutcome`."""
     from kablate.train.loop import TrialInterrupted, warm_up
 
     catalog, data, study, liveness, plan, jobs = state
     workers, threads = layout
     procs: list = []
+    outcome = PoolOutcome()
 
     def forward(signum: int) -> None:
         for proc in procs:
@@ -171,7 +196,6 @@ def run_workers(sweep_path, results_dir, opts, url, layout, deadline, seconds, s
 
     stop = StopFlag(forward if workers > 1 else None)
     stop.install()
-    n_before = progress.n
     try:
         if workers == 1:
             ctx = WorkerContext(
@@ -193,6 +217,7 @@ def run_workers(sweep_path, results_dir, opts, url, layout, deadline, seconds, s
                 counts = [r["status"] for r in rows]
                 progress.update(counts.count("done") + counts.count("diverged"))
 
+            outcome.worker_names.add(ctx.worker_name)
             warm_up(catalog.sweep.recipe)
             with contextlib.suppress(TrialInterrupted):
                 work(ctx, on_finish=on_finish)
@@ -206,7 +231,10 @@ def run_workers(sweep_path, results_dir, opts, url, layout, deadline, seconds, s
                 deadline,
                 seconds,
             )
-            supervise(procs, args, workers, stop, study, plan, progress)
+            supervise(procs, args, workers, stop, (study, plan, progress, outcome, results_dir))
+    except DiskFullError as exc:
+        log.error("%s", exc)
+        outcome.disk_full = str(exc)
     except KeyboardInterrupt:
         log.warning("second stop request: stopping the workers now")
         for proc in procs:
@@ -219,22 +247,28 @@ def run_workers(sweep_path, results_dir, opts, url, layout, deadline, seconds, s
         progress.close()
         signal.signal(signal.SIGINT, signal.default_int_handler)
         signal.signal(signal.SIGTERM, signal.SIG_DFL)
-    rows, _ = collect_trials(study, plan)
-    statuses = [r["status"] for r in rows]
-    return statuses.count("done") + statuses.count("diverged") - n_before, stop.stopped
+    outcome.interrupted = stop.stopped and not outcome.disk_full
+    return outcome
 
 
 POLL_SECONDS = 2.0
 
 
-def supervise(procs, args, workers, stop, study, plan, progress) -> None:
-    """Start the worker processes, follow their progress, and replace one that dies."""
+def supervise(procs, args, workers, stop, state) -> None:
+    """Start the worker processes, follow their progress, and replace one that dies.
+
+    A worker that ran out of disk space (exit code 4) stops the others: each puts its trial
+    back in the queue, and `outcome.disk_full` says so.
+    """
+    study, plan, progress, outcome, results_dir = state
     ctx = mp.get_context("spawn")
+    host = socket.gethostname()
 
     def start() -> None:
         proc = ctx.Process(target=_worker_main, args=args, daemon=False)
         proc.start()
         procs.append(proc)
+        outcome.worker_names.add(f"{host}:{proc.pid}")
 
     for _ in range(workers):
         start()
@@ -247,9 +281,13 @@ def supervise(procs, args, workers, stop, study, plan, progress) -> None:
         if finished != progress.n:
             status = summarize("", rows, study.get_trials(deepcopy=False), datetime.now(), {})
             progress.update(finished, status)
-        for proc in [p for p in procs if not p.is_alive() and p.exitcode not in (0, 130)]:
+        for proc in [p for p in procs if not p.is_alive() and p.exitcode not in (0, EXIT_STOPPED)]:
             procs.remove(proc)
             proc.join()
+            if proc.exitcode == EXIT_DISK_FULL and not outcome.disk_full:
+                outcome.disk_full = str(DiskFullError(results_dir, "run.log names the file"))
+                stop.stopped = True
+                stop.forward(signal.SIGINT)
             if stop.stopped or n_restarts >= 2 * workers:
                 continue
             # Its trial is recovered by the replacement (or another worker) before the next claim.

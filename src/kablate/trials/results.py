@@ -10,7 +10,7 @@ import optuna
 from kablate.errors import UsageError
 from kablate.trials.export import collect_trials
 from kablate.trials.meta import read_json
-from kablate.trials.store import open_study, resolve_url
+from kablate.trials.store import STORAGE_ENV, open_study, resolve_url, strip_password
 
 SWEEP_FILE = "sweep.json"
 PLAN_FILE = "plan.json"
@@ -45,5 +45,16 @@ def open_results(path: Path, storage: str | None = None) -> ResultsFolder:
         )
     meta = read_json(path / SWEEP_FILE)
     plan = read_json(path / PLAN_FILE)
-    url = resolve_url(storage) or meta.get("storage_url")
+    url = resolve_url(storage)
+    if url is None and meta.get("storage_url"):
+        # Without its password (an older folder may hold "***" in its place).
+        url = strip_password(meta["storage_url"])
+        try:
+            return ResultsFolder(path, meta, plan, open_study(meta["name"], path, url, False))
+        except UsageError as exc:
+            raise UsageError(
+                f"{exc}. {path / SWEEP_FILE} keeps the storage URL without its password: set "
+                f"PGPASSWORD, add a line to ~/.pgpass, or give the whole URL in ${STORAGE_ENV} "
+                "or --storage"
+            ) from None
     return ResultsFolder(path, meta, plan, open_study(meta["name"], path, url, create=False))

@@ -12,6 +12,7 @@ import sys
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
+from datetime import datetime
 from pathlib import Path
 
 from kablate.analysis.power import plan_note
@@ -20,6 +21,7 @@ from kablate.costs.export import variant_json
 from kablate.data.prepare import prepare_data
 from kablate.errors import UsageError
 from kablate.spec.loader import load_sweep
+from kablate.train.device import check_device
 from kablate.train.loop import warm_up
 from kablate.trials.budget import calibrate, format_plan, schedule
 from kablate.trials.environment import environment, sanitize
@@ -27,6 +29,7 @@ from kablate.trials.export import CURVE_COLUMNS, TRIAL_COLUMNS, collect_trials, 
 from kablate.trials.jobs import Job, sweep_jobs
 from kablate.trials.liveness import liveness_for
 from kablate.trials.meta import check_definition, definition, fingerprint, write_json
+from kablate.trials.outcome import FINISHED, failure_reasons, own_counts
 from kablate.trials.pool import FILE_ONLY, Progress, run_workers, setup_logging
 from kablate.trials.preflight import run_preflight, writable_folder
 from kablate.trials.queue import enqueue_missing, job_status, tagged_trials
@@ -38,6 +41,7 @@ from kablate.trials.store import (
     redact,
     resolve_url,
     storage_exists,
+    strip_password,
 )
 
 log = logging.getLogger("kablate")
@@ -67,6 +71,10 @@ class RunSummary:
     counts: dict[str, int] = field(default_factory=dict)
     layout: tuple[int, int] = (1, 1)
     estimate: str = ""  # the printed estimate (--budget, --dry-run)
+    n_to_run: int = 0  # trials not finished when the run started
+    budget_seconds: float = 0.0
+    failures: dict[str, int] = field(default_factory=dict)  # reason → failed trials
+    disk_full: str = ""  # the message, when a full disk stopped the run
 
 
 def choose_layout(n_workers: int, n_threads: int, n_jobs: int) -> tuple[int, int]:
@@ -109,8 +117,8 @@ def write_manifest(
             "file_sha256": file_sha256(Path(sweep.source)),
             "seeds": list(sweep.seeds),
             "baseline": catalog.baseline.variant.id,
-            "storage_url": redact(url) if url else None,
-            "storage": redact(url) if url else JOURNAL,
+            "storage_url": strip_password(url) if url else None,
+            "storage": strip_password(url) if url else JOURNAL,
             "command": redact(sanitize(opts.command)),
             "environment": environment(),
             "workers": layout[0],
@@ -218,9 +226,10 @@ def run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
     Raises:
         UsageError: a bad sweep file, a changed sweep definition, unusable storage.
     """
+    check_device(opts.device)
     if opts.dry_run:
         return dry_run(sweep_path, opts)
-    started = time.time()
+    started, started_at = time.time(), datetime.now()  # Optuna's trial times are naive local
     sweep = load_sweep(sweep_path)
     catalog = build_catalog(sweep)
     results_dir = opts.results_root / sweep.name
@@ -258,7 +267,8 @@ def run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
         *layout,
         redact(url) if url else results_dir / JOURNAL,
     )
-    summary = RunSummary(results_dir, len(jobs), n_new, 0, layout=layout)
+    summary = RunSummary(results_dir, len(jobs), n_new, 0, layout=layout, n_to_run=to_run)
+    summary.budget_seconds = opts.budget_seconds
     seconds: dict[str, float] = {}
     if to_run and opts.budget_seconds:
         done = finished_jobs(study, jobs)
@@ -271,7 +281,7 @@ def run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
             opts.echo(summary.estimate)
     if to_run:
         deadline = started + opts.budget_seconds if opts.budget_seconds else 0.0
-        summary.n_ran, summary.interrupted = run_workers(
+        pool = run_workers(
             sweep_path,
             results_dir,
             opts,
@@ -282,7 +292,14 @@ def run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
             (catalog, data, study, liveness, plan, jobs),
             Progress(len(jobs), n_finished, interactive),
         )
+        own = own_counts(study, pool.worker_names, started_at)
+        summary.n_ran = sum(own[s] for s in FINISHED)
+        summary.interrupted, summary.disk_full = pool.interrupted, pool.disk_full
+    if summary.disk_full:  # the study is consistent; writing the tables may not fit
+        summary.counts = {}
+        return summary
     summary.counts = export_results(results_dir, study, plan)
+    summary.failures = dict(failure_reasons(study, [j.key for j in jobs]))
     if summary.interrupted:
         log.warning("stopped; resume with the same command: %s", opts.command or "kablate run ...")
     return summary

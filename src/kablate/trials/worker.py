@@ -20,6 +20,7 @@ from optuna.trial import TrialState
 
 from kablate.costs.catalog import Catalog
 from kablate.data.prepare import PreparedData
+from kablate.errors import DiskFullError, is_disk_full
 from kablate.train.loop import TrialInterrupted, train_trial
 from kablate.train.record import TrialRecord
 from kablate.trials.jobs import Job
@@ -74,16 +75,44 @@ def record_attrs(record: TrialRecord) -> dict:
 
 
 def run_one(ctx: WorkerContext, claim: Claim) -> str:
-    """Train the claimed job and tell the study how it went; return its status."""
+    """Train the claimed job and tell the study how it went; return its status.
+
+    Raises:
+        DiskFullError: no space left; the job is back in the queue (or, if even that could not
+            be written, its trial stays RUNNING and the next run puts it back).
+    """
     try:
         return _train_and_tell(ctx, claim.trial, claim.key)
+    except DiskFullError as exc:
+        put_back(ctx, claim.trial, "disk-full")
+        raise exc from None
+    except OSError as exc:
+        if not is_disk_full(exc):
+            raise
+        put_back(ctx, claim.trial, "disk-full")
+        raise DiskFullError(exc.filename or trial_dir(ctx.results_dir, claim.key)) from None
     finally:
         ctx.liveness.release(claim.token)
 
 
+def put_back(ctx: WorkerContext, trial: optuna.Trial, outcome: str) -> None:
+    """End ``trial`` as FAIL with ``outcome`` and enqueue its job again; the trial was not at
+    fault (a stop request, a full disk). On a full disk this is best effort."""
+    try:
+        trial.set_user_attr("outcome", outcome)
+        ctx.study.tell(trial, state=TrialState.FAIL)
+        ctx.study.enqueue_trial({}, user_attrs=Job.from_attrs(trial.user_attrs).attrs())
+    except (DiskFullError, OSError) as exc:
+        if not isinstance(exc, DiskFullError) and not is_disk_full(exc):
+            raise
+        log.warning(
+            "trial %s could not be put back in the queue now (disk full); the next run does it",
+            trial.user_attrs.get("job"),
+        )
+
+
 def _train_and_tell(ctx: WorkerContext, trial: optuna.Trial, key: str) -> str:
-    attrs = trial.user_attrs
-    job = Job(attrs["variant_id"], attrs["variant"], int(attrs["seed"]))
+    job = Job.from_attrs(trial.user_attrs)
     item = next(v for v in ctx.catalog.variants if v.variant.id == job.variant_id)
     workdir = trial_dir(ctx.results_dir, key)
     trial.set_user_attr("worker", ctx.worker_name)
@@ -101,12 +130,14 @@ def _train_and_tell(ctx: WorkerContext, trial: optuna.Trial, key: str) -> str:
             should_stop=ctx.should_stop,
         )
     except TrialInterrupted:
-        trial.set_user_attr("outcome", "interrupted")
-        ctx.study.tell(trial, state=TrialState.FAIL)
-        ctx.study.enqueue_trial({}, user_attrs=job.attrs())  # back in the queue
+        put_back(ctx, trial, "interrupted")
         log.info("stopped %s; it is back in the queue and resumes from its last epoch", key)
         raise
+    except DiskFullError:
+        raise
     except Exception as exc:
+        if is_disk_full(exc):
+            raise
         trial.set_user_attr("outcome", "error")
         trial.set_user_attr("error", f"{type(exc).__name__}: {exc}"[:500])
         ctx.study.tell(trial, state=TrialState.FAIL)
