@@ -7,7 +7,7 @@ in input pixels, and where its spatial axes are. The rules:
   Araujo, Norris & Sim 2019 (Distill): r ← r + d·(k − 1)·j and j ← j·s per axis;
 - a node with several data inputs (add, mul, cat, ...) takes the maximum over its inputs, so
   the widest branch or residual path wins (the same paper's rule for multi-path networks);
-- activations, norms, dropout, per-position linear layers and layout ops (view, reshape,
+- activations, norms, dropout, padding, per-position linear layers and layout ops (view, reshape,
   permute, transpose, chunk) pass the reach through, as long as the spatial axes stay whole;
 - a global reduction (an adaptive pool to 1×1, a mean over both spatial axes, a flatten of a
   map larger than 1×1) ends the map. Where its result is multiplied back into a feature map
@@ -77,6 +77,10 @@ POINTWISE_MODULES = (
     nn.AlphaDropout,
     nn.Identity,
     nn.Linear,  # acts on the last dim; checked below to be a channel dim
+    nn.ZeroPad2d,  # padding adds no input pixels: rf and jump stay (the paper's convention)
+    nn.ConstantPad2d,
+    nn.ReflectionPad2d,
+    nn.ReplicationPad2d,
 )
 POINTWISE_FUNCTIONS = {
     operator.add,
@@ -101,6 +105,7 @@ POINTWISE_FUNCTIONS = {
     F.sigmoid,
     F.dropout,
     F.linear,
+    F.pad,
     stochastic_depth,  # drops whole samples
 }
 POINTWISE_METHODS = {
