@@ -106,6 +106,8 @@ POINTWISE_FUNCTIONS = {
     F.dropout,
     F.linear,
     F.pad,
+    F.batch_norm,  # traced in eval mode: running statistics, so per position
+    F.group_norm,  # norms are rf-neutral by the project's convention, as nn.GroupNorm above
     stochastic_depth,  # drops whole samples
 }
 POINTWISE_METHODS = {
