@@ -18,9 +18,12 @@ from kablate import __version__
 from kablate.errors import EXIT_STOPPED, DiskFullError, KablateError, UsageError, is_disk_full
 
 EPILOG_PLAN = """\b
-Example:
+Examples:
   kablate plan sweeps/stem-size.toml
   kablate plan sweeps/stem-size.toml --format json --latency > plan.json
+  kablate plan --model torchvision.models:resnet18 --input 3x224x224
+  kablate plan --model mypkg.nets:build --input 3x32x32 --kwargs '{"num_classes": 10}'
+--model imports the named module, which runs its code: name only code you trust.
 """
 EPILOG_RUN = """\b
 Examples:
@@ -108,7 +111,30 @@ def main() -> None:
 
 
 @main.command(epilog=EPILOG_PLAN)
-@click.argument("sweep", type=click.Path(path_type=Path))
+@click.argument("sweep", type=click.Path(path_type=Path), required=False)
+@click.option(
+    "--model",
+    "factory",
+    default=None,
+    metavar="PKG.MODULE:FACTORY",
+    help="Measure one model instead of a sweep: the callable that builds it, or timm:NAME. "
+    "This imports and runs that module's code.",
+)
+@click.option("--input", "input_shape", default=None, metavar="CxHxW", help="With --model.")
+@click.option(
+    "--kwargs",
+    "factory_kwargs",
+    default=None,
+    metavar="JSON",
+    help="With --model: keyword arguments for the factory, e.g. '{\"num_classes\": 10}'.",
+)
+@click.option(
+    "--batch-size",
+    type=click.IntRange(min=1),
+    default=1,
+    show_default=True,
+    help="With --model: the batch that activation memory is given for.",
+)
 @click.option(
     "--format",
     "fmt",
@@ -128,8 +154,28 @@ def main() -> None:
     default=None,
     help="Threads for --latency (default: torch's).",
 )
-def plan(sweep: Path, fmt: str, latency: bool, threads: int | None) -> None:
-    """Expand a sweep into variants with their static costs, without training."""
+def plan(
+    sweep: Path | None,
+    factory: str | None,
+    input_shape: str | None,
+    factory_kwargs: str | None,
+    batch_size: int,
+    fmt: str,
+    latency: bool,
+    threads: int | None,
+) -> None:
+    """Expand a sweep into variants with their static costs, without training; or, with
+    --model, measure one model as it is."""
+    if (sweep is None) == (factory is None):
+        raise UsageError(
+            "give a sweep file (e.g. sweeps/quickstart.toml) or --model PKG.MODULE:FACTORY, "
+            "one of the two"
+        )
+    if factory is not None:
+        if latency:
+            raise UsageError("--latency is not available with --model yet; drop --latency")
+        plan_one_model(factory, input_shape, factory_kwargs, batch_size, fmt)
+        return
     from kablate.costs.catalog import build_catalog, measure_latencies
     from kablate.costs.export import catalog_csv, catalog_json, catalog_table
     from kablate.spec.loader import load_sweep
@@ -146,6 +192,24 @@ def plan(sweep: Path, fmt: str, latency: bool, threads: int | None) -> None:
             click.echo(f"dropped {item.name}: {reason}", err=True)
         for warning in catalog.warnings:
             click.echo(f"warning: {warning}", err=True)
+
+
+def plan_one_model(
+    factory: str, input_shape: str | None, factory_kwargs: str | None, batch_size: int, fmt: str
+) -> None:
+    """`kablate plan --model`: one model, unchanged, in the plan's formats."""
+    if input_shape is None:
+        raise UsageError("--model needs --input CxHxW, e.g. --input 3x224x224")
+    from kablate.costs.model_plan import model_csv, model_json, model_table, plan_model
+    from kablate.nets.factory import parse_input_shape, parse_kwargs
+
+    shape, kwargs = parse_input_shape(input_shape), parse_kwargs(factory_kwargs)
+    result = plan_model(factory, kwargs, shape, batch_size)
+    render = {"table": model_table, "json": model_json, "csv": model_csv}[fmt]
+    click.echo(render(result))
+    if fmt != "table":
+        for note in result.cost.notes:
+            click.echo(f"note: {note}", err=True)
 
 
 @main.command(epilog=EPILOG_RUN)

@@ -6,28 +6,10 @@ import itertools
 
 import torch
 
-from kablate.costs.memory import saved_activation_bytes
+from kablate.costs.memory import saved_activation_bytes, saved_bytes_of
 from kablate.costs.static import static_cost
 from kablate.nets.build import build_network
 from tests.nets.tiny import tiny_layout, tiny_network
-
-
-def measured_saved_bytes(model: torch.nn.Module, x: torch.Tensor) -> int:
-    """Bytes of the distinct tensors autograd saves in one training forward pass, seen through
-    torch.autograd.graph.saved_tensors_hooks (parameters and buffers left out)."""
-    state = {t.untyped_storage().data_ptr() for t in [*model.parameters(), *model.buffers()]}
-    saved: dict[int, int] = {}
-
-    def pack(tensor: torch.Tensor) -> torch.Tensor:
-        storage = tensor.untyped_storage()
-        if storage.data_ptr() not in state:
-            saved[storage.data_ptr()] = storage.nbytes()
-        return tensor
-
-    with torch.autograd.graph.saved_tensors_hooks(pack, lambda tensor: tensor):
-        model(x)
-    return sum(saved.values())
-
 
 CASES = [
     # (norm, act, down, residual, dropout, plan)
@@ -53,7 +35,7 @@ def test_the_estimate_equals_what_autograd_saves():
         )
         layout = tiny_layout(plan, net)
         model = build_network(layout).train()
-        measured = measured_saved_bytes(model, torch.randn(batch, 1, 8, 8))
+        measured = saved_bytes_of(model, torch.randn(batch, 1, 8, 8))
         assert saved_activation_bytes(layout, batch) == measured, (norm, act, down, plan, batch)
 
 

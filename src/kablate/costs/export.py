@@ -8,7 +8,8 @@ import json
 import textwrap
 
 from kablate.costs.catalog import Catalog, CostedVariant
-from kablate.costs.static import LayerCost
+from kablate.costs.graph import GraphCost
+from kablate.costs.static import LayerCost, StaticCost
 
 
 def layer_json(row: LayerCost) -> dict:
@@ -27,8 +28,21 @@ def layer_json(row: LayerCost) -> dict:
         "out_hw": list(layer.out_hw),
         "params": row.params,
         "macs": row.macs,
-        "rf": list(row.rf),
-        "jump": list(row.jump),
+        "rf": list(row.rf) if row.rf is not None else None,  # None: unknown (foreign models)
+        "jump": list(row.jump) if row.jump is not None else None,
+    }
+
+
+def cost_json(cost: StaticCost | GraphCost) -> dict:
+    """The cost fields of a variant, shared by sweeps and by a single model (`--model`)."""
+    return {
+        "params": cost.params,
+        "macs": cost.macs,
+        "flops": cost.flops,
+        "rf": cost.rf,
+        "jump": cost.jump,
+        "out_hw": list(cost.out_hw) if cost.out_hw is not None else None,
+        "act_mem_bytes": cost.act_mem_bytes,
     }
 
 
@@ -39,13 +53,7 @@ def variant_json(item: CostedVariant, with_layers: bool = True) -> dict:
         "name": item.name,
         "plan": item.variant.plan,
         "aliases": list(item.variant.aliases),
-        "params": cost.params,
-        "macs": cost.macs,
-        "flops": cost.flops,
-        "rf": cost.rf,
-        "jump": cost.jump,
-        "out_hw": list(cost.out_hw),
-        "act_mem_bytes": cost.act_mem_bytes,
+        **cost_json(cost),
         "latency_ms": item.latency.batch1_ms if item.latency else None,
         "latency_batch_ms": item.latency.batch_ms if item.latency else None,
         "latency_threads": item.latency.threads if item.latency else None,

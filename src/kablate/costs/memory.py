@@ -21,6 +21,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+import torch
+
 from kablate.nets.build import norm_groups_for
 from kablate.nets.layout import Layer, Layout
 from kablate.nets.padding import is_symmetric
@@ -103,3 +105,46 @@ def saved_activation_bytes(layout: Layout, batch_size: int) -> int:
         if block.residual:
             tally.flow(tally.current)  # x + y: a new tensor; the addition saves nothing
     return tally.per_sample * batch_size + tally.per_batch
+
+
+def measure_saved_bytes(
+    model: torch.nn.Module, in_shape: tuple[int, int, int], batch_size: int
+) -> int:
+    """Bytes of the distinct tensors autograd saves in one training forward pass of ``model``
+    at ``batch_size``, seen through ``torch.autograd.graph.saved_tensors_hooks`` (parameters
+    and buffers left out): the measured counterpart of `saved_activation_bytes`.
+
+    Two passes, at batch 2 and 3, give the bytes per sample and per batch (batch norm's
+    statistics), so a large batch is never run. Batch norm's running statistics are restored.
+    """
+    device = next(iter(model.parameters()), torch.empty(0)).device
+    was_training = model.training
+    kept = {name: b.clone() for name, b in model.named_buffers()}
+    try:
+        model.train()
+        two, three = (
+            saved_bytes_of(model, torch.zeros(n, *in_shape, device=device)) for n in (2, 3)
+        )
+    finally:
+        model.train(was_training)
+        with torch.no_grad():
+            for name, b in model.named_buffers():
+                b.copy_(kept[name])
+    per_sample = three - two
+    return two - 2 * per_sample + batch_size * per_sample
+
+
+def saved_bytes_of(model: torch.nn.Module, x: torch.Tensor) -> int:
+    """Bytes of the distinct tensors autograd saves while ``model(x)`` runs."""
+    state = {t.untyped_storage().data_ptr() for t in [*model.parameters(), *model.buffers()]}
+    saved: dict[int, int] = {}
+
+    def pack(tensor: torch.Tensor) -> torch.Tensor:
+        storage = tensor.untyped_storage()
+        if storage.data_ptr() not in state:
+            saved[storage.data_ptr()] = storage.nbytes()
+        return tensor
+
+    with torch.autograd.graph.saved_tensors_hooks(pack, lambda tensor: tensor):
+        model(x)
+    return sum(saved.values())
