@@ -230,3 +230,28 @@ def test_two_machines_share_one_postgres_sweep(tiny_sweep, tmp_path, postgres_ur
     assert counts[0] == counts[1] and counts[0]["done"] == JOBS
     for root in (a, b):  # the recorded storage has no password
         assert os.environ["PGPASSWORD"] not in (root / "tiny" / "sweep.json").read_text()
+
+
+def worker_pids(parent: int) -> list[int]:
+    """The runner's child processes (its spawned workers), from /proc."""
+    children = Path(f"/proc/{parent}/task/{parent}/children")
+    return [int(p) for p in children.read_text().split()] if children.exists() else []
+
+
+@pytest.mark.slow
+def test_ctrl_c_while_the_workers_start_gives_no_traceback(long_sweep, tmp_path):
+    # A worker process spends its first seconds importing torch; a Ctrl-C then used to print
+    # one KeyboardInterrupt traceback per worker. Now they start with SIGINT ignored and the
+    # runner passes the stop on once they listen.
+    results = tmp_path / "results"
+    proc = kablate(*run_args(long_sweep, results), storage=None, cwd=tmp_path, wait=False)
+    deadline = time.time() + 120
+    while len(worker_pids(proc.pid)) < 2 and time.time() < deadline and proc.poll() is None:
+        time.sleep(0.05)
+    assert len(worker_pids(proc.pid)) >= 2, "the workers did not start"
+    time.sleep(0.3)  # inside their imports
+    os.killpg(proc.pid, signal.SIGINT)  # what Ctrl-C in a terminal does
+    out, err = proc.communicate(timeout=180)
+    assert proc.returncode == 130, err
+    assert "Traceback" not in err and "KeyboardInterrupt" not in err, err
+    assert not [t for t in study_of(results, None).get_trials() if t.state == TrialState.RUNNING]

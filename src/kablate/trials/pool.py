@@ -266,7 +266,14 @@ def supervise(procs, args, workers, stop, state) -> None:
 
     def start() -> None:
         proc = ctx.Process(target=_worker_main, args=args, daemon=False)
-        proc.start()
+        # The child inherits an ignored SIGINT (Python keeps it ignored at start-up), so a
+        # Ctrl-C while it imports cannot print a traceback; `_worker_main` then installs its
+        # own handler, and a stop asked for meanwhile is forwarded again below.
+        previous = signal.signal(signal.SIGINT, signal.SIG_IGN)
+        try:
+            proc.start()
+        finally:
+            signal.signal(signal.SIGINT, previous)
         procs.append(proc)
         outcome.worker_names.add(f"{host}:{proc.pid}")
 
@@ -275,6 +282,8 @@ def supervise(procs, args, workers, stop, state) -> None:
     n_restarts = 0
     while any(p.is_alive() for p in procs):
         time.sleep(POLL_SECONDS)
+        if stop.stopped and stop.forward is not None:
+            stop.forward(signal.SIGINT)  # reaches workers that were still starting (a no-op else)
         rows, _ = collect_trials(study, plan)
         statuses = [r["status"] for r in rows]
         finished = statuses.count("done") + statuses.count("diverged")
