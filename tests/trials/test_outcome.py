@@ -53,7 +53,30 @@ def summary(**fields) -> RunSummary:
         ({"counts": {"done": 6}, "n_ran": 6}, EXIT_OK, ""),
         ({"counts": {"done": 5, "diverged": 1}}, EXIT_OK, ""),
         ({"counts": {"done": 4, "running": 2}, "n_ran": 2}, EXIT_OK, ""),  # another runner's
-        ({"counts": {"done": 2, "waiting": 4}, "n_ran": 2, "budget_seconds": 60}, EXIT_OK, ""),
+        # The budget is spent: 20 s left, the shortest waiting trial takes 30 s.
+        (
+            {
+                "counts": {"done": 2, "waiting": 4},
+                "n_ran": 2,
+                "budget_seconds": 3600,
+                "budget_left": 20,
+                "shortest_waiting": 30,
+            },
+            EXIT_OK,
+            "",
+        ),
+        # The workers ended with an hour of an 8 h budget left: not the budget's doing.
+        (
+            {
+                "counts": {"done": 2, "waiting": 4},
+                "n_ran": 2,
+                "budget_seconds": 8 * 3600,
+                "budget_left": 3600,
+                "shortest_waiting": 30,
+            },
+            EXIT_TRIALS,
+            "4 trials could not run",
+        ),
         (
             {"counts": {"waiting": 6}, "budget_seconds": 1},
             EXIT_TRIALS,

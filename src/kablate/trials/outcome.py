@@ -2,7 +2,7 @@
 
 The exit codes (errors.py, and the README's table):
 - 0: every trial of the sweep is finished, or left to another live runner, or the budget
-  stopped the run after at least one trial ran;
+  stopped the run after at least one trial ran (`budget_spent`);
 - 3: trials failed, or trials were left waiting that nothing will run (no trial fitted the
   budget, or the workers ended early); the line groups them by reason;
 - 4: a full disk stopped the run (its trials are back in the queue);
@@ -60,6 +60,19 @@ def summarize_failures(reasons: dict[str, int]) -> str:
     return f"{n} trial{'s' if n != 1 else ''} failed: {grouped}"
 
 
+# The budget ended a run as planned when what was left of it could not hold the shortest
+# waiting trial, with room for a worker running slower than its calibration (a factor of
+# ours); a run whose workers ended with much of the budget left did not end as planned.
+BUDGET_SLACK = 3.0
+BUDGET_SLACK_SECONDS = 60.0
+
+
+def budget_spent(summary) -> bool:
+    """Whether the budget, not a failure, left the waiting trials unrun."""
+    room = max(BUDGET_SLACK * summary.shortest_waiting, BUDGET_SLACK_SECONDS)
+    return summary.budget_left <= room
+
+
 def verdict(summary) -> tuple[int, str]:
     """(exit code, one line saying why when it is not 0) for a `RunSummary`."""
     if summary.disk_full:
@@ -71,9 +84,9 @@ def verdict(summary) -> tuple[int, str]:
     left = summary.counts.get("waiting", 0) + summary.counts.get("missing", 0)
     if not left:
         return EXIT_OK, ""
-    if summary.budget_seconds and summary.n_ran:
-        return EXIT_OK, ""
-    if summary.budget_seconds:
+    if summary.budget_seconds and budget_spent(summary):
+        if summary.n_ran:
+            return EXIT_OK, ""
         return EXIT_TRIALS, (
             f"{left} trials left waiting: none fitted in the --budget (the estimate above says "
             "how long each takes); give a longer budget"

@@ -75,6 +75,10 @@ class RunSummary:
     budget_seconds: float = 0.0
     failures: dict[str, int] = field(default_factory=dict)  # reason → failed trials
     disk_full: str = ""  # the message, when a full disk stopped the run
+    # With --budget: seconds left when the workers ended, and the estimate of the shortest trial
+    # still waiting (0 when none is); `outcome.verdict` tells the budget's end from a failure.
+    budget_left: float = 0.0
+    shortest_waiting: float = 0.0
 
 
 def choose_layout(n_workers: int, n_threads: int, n_jobs: int) -> tuple[int, int]:
@@ -295,6 +299,11 @@ def run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
         own = own_counts(study, pool.worker_names, started_at)
         summary.n_ran = sum(own[s] for s in FINISHED)
         summary.interrupted, summary.disk_full = pool.interrupted, pool.disk_full
+        if deadline:
+            summary.budget_left = max(0.0, deadline - time.time())
+            over = finished_jobs(study, jobs)
+            waiting = [seconds.get(j.variant_id, 0.0) for j in jobs if j.key not in over]
+            summary.shortest_waiting = min(waiting, default=0.0)
     if summary.disk_full:  # the study is consistent; writing the tables may not fit
         summary.counts = {}
         return summary
