@@ -38,6 +38,18 @@ def test_a_damaged_json_file_of_a_results_folder_is_named(tmp_path, damaged):
         one_line_exit_2(invoke(verb, str(folder)), f"{folder / damaged} is damaged")
 
 
+@pytest.mark.parametrize(("file", "lacks"), [("sweep.json", "`name`"), ("plan.json", "`variants`")])
+def test_a_results_file_without_its_keys_is_named(tmp_path, file, lacks):
+    folder = tmp_path / "results" / "tiny"
+    folder.mkdir(parents=True)
+    whole = {"name": "tiny", "seeds": [0], "variants": [], "baseline": "v0"}
+    for name in ("sweep.json", "plan.json"):
+        (folder / name).write_text(json.dumps(whole))
+    (folder / file).write_text(json.dumps({"seeds": [0], "baseline": "v0"}))  # valid JSON
+    for verb in ("status", "report"):
+        one_line_exit_2(invoke(verb, str(folder)), f"{folder / file} lacks {lacks}")
+
+
 def test_results_naming_a_file_is_refused(tiny_sweep, tmp_path):
     target = tmp_path / "a-file"
     target.write_text("")

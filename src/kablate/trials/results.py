@@ -15,6 +15,7 @@ from kablate.trials.store import STORAGE_ENV, open_study, resolve_url, strip_pas
 SWEEP_FILE = "sweep.json"
 PLAN_FILE = "plan.json"
 DATA_FILE = "data.json"
+PLAN_KEYS = ("variants", "seeds", "baseline")  # what every reader of plan.json needs
 
 
 @dataclass
@@ -45,6 +46,14 @@ def open_results(path: Path, storage: str | None = None) -> ResultsFolder:
         )
     meta = read_json(path / SWEEP_FILE)
     plan = read_json(path / PLAN_FILE)
+    for file, content, keys in ((SWEEP_FILE, meta, ("name",)), (PLAN_FILE, plan, PLAN_KEYS)):
+        missing = [k for k in keys if k not in content]
+        if missing:
+            raise UsageError(
+                f"{path / file} lacks {', '.join(f'`{k}`' for k in missing)}: it was not written "
+                "by kablate run, or was edited; kablate run with the same sweep file writes it "
+                "again"
+            )
     url = resolve_url(storage)
     if url is None and meta.get("storage_url"):
         # Without its password (an older folder may hold "***" in its place).
