@@ -167,3 +167,11 @@ def test_the_plan_note_says_how_many_images_a_margin_needs():
     assert "5% → 3.21 pp (the margin needs 3,092 images)" in text
     assert "1% → 1.44 pp (the margin needs 619 images)" in text
     assert "1% → 0.18 pp (enough for the margin)" in plan_note(20000, 1.0, 3)
+
+
+def test_one_se_best_among_equal_scores_is_the_cheaper_whatever_its_name():
+    # Equal scores: the cheaper "z-cheap" is the best, so with zero tolerance it is picked,
+    # not "a-costly", which only comes first by name.
+    scores, ses = {"a-costly": 0.9, "z-cheap": 0.9}, {"a-costly": 0.01, "z-cheap": 0.05}
+    picked, best, tolerance = one_se_pick(scores, ses, {"a-costly": 2, "z-cheap": 1}, 1.0)
+    assert (picked, best) == ("z-cheap", "z-cheap") and tolerance == pytest.approx(0.05)

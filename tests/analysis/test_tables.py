@@ -180,3 +180,21 @@ def test_grid_cell_kept_under_an_earlier_plan_name_is_found_by_its_alias():
     a = analyze(rows(), [], p, [{"stem": ["3", "5"], "body": ["3", "5"]}])
     assert a.grid.loc["3", "3"] == pytest.approx(0.905)  # seeds 0 and 1 (see above)
     assert a.grid.loc["3", "5"] == pytest.approx(0.90)
+
+
+def test_without_a_finished_baseline_the_intervals_still_come_from_the_evidence():
+    from kablate.analysis.bootstrap import resample_accuracies
+    from kablate.analysis.decide import accuracies
+
+    trials = [
+        dict(r, status="waiting", val_acc=None, test_acc=None) if r["variant"] == "base" else r
+        for r in rows()
+    ]
+    a = analyze(trials, [], plan(), [])
+    assert a.decision is None  # nothing to compare with
+    expected = accuracies(a.evidence, resample_accuracies(a.evidence.correct))["cheap"]
+    v = a.variants.set_index("variant")
+    assert (v.loc["cheap", "val_acc_ci_low"], v.loc["cheap", "val_acc_ci_high"]) == (
+        expected.low,
+        expected.high,
+    )

@@ -13,7 +13,7 @@ The one-standard-error rule (Breiman et al. 1984; Hastie, Tibshirani & Friedman,
 Elements of Statistical Learning*, 2nd ed., §7.10) stays available as a named option, with
 the standard error from the same two-level bootstrap (seeds and images).
 
-Everything is computed from per-image evidence (`bootstrap.Evidence`); the bounds come from
+Everything is computed from per-image evidence (`evidence.Evidence`); the bounds come from
 the paired two-level bootstrap, p-values are Holm-adjusted across the comparisons with the
 baseline (``statsmodels.stats.multitest.multipletests``), and a comparison on one seed uses
 the exact McNemar test (``statsmodels.stats.contingency_tables.mcnemar``).
@@ -134,12 +134,13 @@ def contrasts(evidence: Evidence, boot: np.ndarray, baseline: str) -> dict[str, 
     """Every variant against the baseline, with Holm-adjusted p-values."""
     b = evidence.index(baseline)
     n_seeds = evidence.correct.shape[1]
+    accuracy = evidence.accuracy  # computed once, not per variant
     out = {}
     for v, name in enumerate(evidence.names):
         if v == b:
             continue
         d = boot[:, v] - boot[:, b]
-        diff = float(evidence.accuracy[v] - evidence.accuracy[b])
+        diff = float(accuracy[v] - accuracy[b])
         discordant = int((evidence.correct[v] != evidence.correct[b]).sum())
         low, high = percentile_interval(d)
         lower = float(np.quantile(d, ALPHA))

@@ -15,7 +15,14 @@ import numpy as np
 import pandas as pd
 
 from kablate.analysis.bootstrap import resample_accuracies
-from kablate.analysis.decide import Contrast, Decision, accuracies, contrasts, decide
+from kablate.analysis.decide import (
+    Accuracy,
+    Contrast,
+    Decision,
+    accuracies,
+    contrasts,
+    decide,
+)
 from kablate.analysis.erf import ErfMap
 from kablate.analysis.evidence import Evidence, gather_evidence
 from kablate.analysis.flags import variant_flags
@@ -122,6 +129,9 @@ def analyze(
         )
         resolution = observed_resolution(evidence, decision)
         apply_decision(variants, decision)
+    elif evidence is not None:  # no baseline to compare with yet: the accuracies still count
+        put_accuracies(variants, accuracies(evidence, resample_accuracies(evidence.correct)), "val")
+        add_fronts(variants)
     variants["recommended"] = variants["variant"] == (decision.recommended if decision else "")
     n_classes = int(data.get("n_classes") or len(data.get("classes", [])) or 2)
     flags = variant_flags(
@@ -160,16 +170,9 @@ def apply_decision(variants: pd.DataFrame, decision: Decision) -> None:
     """
     acc, found = decision.accuracy, decision.contrasts
     names = variants["variant"]
-
-    def column(get, default=math.nan):
-        return [get(n) if n in acc else default for n in names]
-
-    variants["n_correct"] = column(lambda n: acc[n].n_correct, pd.NA)
-    variants["n_scored"] = column(lambda n: acc[n].n_scored, pd.NA)
-    variants["val_acc_mean"] = column(lambda n: acc[n].mean)
-    variants["val_acc_se"] = column(lambda n: acc[n].se)
-    variants["val_acc_ci_low"] = column(lambda n: acc[n].low)
-    variants["val_acc_ci_high"] = column(lambda n: acc[n].high)
+    put_accuracies(variants, acc, "val")
+    variants["n_correct"] = [acc[n].n_correct if n in acc else pd.NA for n in names]
+    variants["n_scored"] = [acc[n].n_scored if n in acc else pd.NA for n in names]
     for col, attr in (
         ("diff", "diff"),
         ("diff_ci_low", "low"),
@@ -182,10 +185,22 @@ def apply_decision(variants: pd.DataFrame, decision: Decision) -> None:
     variants["noninferior"] = [
         n in found and found[n].lower_bound > -decision.margin for n in names
     ]
-    variants["pick_share"] = column(lambda n: decision.pick_share.get(n, 0.0))
+    variants["pick_share"] = [
+        decision.pick_share.get(n, 0.0) if n in acc else math.nan for n in names
+    ]
     base_cost = variants.loc[names == decision.baseline, decision.cost].iloc[0]
     variants["cost_ratio"] = variants[decision.cost].astype(float) / float(base_cost)
     add_fronts(variants)
+
+
+def put_accuracies(variants: pd.DataFrame, acc: dict[str, Accuracy], split: str) -> None:
+    """``<split>_acc_mean``, ``_se``, ``_ci_low`` and ``_ci_high`` from the evidence (in place):
+    the accuracy over every (seed, image) pair, its bootstrap standard error and interval."""
+    names = variants["variant"]
+    for suffix, attr in (("mean", "mean"), ("se", "se"), ("ci_low", "low"), ("ci_high", "high")):
+        variants[f"{split}_acc_{suffix}"] = [
+            getattr(acc[n], attr) if n in acc else math.nan for n in names
+        ]
 
 
 def observed_resolution(evidence: Evidence, decision: Decision) -> Resolution | None:
@@ -213,14 +228,7 @@ def contrast_on_test(
     if test is None:
         return None
     boot = resample_accuracies(test.correct)
-    acc = accuracies(test, boot)
-    names = variants["variant"]
-    for col, get in (
-        ("test_acc_mean", lambda a: a.mean),
-        ("test_acc_ci_low", lambda a: a.low),
-        ("test_acc_ci_high", lambda a: a.high),
-    ):
-        variants[col] = [get(acc[n]) if n in acc else math.nan for n in names]
+    put_accuracies(variants, accuracies(test, boot), "test")
     if decision is None or decision.keeps_baseline:
         return None
     if not {decision.recommended, decision.baseline} <= set(test.names):
