@@ -37,6 +37,16 @@ Example:
   kablate status results/quickstart
   kablate status results/quickstart --format json
 """
+EPILOG_EXPORT = """\b
+Example:
+  kablate export results/quickstart
+  kablate export results/resnet-stages --variant stage1-5
+In Python, build the exported network (freshly initialised) or rewrite your own model:
+  from kablate.nets.handoff import build_handoff, apply_handoff
+  net = build_handoff("results/quickstart/handoff/all-3.json")
+  model = apply_handoff(resnet18(num_classes=10), "results/resnet-stages/handoff/stage1-5.json")
+"""
+
 EPILOG_REPORT = """\b
 Example:
   kablate report results/quickstart
@@ -405,3 +415,33 @@ def report(
     pick = pick_settings(folder.meta, rule=rule, margin=margin, cost=cost, within_se=within_se)
     path = write_report(folder, out, pick, not no_erf)
     click.echo(f"report: {path}")
+
+
+@main.command(epilog=EPILOG_EXPORT)
+@click.argument("results", type=click.Path(path_type=Path))
+@click.option(
+    "--variant",
+    default=None,
+    help="The variant to export (default: the one the folder's last report recommends).",
+)
+@click.option(
+    "--out",
+    type=click.Path(path_type=Path),
+    default=None,
+    help="The file to write (default: RESULTS/handoff/<variant>.json).",
+)
+@click.option(
+    "--storage",
+    default=None,
+    metavar="URL",
+    help="Study storage URL, if not the one recorded in the folder.",
+)
+def export(results: Path, variant: str | None, out: Path | None, storage: str | None) -> None:
+    """Write a variant as a file your code can build: kablate's own network, or the list of
+    rewrites to apply to your model."""
+    from kablate.report.handoff import write_handoff
+    from kablate.trials.results import open_results
+
+    started()
+    path = write_handoff(open_results(results, storage), variant, out)
+    click.echo(f"handoff: {path}")

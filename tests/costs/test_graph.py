@@ -149,6 +149,15 @@ def test_receptive_field_matches_the_published_table(name, rf):
     assert (cost.rf, cost.jump, cost.out_hw) == (rf, 32, (7, 7) if name != "alexnet" else (6, 6))
 
 
+def test_a_head_on_a_map_already_1x1_is_still_the_head():
+    # The recurrence r ← r + (k − 1)·j, j ← j·s (Araujo et al. 2019) does not depend on the
+    # input's size: at CIFAR's 32×32, where ResNet-50's last map is 1×1, its rf and jump are
+    # those of the 224×224 case above (427, 32).
+    model, _ = build_on_meta("resnet50")
+    cost = graph_cost(model, (3, 32, 32), batch_size=None)
+    assert (cost.rf, cost.jump, cost.out_hw) == (427, 32, (1, 1))
+
+
 def test_the_original_resnet50_sees_483_pixels():
     # Source, from memory: the Distill table (Araujo et al. 2019) lists ResNet-50 at 483 px.
     # That is the original ResNet-50, with the stride on each stage's first 1×1 conv.

@@ -73,7 +73,7 @@ def test_kwargs_reach_the_factory_and_csv_and_table_print():
         ),
         (
             ["--model", "torchvision.models:resnet18", "--input", "3x8x8", "--kwargs", '{"x": 1}'],
-            "refuses",
+            "fails with --kwargs {'x': 1}: TypeError",
         ),
         (["sweeps/quickstart.toml", "--model", "torchvision.models:resnet18"], "one of the two"),
         ([], "one of the two"),

@@ -9,10 +9,13 @@ import shutil
 from pathlib import Path
 
 import pytest
+import torch
 from click.testing import CliRunner
+from torch.utils.flop_counter import FlopCounterMode
 
 from kablate.cli import main
 from kablate.errors import SweepError
+from kablate.nets.handoff import build_handoff
 from kablate.report import write_report
 from kablate.report.build import pick_settings
 from kablate.spec import load_sweep
@@ -216,3 +219,25 @@ def test_without_a_finished_baseline_there_is_no_verdict_and_no_map(results):
     assert "has not finished" in render_card(analysis, card_context())
     maps, note = erf_maps(folder, analysis, data)
     assert maps == [] and note == "there is no recommended plan yet to map"
+
+
+def test_export_writes_the_recommended_variant_and_it_rebuilds_with_its_planned_costs(
+    results, tmp_path
+):
+    out = CliRunner().invoke(
+        main, ["export", str(results), "--out", str(tmp_path / "h.json")], catch_exceptions=False
+    )
+    assert out.exit_code == 0, out.output
+    handoff = json.loads((tmp_path / "h.json").read_text())
+    rows = json.loads((results / "variants.json").read_text())
+    assert handoff["variant"] == next(r["variant"] for r in rows if r["recommended"])
+    assert handoff["recommended"] is True
+    net = build_handoff(tmp_path / "h.json")
+    # Checked with torch's own counters: parameters by numel, MACs by FlopCounterMode, which
+    # counts 2 FLOPs per multiply-accumulate.
+    assert sum(p.numel() for p in net.parameters()) == handoff["costs"]["params"]
+    with FlopCounterMode(display=False) as counter:
+        net.eval()(torch.zeros(1, *handoff["input"]))
+    assert counter.get_total_flops() == 2 * handoff["costs"]["macs"]
+    unknown = CliRunner().invoke(main, ["export", str(results), "--variant", "stem5"])
+    assert unknown.exit_code == 2 and "did you mean `stem-5`" in unknown.output

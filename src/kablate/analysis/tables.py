@@ -8,6 +8,7 @@ import pandas as pd
 
 from kablate.analysis.pareto import pareto_front
 from kablate.analysis.stats import t_interval
+from kablate.plans.expand import plan_text
 
 # Selection and front costs → their column in the variants table.
 COST_COLUMNS = {"params": "params", "macs": "macs", "latency": "latency_ms"}
@@ -93,7 +94,7 @@ def variant_frame(
                 "train_seconds_mean": float(done["train_seconds"].mean())
                 if len(done)
                 else math.nan,
-                "plan": ";".join(f"{k}={s}" for k, s in v["plan"].items()),
+                "plan": plan_text(v["plan"]),
             }
         )
     frame = pd.DataFrame(out)

@@ -4,12 +4,15 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
+from kablate.costs.graph import GraphCost
 from kablate.costs.latency import Latency, measure_latency
 from kablate.costs.static import StaticCost, static_cost
+from kablate.costs.user_model import UserModel, check_rf_known
 from kablate.data.prepare import check_splits
 from kablate.data.sources import describe_source
 from kablate.errors import PlanError
-from kablate.nets.layout import layout_network
+from kablate.nets.layout import Layout, layout_network
+from kablate.nets.model_variant import ModelVariant
 from kablate.nets.padding import is_symmetric
 from kablate.plans.expand import Variant, expand_plans, pick_baseline, with_alias
 from kablate.plans.filters import filter_reason
@@ -19,8 +22,11 @@ from kablate.spec.schema import SweepSpec
 
 @dataclass
 class CostedVariant:
+    """A variant with its costs, and what builds it: `build_network(item.blueprint)`."""
+
     variant: Variant
-    cost: StaticCost
+    cost: StaticCost | GraphCost
+    blueprint: Layout | ModelVariant
     latency: Latency | None = None
 
     @property
@@ -61,26 +67,34 @@ def build_catalog(
         in_shape, n_classes = describe_source(sweep.data)
         check_splits(sweep.data)
     check_input_bounds(sweep, in_shape)
-    variants = expand_plans(sweep)
+    model = UserModel.load(sweep, in_shape, n_classes) if sweep.model else None
+    variants = expand_plans(sweep, model.sites if model else None)
     base_name = pick_baseline(sweep, variants).name  # before merging: an all-3×3 spec wins
     costed: list[CostedVariant] = []
     by_signature: dict[tuple, int] = {}
     for variant in variants:
         try:
-            layout = layout_network(sweep.network, variant, in_shape, n_classes)
+            if model is not None:
+                item = CostedVariant(variant, *model.cost(variant, sweep.recipe.batch_size))
+            else:
+                layout = layout_network(sweep.network, variant, in_shape, n_classes)
+                item = CostedVariant(variant, static_cost(layout, sweep.recipe.batch_size), layout)
         except PlanError as exc:
             raise PlanError(f"{sweep.source}: {exc}") from None  # name the file too
-        first = by_signature.get(layout.signature)
+        signature = item.blueprint.signature
+        first = by_signature.get(signature)
         if first is not None:  # different specs, same layers: one variant, the name an alias
             earlier = costed[first]
             merged = with_alias(earlier.variant, variant.name)
             for alias in variant.aliases:
                 merged = with_alias(merged, alias)
-            costed[first] = CostedVariant(merged, earlier.cost)
+            costed[first] = CostedVariant(merged, earlier.cost, earlier.blueprint)
             continue
-        by_signature[layout.signature] = len(costed)
-        costed.append(CostedVariant(variant, static_cost(layout, sweep.recipe.batch_size)))
+        by_signature[signature] = len(costed)
+        costed.append(item)
     baseline = next(c for c in costed if base_name == c.name or base_name in c.variant.aliases)
+    if model is not None and baseline.cost.rf is None:
+        check_rf_known(sweep)
     kept, dropped = [], []
     for item in costed:
         reason = filter_reason(
@@ -90,7 +104,8 @@ def build_catalog(
             dropped.append((item, reason))
         else:
             kept.append(item)
-    catalog = Catalog(sweep, in_shape, n_classes, kept, baseline, dropped, padding_warnings(kept))
+    warnings = model.warnings if model is not None else padding_warnings(kept)
+    catalog = Catalog(sweep, in_shape, n_classes, kept, baseline, dropped, warnings)
     if latency:
         measure_latencies(catalog, threads)
     return catalog
@@ -100,7 +115,7 @@ def measure_latencies(catalog: Catalog, threads: int | None = None) -> None:
     """Measure every kept variant's CPU latency (`kablate plan --latency`), in place."""
     for item in catalog.variants:
         item.latency = measure_latency(
-            item.cost.layout, catalog.sweep.recipe.batch_size, threads=threads
+            item.blueprint, catalog.sweep.recipe.batch_size, threads=threads
         )
 
 
@@ -108,7 +123,7 @@ def padding_warnings(items: list[CostedVariant], n_named: int = 4) -> list[str]:
     """One warning per even-kernel layer padded asymmetrically, naming the variants it is in."""
     where: dict[tuple, list[str]] = {}
     for item in items:
-        for layer in item.cost.layout.layers:
+        for layer in item.blueprint.layers:
             if layer.kind == "conv" and not is_symmetric(layer.padding):
                 key = (layer.name, layer.kernel, layer.dilation, layer.padding)
                 where.setdefault(key, []).append(item.name)

@@ -10,6 +10,8 @@ import textwrap
 from kablate.costs.catalog import Catalog, CostedVariant
 from kablate.costs.graph import GraphCost
 from kablate.costs.static import LayerCost, StaticCost
+from kablate.nets.model_variant import ModelVariant
+from kablate.plans.expand import plan_text
 
 
 def layer_json(row: LayerCost) -> dict:
@@ -58,6 +60,9 @@ def variant_json(item: CostedVariant, with_layers: bool = True) -> dict:
         "latency_batch_ms": item.latency.batch_ms if item.latency else None,
         "latency_threads": item.latency.threads if item.latency else None,
     }
+    if isinstance(item.blueprint, ModelVariant):  # a [model] sweep: whose code, what changed
+        out["model"] = {"factory": item.blueprint.factory, "arguments": item.blueprint.arguments}
+        out["rewrites"] = dict(item.blueprint.changes)
     if with_layers:
         out["layers"] = [layer_json(row) for row in cost.layers]
     return out
@@ -90,8 +95,8 @@ def catalog_csv(catalog: Catalog) -> str:
     writer.writerow(CSV_COLUMNS)
     for item in catalog.variants:
         row = variant_json(item, with_layers=False)
-        row["out_hw"] = "x".join(map(str, row["out_hw"]))
-        row["plan"] = ";".join(f"{k}={v}" for k, v in row["plan"].items())
+        row["out_hw"] = "x".join(map(str, row["out_hw"])) if row["out_hw"] else ""
+        row["plan"] = plan_text(row["plan"])
         writer.writerow([row[c] if row[c] is not None else "" for c in CSV_COLUMNS])
     return buf.getvalue()
 
@@ -118,6 +123,11 @@ def _latency_cells(item: CostedVariant) -> str:
     return f"{item.latency.batch1_ms:7.2f} {item.latency.batch_ms:8.2f}"
 
 
+def _cell(value) -> str:
+    """A cost that may be unknown (a step of a user's model that cannot be followed)."""
+    return "?" if value is None else str(value)
+
+
 def catalog_table(catalog: Catalog) -> str:
     """Variants sorted by MACs (then params), cheapest first, with cost relative to the
     baseline; at most 100 columns. A name too long for its column gets a line of its own."""
@@ -128,6 +138,10 @@ def catalog_table(catalog: Catalog) -> str:
         f"sweep {sweep.name}: {len(catalog.variants)} variants x {len(sweep.seeds)} seeds on "
         f"{sweep.data.source} ({c}x{h}x{w}), batch {batch}"
     )
+    if sweep.model is not None:  # the one key that runs code: say so wherever the plan shows
+        lines += _wrap(
+            f"model: {sweep.model.factory} (model.factory); planning imported and ran its code"
+        )
     lines += _wrap(f"costs before training, baseline {catalog.baseline.name} (*); FLOPs = 2 x MACs")
     lines += [
         "",
@@ -143,11 +157,12 @@ def catalog_table(catalog: Catalog) -> str:
         if len(name) > NAME_WIDTH:
             lines += textwrap.wrap(f"{name}{mark}".rstrip(), TABLE_WIDTH)
             name = ""
-        shape = f"{cost.out_hw[0]}x{cost.out_hw[1]}"
+        shape = "x".join(map(str, cost.out_hw)) if cost.out_hw else "?"
+        memory = human(cost.act_mem_bytes) + "B" if cost.act_mem_bytes is not None else "?"
         lines.append(
             f"{name:<{NAME_WIDTH}}{mark} {human(cost.macs):>7} "
-            f"{cost.macs / max(1, base.macs):>6.2f} {human(cost.params):>7} {cost.rf:>4} "
-            f"{cost.jump:>4} {shape:>5} {human(cost.act_mem_bytes) + 'B':>8} "
+            f"{cost.macs / max(1, base.macs):>6.2f} {human(cost.params):>7} {_cell(cost.rf):>4} "
+            f"{_cell(cost.jump):>4} {shape:>5} {memory:>8} "
             f"{_latency_cells(item)}"
         )
     lines.append(rule)

@@ -12,7 +12,7 @@ import io
 import json
 from dataclasses import dataclass, field
 
-from kablate.costs.export import CSV_COLUMNS, _wrap, cost_json, human, layer_json
+from kablate.costs.export import CSV_COLUMNS, _cell, _wrap, cost_json, human, layer_json
 from kablate.costs.graph import GraphCost, graph_cost
 from kablate.nets.factory import build_model
 
@@ -71,10 +71,6 @@ def model_csv(plan: ModelPlan) -> str:
     row["plan"] = ""
     writer.writerow([row[c] if row[c] is not None else "" for c in CSV_COLUMNS])
     return buf.getvalue()
-
-
-def _cell(value) -> str:
-    return "?" if value is None else str(value)
 
 
 def model_table(plan: ModelPlan) -> str:

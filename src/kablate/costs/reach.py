@@ -354,10 +354,10 @@ class _Walker:
         src, out = self.in_shape(node), self.out_shape(node)
         if first.axes is None:
             return first
+        if out[-2:] == (1, 1):  # also on a map already 1×1 (a small input): still the head
+            return self.end_of_map(node, first)
         if out[-2:] == src[-2:]:
             return first  # a window of one pixel
-        if out[-2:] == (1, 1):
-            return self.end_of_map(node, first)
         return self.lost(node, first)  # windows of varying size: no single kernel and stride
 
     def reduce(self, node, first: Reach) -> Reach | str:

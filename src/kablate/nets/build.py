@@ -6,6 +6,7 @@ import torch
 from torch import nn
 
 from kablate.nets.layout import Block, Layer, Layout
+from kablate.nets.model_variant import ModelVariant
 from kablate.nets.padding import is_symmetric
 
 # In place where torch supports it: the activation overwrites the norm's output, which
@@ -92,7 +93,12 @@ class KernelNet(nn.Module):
         return self.blocks(x)
 
 
-def build_network(layout: Layout, device: str | torch.device = "cpu") -> KernelNet:
-    """Build the module on ``device`` (``"meta"`` works for shape and FLOP checks)."""
+def build_network(
+    blueprint: Layout | ModelVariant, device: str | torch.device = "cpu"
+) -> nn.Module:
+    """Build the module of one variant on ``device`` (``"meta"`` works for shape and FLOP
+    checks): kablate's own network from its layout, or the user's rewritten model."""
+    if isinstance(blueprint, ModelVariant):
+        return blueprint.build(device)
     with torch.device(device):
-        return KernelNet(layout)
+        return KernelNet(blueprint)

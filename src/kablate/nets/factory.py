@@ -15,22 +15,22 @@ from collections.abc import Callable
 from torch import nn
 
 from kablate.errors import UsageError
+from kablate.spec.schema import FACTORY_FORM
 
-FACTORY_FORM = re.compile(r"[A-Za-z_][\w.]*:[A-Za-z_][\w.]*")
 TIMM_PREFIX = "timm:"
 
 
-def load_factory(text: str) -> Callable[..., nn.Module]:
-    """The callable that ``text`` names.
+def load_factory(text: str, where: str = "--model") -> Callable[..., nn.Module]:
+    """The callable that ``text`` names; ``where`` names the setting in messages.
 
     Raises:
         UsageError: a malformed name, a module that does not import, a missing attribute.
     """
     if text.startswith(TIMM_PREFIX):
-        return _timm_factory(text[len(TIMM_PREFIX) :])
+        return _timm_factory(text[len(TIMM_PREFIX) :], where)
     if not FACTORY_FORM.fullmatch(text):
         raise UsageError(
-            f"--model must name a factory as package.module:callable, e.g. "
+            f"{where} must name a factory as package.module:callable, e.g. "
             f"torchvision.models:resnet18 or timm:resnet18, but got {text!r}"
         )
     module_name, attr = text.split(":")
@@ -38,31 +38,31 @@ def load_factory(text: str) -> Callable[..., nn.Module]:
         target = importlib.import_module(module_name)
     except Exception as exc:  # the user's module: any error on import is theirs to fix
         raise UsageError(
-            f"--model {text}: the module {module_name} does not import ({type(exc).__name__}: "
+            f"{where} {text}: the module {module_name} does not import ({type(exc).__name__}: "
             f"{exc}); check the spelling, and that it is on PYTHONPATH or installed"
         ) from None
     for part in attr.split("."):
         if not hasattr(target, part):
             raise UsageError(
-                f"--model {text}: {module_name} has no attribute {attr!r}; name a function or "
+                f"{where} {text}: {module_name} has no attribute {attr!r}; name a function or "
                 "class in it that returns a torch.nn.Module"
             )
         target = getattr(target, part)
     if not callable(target):
-        raise UsageError(f"--model {text}: {attr} is a {type(target).__name__}, not callable")
+        raise UsageError(f"{where} {text}: {attr} is a {type(target).__name__}, not callable")
     return target
 
 
-def _timm_factory(name: str) -> Callable[..., nn.Module]:
+def _timm_factory(name: str, where: str) -> Callable[..., nn.Module]:
     try:
         import timm
     except ImportError:
         raise UsageError(
-            f'--model timm:{name} needs timm, which is not installed; pip install "kablate[timm]"'
+            f'{where} timm:{name} needs timm, which is not installed; pip install "kablate[timm]"'
         ) from None
     if name not in timm.list_models():
         raise UsageError(
-            f"--model timm:{name}: timm has no model {name!r} (see timm.list_models())"
+            f"{where} timm:{name}: timm has no model {name!r} (see timm.list_models())"
         )
 
     def build(**kwargs) -> nn.Module:
@@ -90,19 +90,24 @@ def parse_kwargs(text: str | None) -> dict:
     return value
 
 
-def build_model(text: str, kwargs: dict) -> nn.Module:
-    """Import the factory ``text`` names and call it with ``kwargs``.
+def build_model(
+    text: str, kwargs: dict, where: str = "--model", args_where: str = "--kwargs"
+) -> nn.Module:
+    """Import the factory ``text`` names and call it with ``kwargs``. ``where`` and
+    ``args_where`` name the two settings in messages (options, or a sweep file's keys).
 
     Raises:
         UsageError: the factory cannot be found, refuses the arguments or returns no module.
     """
-    factory = load_factory(text)
+    factory = load_factory(text, where)
     try:
         model = factory(**kwargs)
-    except TypeError as exc:
-        raise UsageError(f"--model {text} refuses --kwargs {kwargs}: {exc}") from None
+    except Exception as exc:  # the user's code: any error in it is theirs to fix
+        raise UsageError(
+            f"{where} {text} fails with {args_where} {kwargs}: {type(exc).__name__}: {exc}"
+        ) from None
     if not isinstance(model, nn.Module):
-        raise UsageError(f"--model {text} returned a {type(model).__name__}, not a torch.nn.Module")
+        raise UsageError(f"{where} {text} returned a {type(model).__name__}, not a torch.nn.Module")
     return model
 
 

@@ -12,12 +12,19 @@ from __future__ import annotations
 import hashlib
 import itertools
 import json
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
 
 from kablate.errors import SweepError, did_you_mean
 from kablate.plans.grammar import KernelSpec
 from kablate.plans.groups import GroupError, resolve_kernels
 from kablate.spec.schema import PlanSpec, SweepSpec
+
+if TYPE_CHECKING:  # nets imports plans: the sites of a user's model are only passed through
+    from kablate.nets.rewrite import ConvSite
+
+UNCHANGED = "unchanged"  # the name of a [model] sweep's unchanged model, its default baseline
 
 
 @dataclass(frozen=True)
@@ -45,6 +52,12 @@ class Variant:
         return all(spec.is_plain_3x3 for spec in self.kernels.values())
 
 
+def plan_text(plan: dict[str, str]) -> str:
+    """A plan on one line, for tables and CSV: ``stem=5;body=3``; the unchanged model of a
+    ``[model]`` sweep, which sets nothing, is ``as built``."""
+    return ";".join(f"{group}={spec}" for group, spec in plan.items()) or "as built"
+
+
 def grid_cells(grid: dict[str, tuple[str, ...]]) -> list[dict[str, str]]:
     """The cross product of a grid's axes, first axis slowest."""
     groups = list(grid)
@@ -57,14 +70,31 @@ def cell_name(cell: dict[str, str]) -> str:
     return "+".join(f"{group}={spec}" for group, spec in cell.items())
 
 
-def expand_plans(sweep: SweepSpec) -> list[Variant]:
-    """All distinct variants of a sweep, explicit plans first, then grid cells in order.
+Resolver = Callable[[dict[str, str]], dict[str, KernelSpec]]
+
+
+def plan_resolver(sweep: SweepSpec, sites: Sequence[ConvSite] | None = None) -> Resolver:
+    """How a plan's keys become a kernel spec per conv: layer groups of kablate's own network,
+    or module-path patterns and roles over the ``sites`` (Conv2d layers) of the user's model."""
+    if sweep.model is None:
+        return lambda plan: resolve_kernels(sweep.network, plan)
+    from kablate.nets.rewrite import resolve_model_plan
+
+    assert sites is not None, "a [model] sweep's plans resolve over its model's convs"
+    return lambda plan: resolve_model_plan(list(sites), plan)
+
+
+def expand_plans(sweep: SweepSpec, sites: Sequence[ConvSite] | None = None) -> list[Variant]:
+    """All distinct variants of a sweep, explicit plans first, then grid cells in order. A
+    ``[model]`` sweep (``sites``: its model's convs) also gets its unchanged model, last,
+    named `UNCHANGED` unless a plan already makes that network.
 
     Raises:
         SweepError: an unknown layer group, a bad kernel spec or a name used twice for
             different networks, naming the key in the sweep file.
     """
-    check_grid_axes(sweep)
+    resolve = plan_resolver(sweep, sites)
+    check_grid_axes(sweep, resolve)
     candidates: list[tuple[PlanSpec, tuple[tuple[str, str], ...], int]] = [
         (plan, (), -1) for plan in sweep.plans
     ]
@@ -77,7 +107,7 @@ def expand_plans(sweep: SweepSpec) -> list[Variant]:
     names: dict[str, str] = {}
     for plan, axes, g in candidates:
         try:
-            kernels = resolve_kernels(sweep.network, plan.kernels)
+            kernels = resolve(plan.kernels)
         except GroupError as exc:
             raise SweepError(sweep.source, f"{plan.line}.{exc.group}", str(exc)) from None
         variant = Variant(plan.name, dict(plan.kernels), kernels, axes, g)
@@ -92,17 +122,45 @@ def expand_plans(sweep: SweepSpec) -> list[Variant]:
                 by_key[variant.key] = with_alias(first, plan.name)
             continue
         by_key[variant.key] = variant
+    if sites is not None:
+        add_unchanged(sweep, by_key, names, sites)
     return list(by_key.values())
 
 
-def check_grid_axes(sweep: SweepSpec) -> None:
+def unchanged_variant(sites: Sequence[ConvSite]) -> Variant:
+    """The user's model as its factory builds it: every conv keeps its own kernel."""
+    return Variant(UNCHANGED, {}, {site.path: site.spec for site in sites})
+
+
+def add_unchanged(
+    sweep: SweepSpec, by_key: dict[str, Variant], names: dict[str, str], sites: Sequence[ConvSite]
+) -> None:
+    unchanged = unchanged_variant(sites)
+    if unchanged.key in by_key:  # a plan that changes nothing: it is the unchanged model
+        first = by_key[unchanged.key]
+        if first.name != UNCHANGED and UNCHANGED not in first.aliases:
+            by_key[unchanged.key] = with_alias(first, UNCHANGED)
+        return
+    if UNCHANGED in names:
+        line = next(p.line for p in sweep.plans if p.name == UNCHANGED)
+        raise SweepError(
+            sweep.source,
+            f"{line}.name",
+            f'is "{UNCHANGED}", the name kablate gives the unchanged model of a [model] sweep, '
+            "but this plan changes it: choose another name",
+        )
+    by_key[unchanged.key] = unchanged
+
+
+def check_grid_axes(sweep: SweepSpec, resolve: Resolver | None = None) -> None:
     """Check every grid axis's group name and kernel specs once, before any cell is built, so
     a typo in a large grid is reported at once rather than after building its cells."""
+    resolve = resolve or plan_resolver(sweep)
     for g, grid in enumerate(sweep.grids):
         for group, specs in grid.items():
             for spec in specs:
                 try:
-                    resolve_kernels(sweep.network, {group: spec})
+                    resolve({group: spec})
                 except GroupError as exc:
                     raise SweepError(sweep.source, f"grid[{g}].{exc.group}", str(exc)) from None
 
@@ -120,8 +178,8 @@ def with_alias(variant: Variant, alias: str) -> Variant:
 
 
 def pick_baseline(sweep: SweepSpec, variants: list[Variant]) -> Variant:
-    """The variant the others are compared with: the one the sweep names, else all-3×3,
-    else the first variant."""
+    """The variant the others are compared with: the one the sweep names, else (a ``[model]``
+    sweep) the unchanged model, else all-3×3, else the first variant."""
     if sweep.baseline:
         for variant in variants:
             if sweep.baseline == variant.name or sweep.baseline in variant.aliases:
@@ -133,6 +191,8 @@ def pick_baseline(sweep: SweepSpec, variants: list[Variant]) -> Variant:
             "sweep.baseline",
             f'names "{sweep.baseline}", which is not a plan of this sweep{hint}',
         )
+    if sweep.model is not None:  # expand_plans adds the unchanged model (under some name)
+        return next(v for v in variants if UNCHANGED in (v.name, *v.aliases))
     for variant in variants:
         if variant.is_all_3x3:
             return variant

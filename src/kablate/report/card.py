@@ -22,6 +22,8 @@ from kablate.report.verdict import (
     pct,
     rule_sentence,
 )
+from kablate.spec.fields import Where, read_table
+from kablate.spec.schema import RecipeSpec
 
 STAMP_PREFIX = "Generated "
 CAUTION = (
@@ -79,8 +81,15 @@ def ci_prose(row, metric: str = "val_acc") -> str:
     return ci(row[f"{metric}_ci_low"], row[f"{metric}_ci_high"])
 
 
-def scored_weights(recipe: dict) -> str:
-    if recipe.get("test_from", "last") == "best":
+def recipe_of(meta: dict) -> RecipeSpec:
+    """The recipe the sweep ran, defaults filled in (the resolved TOML holds only what the
+    file wrote)."""
+    raw = meta["resolved"].get("recipe", {})
+    return read_table(RecipeSpec, raw, Where(meta.get("source", "sweep.json"), "recipe"))
+
+
+def scored_weights(recipe: RecipeSpec) -> str:
+    if recipe.test_from == "best":
         return "the epoch with the best accuracy on the early-stopping fold"
     return "the last epoch's"
 
@@ -116,27 +125,42 @@ def render_card(a: Analysis, ctx: CardContext, now: datetime | None = None) -> s
     return "\n".join(out)
 
 
-def _details(a: Analysis, ctx: CardContext) -> list[str]:
-    meta = ctx.meta
-    recipe = meta["resolved"].get("recipe", {})
-    network = meta["resolved"].get("network", {})
+def _network_line(resolved: dict, n_variants: int) -> str:
+    """What the plans rewrite: kablate's own compact CNN, or the user's model."""
+    model = resolved.get("model")
+    if model is not None:
+        arguments = ", ".join(f"{k} = {v!r}" for k, v in model.get("arguments", {}).items())
+        return (
+            f"- Your model, built by `{model['factory']}({arguments})` without pretrained "
+            f"weights, in {n_variants} kernel plans that rewrite some of its Conv2d layers "
+            "(shapes kept; see `kablate plan` for each rewrite and its initialisation)."
+        )
+    network = resolved.get("network", {})
     stages = network.get("stages", [])
-    out = [
-        "### Model details",
-        "",
+    return (
         f"- A compact CNN (stem of {network.get('stem', {}).get('out_ch', 16)} channels, "
         f"{len(stages)} stages of "
         f"{', '.join(str(s.get('out_ch')) for s in stages) or 'no'} channels, "
         f"{network.get('norm', 'batch')} norm, {network.get('act', 'relu')}; a global average "
         "pool and a linear head), in "
-        f"{len(a.variants)} kernel plans that differ only in their kernel sizes.",
+        f"{n_variants} kernel plans that differ only in their kernel sizes."
+    )
+
+
+def _details(a: Analysis, ctx: CardContext) -> list[str]:
+    meta = ctx.meta
+    recipe = recipe_of(meta)
+    out = [
+        "### Model details",
+        "",
+        _network_line(meta["resolved"], len(a.variants)),
         f"- Sweep `{meta['name']}` from `{meta['source']}`, definition fingerprint "
         f"`{meta['fingerprint']}` (a hash of the resolved network, recipe and data settings; "
         "see Reproducing for the whole sweep's).",
         f"- Each plan trained once per seed ({', '.join(map(str, meta['seeds']))}) under one "
-        f"recipe: {recipe.get('epochs')} epochs, batch {recipe.get('batch_size')}, "
-        f"{recipe.get('optimizer', 'sgd')} at peak lr {recipe.get('lr')}, "
-        f"{recipe.get('schedule', 'cosine')} schedule, on {meta.get('device', 'cpu')}.",
+        f"recipe: {recipe.epochs} epochs, batch {recipe.batch_size}, "
+        f"{recipe.optimizer} at peak lr {recipe.lr:g}, "
+        f"{recipe.schedule} schedule, on {meta.get('device', 'cpu')}.",
     ]
     if meta.get("budget_seconds"):
         out.append(f"- Wall-clock budget: {meta['budget_seconds'] / 3600:.2g} h.")

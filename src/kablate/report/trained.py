@@ -56,7 +56,12 @@ def erf_maps(folder: ResultsFolder, analysis: Analysis, data: dict) -> tuple[lis
         return [], f"the sweep's data could not be loaded here ({type(exc).__name__}: {exc})"
     if prepared.manifest()["indices_sha1"]["val"] != data["indices_sha1"]["val"]:
         return [], "the validation split loaded here differs from the one the sweep used"
-    layouts = {cv.variant.id: cv.cost.layout for cv in catalog.variants}
+    if sweep.model is not None:
+        return [], (
+            "effective-receptive-field maps are drawn for kablate's own networks only: on your "
+            "model kablate cannot tell which map the head pools"
+        )
+    layouts = {cv.variant.id: cv.blueprint for cv in catalog.variants}
     maps = []
     for name in names:
         layout = layouts.get(ids[name])

@@ -20,6 +20,7 @@ from kablate.spec.fields import Where, check, read_table, read_value
 from kablate.spec.schema import (
     DataSpec,
     FilterSpec,
+    ModelSpec,
     NetworkSpec,
     PickSpec,
     PlanSpec,
@@ -54,7 +55,7 @@ class SweepTable:
     story: str = ""
 
 
-TOP_LEVEL = ("sweep", "data", "network", "recipe", "plan", "grid", "filter", "pick")
+TOP_LEVEL = ("sweep", "data", "network", "model", "recipe", "plan", "grid", "filter", "pick")
 
 
 def load_sweep(path: str | Path) -> SweepSpec:
@@ -87,6 +88,7 @@ def sweep_from_dict(raw: dict, path: Path) -> SweepSpec:
     recipe = read_table(RecipeSpec, recipe_raw, where.key("recipe"))
     filters = read_table(FilterSpec, raw.get("filter", {}), where.key("filter"))
     pick = read_table(PickSpec, raw.get("pick", {}), where.key("pick"))
+    model = read_model(raw, where)
     plans = read_plans(raw.get("plan", []), where.key("plan"))
     grids = read_grids(raw.get("grid", []), where.key("grid"))
     if not plans and not grids:
@@ -113,6 +115,7 @@ def sweep_from_dict(raw: dict, path: Path) -> SweepSpec:
         baseline=head.baseline,
         story=head.story,
         pick=pick,
+        model=model,
         raw=resolved,
     )
 
@@ -122,11 +125,24 @@ class _TopLevel:
     sweep: Any = None
     data: Any = None
     network: Any = None
+    model: Any = None
     recipe: Any = None
     plan: Any = None
     grid: Any = None
     filter: Any = None
     pick: Any = None
+
+
+def read_model(raw: dict, where: Where) -> ModelSpec | None:
+    """The ``[model]`` table: the user's own network, which replaces ``[network]``."""
+    if "model" not in raw:
+        return None
+    if raw.get("network"):  # a resolved sweep (sweep.json) holds an empty network table
+        raise where.key("model").fail(
+            "and [network] are both given: a sweep rewrites either kablate's own network "
+            "([network]) or your model ([model]); keep one"
+        )
+    return read_table(ModelSpec, raw["model"], where.key("model"))
 
 
 def read_toml(path: Path, source: str) -> dict:

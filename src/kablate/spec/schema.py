@@ -7,8 +7,9 @@ other package reads only these objects, never raw TOML.
 
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass, field
-from typing import Literal
+from typing import Any, Literal
 
 from kablate.spec.bounds import (
     MAX_BATCH,
@@ -100,6 +101,27 @@ class NetworkSpec:
     dropout: float = check(below(1.0), 0.0)
 
 
+# package.module:callable, or timm:NAME (kablate.nets.factory reads it)
+FACTORY_FORM = re.compile(r"[A-Za-z_][\w.]*:[A-Za-z_][\w.]*")
+
+
+def _factory(value: str) -> str | None:
+    if FACTORY_FORM.fullmatch(value):
+        return None
+    return 'must name a factory as "package.module:callable" (e.g. "torchvision.models:resnet18")'
+
+
+@dataclass(frozen=True)
+class ModelSpec:
+    """The user's own network (``[model]``), in place of ``[network]``: a factory that kablate
+    imports and calls with ``arguments``. Importing runs the module's code: the only key of a
+    sweep file that does. Plans address its Conv2d layers by module-path pattern or by role
+    (`kablate.nets.rewrite`)."""
+
+    factory: str = check(_factory)
+    arguments: dict[str, Any] = field(default_factory=dict)  # keyword arguments of the factory
+
+
 @dataclass(frozen=True)
 class AugmentSpec:
     # random crop after zero-padding by this many pixels
@@ -182,4 +204,5 @@ class SweepSpec:
     baseline: str = ""  # a plan name; default: the all-3×3 variant
     story: str = ""
     pick: PickSpec = field(default_factory=PickSpec)  # the selection rule's cost and tolerance
+    model: ModelSpec | None = None  # the user's own network; then `network` is unused
     raw: dict = field(default_factory=dict, compare=False, repr=False)  # resolved TOML

@@ -35,6 +35,7 @@ from kablate.data.batches import eval_batches, train_batches
 from kablate.data.prepare import PreparedData, Split
 from kablate.nets.build import build_network
 from kablate.nets.layout import Layout
+from kablate.nets.model_variant import ModelVariant
 from kablate.spec.schema import RecipeSpec
 from kablate.train.checkpoint import read_or_set_aside, resume_problem, save_checkpoint, set_aside
 from kablate.train.evidence import encode_predictions
@@ -174,9 +175,11 @@ def train_epoch(
     return float(loss_sum) / max(1, seen)
 
 
-def trial_identity(layout: Layout, recipe: RecipeSpec, data: PreparedData, seed: int) -> str:
+def trial_identity(
+    blueprint: Layout | ModelVariant, recipe: RecipeSpec, data: PreparedData, seed: int
+) -> str:
     """What a checkpoint must match to be resumed."""
-    return f"variant={layout.variant} seed={seed} recipe={recipe!r} data={data.spec!r}"
+    return f"variant={blueprint.variant} seed={seed} recipe={recipe!r} data={data.spec!r}"
 
 
 def restore(
@@ -235,7 +238,7 @@ def scored_state(saved: dict[str, Any]) -> dict[str, torch.Tensor]:
 
 
 def train_trial(
-    layout: Layout,
+    blueprint: Layout | ModelVariant,
     recipe: RecipeSpec,
     data: PreparedData,
     seed: int,
@@ -244,7 +247,8 @@ def train_trial(
     device: str = "cpu",
     should_stop: Callable[[], bool] | None = None,
 ) -> TrialRecord:
-    """Train ``layout`` with ``seed``; checkpoint into ``workdir`` after every epoch.
+    """Train the variant ``blueprint`` builds, with ``seed``; checkpoint into ``workdir`` after
+    every epoch.
 
     A NaN or inf loss, in training or validation, ends the trial with status ``diverged``
     (its curve is kept).
@@ -258,11 +262,11 @@ def train_trial(
     train, val, test = (to_device(s, dev) for s in (data.train, data.val, data.test))
     stop = to_device(data.stop, dev) if data.stop is not None else None
     torch.manual_seed(seed)  # initialisation; data order and augmentation have their own
-    model = build_network(layout).to(dev, memory_format=torch.channels_last)
+    model = build_network(blueprint).to(dev, memory_format=torch.channels_last)
     optimizer = make_optimizer(model, recipe)
     steps = budget_steps(recipe, len(train.labels))
     ckpt_path = workdir / CHECKPOINT if workdir is not None else None
-    identity = trial_identity(layout, recipe, data, seed)
+    identity = trial_identity(blueprint, recipe, data, seed)
     progress = restore(ckpt_path, identity, model, optimizer)
     if progress is None:
         progress = Progress(record=TrialRecord(threads=threads))

@@ -85,7 +85,7 @@ def calibrate(catalog: Catalog, data: PreparedData, threads: int) -> dict[str, C
     with tempfile.TemporaryDirectory(prefix="kablate-calibrate-") as tmp:
         for item in catalog.variants[:1] + catalog.variants:
             torch.manual_seed(0)
-            model = build_network(item.cost.layout).to(memory_format=torch.channels_last)
+            model = build_network(item.blueprint).to(memory_format=torch.channels_last)
             optimizer = make_optimizer(model, recipe)
             times = time_steps(model, optimizer, data, recipe, N_WARMUP + N_TIMED)
             step = statistics.median(times[N_WARMUP:])

@@ -30,7 +30,10 @@ def fingerprint(value: Any) -> str:
 def definition(sweep: SweepSpec) -> dict:
     """The fixed parts of a sweep, resolved (includes merged)."""
     raw = sweep.raw
-    return {part: raw.get(part, {}) for part in FIXED_PARTS}
+    out = {part: raw.get(part, {}) for part in FIXED_PARTS}
+    if "model" in raw:  # only then, so folders of kablate's own networks keep their hash
+        out["model"] = raw["model"]
+    return out
 
 
 def flat_diff(old: Any, new: Any, prefix: str = "") -> list[str]:

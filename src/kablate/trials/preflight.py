@@ -70,7 +70,7 @@ def step_bytes(item: CostedVariant, batch_size: int) -> int:
     """What one training step of ``item`` needs, by estimate: its saved activations with the
     backward pass's headroom, its parameters with gradients and optimiser state, and the input
     batch twice (the batch and its augmented copy)."""
-    c, h, w = item.cost.layout.in_shape
+    c, h, w = item.blueprint.in_shape
     batch = 2 * batch_size * c * h * w * 4
     return ACT_FACTOR * item.cost.act_mem_bytes + STATE_BYTES_PER_PARAM * item.cost.params + batch
 
@@ -120,7 +120,7 @@ def try_one_step(catalog: Catalog, data: PreparedData | None = None, device: str
     recipe, seed = catalog.sweep.recipe, max(catalog.sweep.seeds)
     try:
         torch.manual_seed(seed)
-        model = build_network(item.cost.layout).to(device, memory_format=torch.channels_last)
+        model = build_network(item.blueprint).to(device, memory_format=torch.channels_last)
         optimizer = make_optimizer(model, recipe)
         x, y, n_train, eval_x = sample_batch(catalog, data, seed)
         steps_per_epoch, total = budget_steps(recipe, n_train)

@@ -120,7 +120,7 @@ def _train_and_tell(ctx: WorkerContext, trial: optuna.Trial, key: str) -> str:
     started = time.perf_counter()
     try:
         record = train_trial(
-            item.cost.layout,
+            item.blueprint,
             ctx.catalog.sweep.recipe,
             ctx.data,
             job.seed,
