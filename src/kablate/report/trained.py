@@ -28,6 +28,11 @@ def erf_maps(folder: ResultsFolder, analysis: Analysis, data: dict) -> tuple[lis
 
     if analysis.decision is None:
         return [], "there is no recommended plan yet to map"
+    if folder.meta["resolved"].get("model"):
+        return [], (
+            "effective-receptive-field maps are drawn for kablate's own networks only (they "
+            "cut the network before its head by kablate's own layer names)"
+        )
     trials = analysis.trials
     done = trials[trials["status"] == "done"]
     # A decision needs the baseline's evidence, so both have finished trials here.
@@ -56,11 +61,6 @@ def erf_maps(folder: ResultsFolder, analysis: Analysis, data: dict) -> tuple[lis
         return [], f"the sweep's data could not be loaded here ({type(exc).__name__}: {exc})"
     if prepared.manifest()["indices_sha1"]["val"] != data["indices_sha1"]["val"]:
         return [], "the validation split loaded here differs from the one the sweep used"
-    if sweep.model is not None:
-        return [], (
-            "effective-receptive-field maps are drawn for kablate's own networks only: on your "
-            "model kablate cannot tell which map the head pools"
-        )
     layouts = {cv.variant.id: cv.blueprint for cv in catalog.variants}
     maps = []
     for name in names:
