@@ -15,7 +15,8 @@ import torch
 from kablate.costs.graph import GraphCost, graph_cost
 from kablate.errors import PlanError
 from kablate.nets.model_variant import ARGUMENTS_KEY, ModelVariant, model_variant
-from kablate.nets.rewrite import ConvSite, check_rewrite, find_convs
+from kablate.nets.rewrite import check_rewrite
+from kablate.nets.sites import ConvSite, find_convs
 from kablate.plans.expand import Variant
 from kablate.spec.schema import SweepSpec
 

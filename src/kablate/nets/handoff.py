@@ -79,7 +79,8 @@ def apply_handoff(model: nn.Module, path: str | Path) -> nn.Module:
     Raises:
         UsageError: the file is for kablate's own network, or names a conv ``model`` lacks.
     """
-    from kablate.nets.rewrite import find_convs, rewrite_model
+    from kablate.nets.rewrite import rewrite_model
+    from kablate.nets.sites import find_convs
 
     handoff = read_handoff(path)
     if "rewrites" not in handoff:

@@ -15,9 +15,13 @@ def get_padding(kernel: Pair, dilation: Pair, policy: str) -> Quad:
     """
     if policy == "valid":
         return (0, 0, 0, 0)
-    th = dilation[0] * (kernel[0] - 1)
-    tw = dilation[1] * (kernel[1] - 1)
-    return (th // 2, th - th // 2, tw // 2, tw - tw // 2)
+    return split_padding(dilation[0] * (kernel[0] - 1), dilation[1] * (kernel[1] - 1))
+
+
+def split_padding(total_h: int, total_w: int) -> Quad:
+    """Total paddings per axis as (top, bottom, left, right): halves, the odd pixel at the
+    bottom/right."""
+    return (total_h // 2, total_h - total_h // 2, total_w // 2, total_w - total_w // 2)
 
 
 def is_symmetric(padding: Quad) -> bool:

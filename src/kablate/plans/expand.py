@@ -22,7 +22,7 @@ from kablate.plans.groups import GroupError, resolve_kernels
 from kablate.spec.schema import PlanSpec, SweepSpec
 
 if TYPE_CHECKING:  # nets imports plans: the sites of a user's model are only passed through
-    from kablate.nets.rewrite import ConvSite
+    from kablate.nets.sites import ConvSite
 
 UNCHANGED = "unchanged"  # the name of a [model] sweep's unchanged model, its default baseline
 
@@ -78,7 +78,7 @@ def plan_resolver(sweep: SweepSpec, sites: Sequence[ConvSite] | None = None) -> 
     or module-path patterns and roles over the ``sites`` (Conv2d layers) of the user's model."""
     if sweep.model is None:
         return lambda plan: resolve_kernels(sweep.network, plan)
-    from kablate.nets.rewrite import resolve_model_plan
+    from kablate.nets.sites import resolve_model_plan
 
     assert sites is not None, "a [model] sweep's plans resolve over its model's convs"
     return lambda plan: resolve_model_plan(list(sites), plan)

@@ -74,7 +74,7 @@ def resolve_kernels(network: NetworkSpec, plan: dict[str, str]) -> dict[str, Ker
     slots = list_slots(network)
     chosen: dict[str, tuple[int, KernelSpec]] = {}
     for slot in slots:
-        chosen[slot.name] = (-1, _parse(slot.base_kernel, slot.name))
+        chosen[slot.name] = (-1, parse_group_spec(slot.base_kernel, slot.name))
     for group, text in plan.items():
         if group not in groups:
             visible = ["body", "stem", *stage_names(network)]
@@ -85,14 +85,16 @@ def resolve_kernels(network: NetworkSpec, plan: dict[str, str]) -> dict[str, Ker
                 f"or one conv as conv<N> or <stage>.<i>)",
             )
         level, members = groups[group]
-        spec = _parse(text, group)
+        spec = parse_group_spec(text, group)
         for slot_name in members:
             if level >= chosen[slot_name][0]:
                 chosen[slot_name] = (level, spec)
     return {name: spec for name, (_, spec) in chosen.items()}
 
 
-def _parse(text: str, group: str) -> KernelSpec:
+def parse_group_spec(text: str, group: str) -> KernelSpec:
+    """Parse the spec a plan gives ``group``; a spec that does not parse is a `GroupError`
+    naming the group."""
     try:
         return parse_kernel(text)
     except KernelSpecError as exc:
