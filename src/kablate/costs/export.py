@@ -63,6 +63,7 @@ def variant_json(item: CostedVariant, with_layers: bool = True) -> dict:
     if isinstance(item.blueprint, ModelVariant):  # a [model] sweep: whose code, what changed
         out["model"] = {"factory": item.blueprint.factory, "arguments": item.blueprint.arguments}
         out["rewrites"] = dict(item.blueprint.changes)
+        out["initialisation"] = dict(item.blueprint.inits)
     if with_layers:
         out["layers"] = [layer_json(row) for row in cost.layers]
     return out
@@ -182,6 +183,9 @@ def catalog_table(catalog: Catalog) -> str:
             lines += _wrap(f"same network: {item.name} = {', '.join(item.variant.aliases)}")
     for item, reason in catalog.dropped:
         lines += _wrap(f"dropped {item.name}: {reason}")
+    inits = {i for item in catalog.variants for _, i in getattr(item.blueprint, "inits", ())}
+    for init in sorted(inits):
+        lines += _wrap(f"rewritten convs initialised as {init} (--format json: per conv)")
     for warning in catalog.warnings:
         lines += _wrap(f"warning: {warning}")
     return "\n".join(lines)

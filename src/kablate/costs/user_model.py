@@ -68,7 +68,8 @@ class UserModel:
         blueprint = model_variant(
             variant.name, spec.factory, spec.arguments, self.in_shape, self.n_classes, changes
         )
-        return graph_cost(blueprint.build(), self.in_shape, batch_size), blueprint
+        model, blueprint = blueprint.build_and_describe()
+        return graph_cost(model, self.in_shape, batch_size), blueprint
 
 
 def check_output(model: torch.nn.Module, sweep: SweepSpec, in_shape, n_classes: int) -> None:

@@ -10,7 +10,8 @@ itself is rebuilt wherever it is needed, by importing and calling the factory.
 from __future__ import annotations
 
 import json
-from dataclasses import dataclass
+from dataclasses import dataclass, field, replace
+from typing import Self
 
 import torch
 from torch import nn
@@ -30,6 +31,8 @@ class ModelVariant:
     in_shape: tuple[int, int, int]  # C, H, W
     n_classes: int
     changes: tuple[tuple[str, str], ...]  # (module path, kernel spec) of each rewritten conv
+    # (module path, how its new convs were initialised), once built (`kablate.nets.inits`)
+    inits: tuple[tuple[str, str], ...] = field(default=(), compare=False)
 
     @property
     def arguments(self) -> dict:
@@ -47,12 +50,17 @@ class ModelVariant:
 
     def build(self, device: str | torch.device = "cpu") -> nn.Module:
         """The factory's model with this variant's convs rewritten."""
+        return self.build_and_describe(device)[0]
+
+    def build_and_describe(self, device: str | torch.device = "cpu") -> tuple[nn.Module, Self]:
+        """The built model, and this variant with the initialisation of each rewritten conv."""
         from kablate.nets.rewrite import rewrite_model
 
         model = self.build_unchanged(device)
-        if self.changes:
-            rewrite_model(model, {path: parse_kernel(spec) for path, spec in self.changes})
-        return model
+        if not self.changes:
+            return model, self
+        report = rewrite_model(model, {path: parse_kernel(spec) for path, spec in self.changes})
+        return model, replace(self, inits=tuple(report.inits.items()))
 
 
 def model_variant(
