@@ -2,6 +2,9 @@
 
 from __future__ import annotations
 
+import csv
+import io
+import json
 import shutil
 import subprocess
 import sys
@@ -58,6 +61,18 @@ def test_plan_prints_every_format_for_the_quickstart():
         out = kablate("plan", "sweeps/quickstart.toml", "--format", fmt)
         assert out.returncode == 0, out.stderr
         assert "all-3" in out.stdout
+
+
+def test_plan_csv_ends_with_its_last_row():
+    # A CSV file ends with one line break after the last record (RFC 4180, section 2).
+    out = kablate("plan", "sweeps/quickstart.toml", "--format", "csv")
+    assert out.returncode == 0, out.stderr
+    rows = list(csv.reader(io.StringIO(out.stdout)))
+    assert [] not in rows, rows[-2:]
+    assert out.stdout.endswith("\n") and not out.stdout.endswith("\n\n")
+    assert len(rows) == 1 + len(
+        json.loads(kablate("plan", "sweeps/quickstart.toml", "--format", "json").stdout)
+    )
 
 
 def test_missing_results_folder_is_a_usage_error(tmp_path):

@@ -57,6 +57,12 @@ def parse_duration(text: str) -> float:
     return h * 3600 + m * 60 + s
 
 
+def echo_document(text: str) -> None:
+    """Print a table, JSON or CSV document with exactly one line break at its end (a CSV
+    writer already ends each row with one; a second would be an empty row)."""
+    click.echo(text, nl=not text.endswith("\n"))
+
+
 def quit_while_starting(signum, frame) -> None:
     """Ctrl-C before a command has imported what it needs: leave at once, in one line.
 
@@ -186,7 +192,7 @@ def plan(
     if latency:
         measure_latencies(catalog, threads)
     render = {"table": catalog_table, "json": catalog_json, "csv": catalog_csv}[fmt]
-    click.echo(render(catalog))
+    echo_document(render(catalog))
     if fmt != "table":  # the table lists them; keep JSON and CSV parseable on stdout
         for item, reason in catalog.dropped:
             click.echo(f"dropped {item.name}: {reason}", err=True)
@@ -206,7 +212,7 @@ def plan_one_model(
     shape, kwargs = parse_input_shape(input_shape), parse_kwargs(factory_kwargs)
     result = plan_model(factory, kwargs, shape, batch_size)
     render = {"table": model_table, "json": model_json, "csv": model_csv}[fmt]
-    click.echo(render(result))
+    echo_document(render(result))
     if fmt != "table":
         for note in result.cost.notes:
             click.echo(f"note: {note}", err=True)
