@@ -30,6 +30,24 @@ def test_help_lists_the_verbs():
         assert f"  {verb} " in out.stdout
 
 
+def test_help_gives_each_verb_its_whole_first_sentence():
+    from kablate.cli import main
+
+    listing = kablate("--help").stdout.split("Commands:\n")[1]
+    described: dict[str, str] = {}
+    for line in listing.splitlines():
+        name, _, text = line.strip().partition(" ") if line[:4].strip() else ("", "", line)
+        if name:
+            described[name] = text.strip()
+        else:
+            described[list(described)[-1]] += " " + text.strip()
+    for verb in ("plan", "run", "status", "report"):
+        first_sentence = " ".join(main.commands[verb].help.split("\n\n")[0].split())
+        first_sentence = first_sentence.split(". ")[0].rstrip(".") + "."
+        assert described[verb] == first_sentence
+    assert "..." not in listing
+
+
 def test_every_verb_has_help_with_an_example():
     for verb in ("plan", "run", "status", "report"):
         out = kablate(verb, "--help")

@@ -106,6 +106,19 @@ class KablateGroup(click.Group):
             if previous is not None:
                 signal.signal(signal.SIGINT, previous)
 
+    def format_commands(self, ctx: click.Context, formatter: click.HelpFormatter) -> None:
+        """List each command with its whole first sentence, wrapped to the width instead of
+        cut off with "..." (click shortens it to fit one line)."""
+        commands = [(name, self.get_command(ctx, name)) for name in self.list_commands(ctx)]
+        rows = [
+            (name, cmd.get_short_help_str(limit=1000))
+            for name, cmd in commands
+            if cmd and not cmd.hidden
+        ]
+        if rows:
+            with formatter.section("Commands"):
+                formatter.write_dl(rows)
+
 
 @click.group(cls=KablateGroup, context_settings={"help_option_names": ["-h", "--help"]})
 @click.version_option(__version__, prog_name="kablate")
