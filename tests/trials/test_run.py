@@ -57,6 +57,14 @@ def test_run_writes_the_results_contract_and_a_rerun_trains_nothing(tiny_sweep, 
 
     again = run_sweep(tiny_sweep, opts)
     assert again.n_ran == 0 and again.n_new == 0
+    printed: list[str] = []
+    opts.dry_run, opts.echo = True, printed.append
+    dry = run_sweep(tiny_sweep, opts)
+    assert printed == [
+        f"every one of the 4 trials of sweep tiny has already finished, in {folder}: "
+        f"`kablate run` would train nothing; `kablate report {folder}` rebuilds the report"
+    ]
+    assert dry.counts == {"done": 4}
 
 
 @pytest.mark.slow
