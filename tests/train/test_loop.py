@@ -238,7 +238,7 @@ def test_a_non_finite_validation_loss_also_ends_the_trial_as_diverged(tiny, monk
     assert record.status == "diverged"
     assert [e.epoch for e in record.curve] == [0, 1, 2]  # the curve, with its last point
     assert math.isnan(record.curve[-1].val_loss) and math.isfinite(record.curve[1].val_loss)
-    assert record.note == "validation loss was nan after epoch 2"
+    assert record.note == "validation loss was nan after epoch 3"  # the third, counted from 1
     assert record.best_epoch < 2 and math.isnan(record.test_acc)
     assert len(calls) == recipe.epochs  # no test evaluation
 
