@@ -228,11 +228,13 @@ def plan_one_sweep(path: Path, latency: bool, threads: int | None, several: bool
     """The costed catalog of one sweep file. With several files a refused one is reported on
     stderr and returned as its error, so that the others are still planned."""
     from kablate.costs.catalog import build_catalog, measure_latencies
+    from kablate.costs.pointless import pointless_kernels
     from kablate.spec.loader import load_sweep
     from kablate.trials.preflight import run_preflight
 
     try:
         catalog = build_catalog(load_sweep(path))
+        catalog.warnings += pointless_kernels(catalog)
         run_preflight(catalog)  # before --latency allocates anything at the recipe's batch size
         if latency:
             measure_latencies(catalog, threads)
