@@ -2,6 +2,9 @@
 
 from __future__ import annotations
 
+import csv
+import io
+import json
 import shutil
 import subprocess
 import sys
@@ -25,6 +28,24 @@ def test_help_lists_the_verbs():
     assert out.returncode == 0
     for verb in ("plan", "run", "status", "report"):
         assert f"  {verb} " in out.stdout
+
+
+def test_help_gives_each_verb_its_whole_first_sentence():
+    from kablate.cli import main
+
+    listing = kablate("--help").stdout.split("Commands:\n")[1]
+    described: dict[str, str] = {}
+    for line in listing.splitlines():
+        name, _, text = line.strip().partition(" ") if line[:4].strip() else ("", "", line)
+        if name:
+            described[name] = text.strip()
+        else:
+            described[list(described)[-1]] += " " + text.strip()
+    for verb in ("plan", "run", "status", "report"):
+        first_sentence = " ".join(main.commands[verb].help.split("\n\n")[0].split())
+        first_sentence = first_sentence.split(". ")[0].rstrip(".") + "."
+        assert described[verb] == first_sentence
+    assert "..." not in listing
 
 
 def test_every_verb_has_help_with_an_example():
@@ -58,6 +79,18 @@ def test_plan_prints_every_format_for_the_quickstart():
         out = kablate("plan", "sweeps/quickstart.toml", "--format", fmt)
         assert out.returncode == 0, out.stderr
         assert "all-3" in out.stdout
+
+
+def test_plan_csv_ends_with_its_last_row():
+    # A CSV file ends with one line break after the last record (RFC 4180, section 2).
+    out = kablate("plan", "sweeps/quickstart.toml", "--format", "csv")
+    assert out.returncode == 0, out.stderr
+    rows = list(csv.reader(io.StringIO(out.stdout)))
+    assert [] not in rows, rows[-2:]
+    assert out.stdout.endswith("\n") and not out.stdout.endswith("\n\n")
+    assert len(rows) == 1 + len(
+        json.loads(kablate("plan", "sweeps/quickstart.toml", "--format", "json").stdout)
+    )
 
 
 def test_missing_results_folder_is_a_usage_error(tmp_path):

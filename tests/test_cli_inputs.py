@@ -3,6 +3,8 @@ a traceback."""
 
 from __future__ import annotations
 
+import csv
+import io
 import json
 import subprocess
 import sys
@@ -149,3 +151,33 @@ def test_ctrl_c_while_importing_exits_130_in_one_line(module, args, said):
     )
     assert out.returncode == 130, out.stderr
     assert out.stderr == said
+
+
+def test_plan_takes_several_sweep_files_one_table_each():
+    files = ("sweeps/quickstart.toml", "sweeps/stem-size.toml")
+    alone = [CliRunner().invoke(main, ["plan", str(REPO / f)]) for f in files]
+    both = CliRunner().invoke(main, ["plan", *(str(REPO / f) for f in files)])
+    assert both.exit_code == 0, both.output
+    tables = [f"{REPO / f}\n{out.stdout}" for f, out in zip(files, alone, strict=True)]
+    assert both.stdout == "\n".join(tables)
+    assert tables[0].splitlines()[1].startswith("sweep quickstart: 5 variants")
+    assert tables[1].splitlines()[1].startswith("sweep stem-size: 6 variants")
+
+
+def test_plan_of_several_files_prints_the_others_when_one_is_refused(tmp_path):
+    bad = tmp_path / "bad.toml"
+    bad.write_text('[sweep]\nname = "bad"\n')
+    good = REPO / "sweeps" / "quickstart.toml"
+    out = CliRunner().invoke(main, ["plan", str(good), str(bad), "--format", "json"])
+    assert out.exit_code == 2
+    refused, warned = out.stderr.splitlines()  # the error, then the good file's warning
+    assert refused == f"error: {bad}: `plan` is missing: give at least one [[plan]] or [[grid]]"
+    assert warned.startswith(f"{good}: warning: body-5: its receptive field is already 28x28")
+    first, second = json.loads(out.stdout)
+    alone = json.loads(CliRunner().invoke(main, ["plan", str(good), "--format", "json"]).stdout)
+    assert first == {"file": str(good), "sweep": "quickstart", "variants": alone}
+    assert second == {"file": str(bad), "error": refused.removeprefix("error: ")}
+    rows = list(
+        csv.DictReader(io.StringIO(invoke("plan", str(good), str(bad), "--format", "csv").stdout))
+    )
+    assert [(r["file"], r["name"]) for r in rows] == [(str(good), v["name"]) for v in alone]

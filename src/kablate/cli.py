@@ -21,6 +21,7 @@ EPILOG_PLAN = """\b
 Examples:
   kablate plan sweeps/stem-size.toml
   kablate plan sweeps/stem-size.toml --format json --latency > plan.json
+  kablate plan sweeps/*.toml
   kablate plan --model torchvision.models:resnet18 --input 3x224x224
   kablate plan --model mypkg.nets:build --input 3x32x32 --kwargs '{"num_classes": 10}'
 --model imports the named module, which runs its code: name only code you trust.
@@ -67,6 +68,12 @@ def parse_duration(text: str) -> float:
     return h * 3600 + m * 60 + s
 
 
+def echo_document(text: str) -> None:
+    """Print a table, JSON or CSV document with exactly one line break at its end (a CSV
+    writer already ends each row with one; a second would be an empty row)."""
+    click.echo(text, nl=not text.endswith("\n"))
+
+
 def quit_while_starting(signum, frame) -> None:
     """Ctrl-C before a command has imported what it needs: leave at once, in one line.
 
@@ -109,6 +116,19 @@ class KablateGroup(click.Group):
             if previous is not None:
                 signal.signal(signal.SIGINT, previous)
 
+    def format_commands(self, ctx: click.Context, formatter: click.HelpFormatter) -> None:
+        """List each command with its whole first sentence, wrapped to the width instead of
+        cut off with "..." (click shortens it to fit one line)."""
+        commands = [(name, self.get_command(ctx, name)) for name in self.list_commands(ctx)]
+        rows = [
+            (name, cmd.get_short_help_str(limit=1000))
+            for name, cmd in commands
+            if cmd and not cmd.hidden
+        ]
+        if rows:
+            with formatter.section("Commands"):
+                formatter.write_dl(rows)
+
 
 @click.group(cls=KablateGroup, context_settings={"help_option_names": ["-h", "--help"]})
 @click.version_option(__version__, prog_name="kablate")
@@ -121,7 +141,7 @@ def main() -> None:
 
 
 @main.command(epilog=EPILOG_PLAN)
-@click.argument("sweep", type=click.Path(path_type=Path), required=False)
+@click.argument("sweeps", nargs=-1, type=click.Path(path_type=Path))
 @click.option(
     "--model",
     "factory",
@@ -165,7 +185,7 @@ def main() -> None:
     help="Threads for --latency (default: torch's).",
 )
 def plan(
-    sweep: Path | None,
+    sweeps: tuple[Path, ...],
     factory: str | None,
     input_shape: str | None,
     factory_kwargs: str | None,
@@ -174,11 +194,11 @@ def plan(
     latency: bool,
     threads: int | None,
 ) -> None:
-    """Expand a sweep into variants with their static costs, without training; or, with
-    --model, measure one model as it is."""
-    if (sweep is None) == (factory is None):
+    """Expand one or more sweeps into variants with their static costs, without training; or,
+    with --model, measure one model as it is."""
+    if bool(sweeps) == (factory is not None):
         raise UsageError(
-            "give a sweep file (e.g. sweeps/quickstart.toml) or --model PKG.MODULE:FACTORY, "
+            "give sweep files (e.g. sweeps/quickstart.toml) or --model PKG.MODULE:FACTORY, "
             "one of the two"
         )
     if factory is not None:
@@ -186,22 +206,54 @@ def plan(
             raise UsageError("--latency is not available with --model yet; drop --latency")
         plan_one_model(factory, input_shape, factory_kwargs, batch_size, fmt)
         return
+    from kablate.costs.export import (
+        catalog_csv,
+        catalog_json,
+        catalog_table,
+        catalogs_csv,
+        catalogs_json,
+    )
+
+    several = len(sweeps) > 1
+    planned = [(path, plan_one_sweep(path, latency, threads, several)) for path in sweeps]
+    catalogs = [(path, c) for path, c in planned if not isinstance(c, KablateError)]
+    if several and fmt != "table":
+        echo_document({"json": catalogs_json, "csv": catalogs_csv}[fmt](planned))
+    elif catalogs:  # one table per file, under its path when there are several
+        render = {"table": catalog_table, "json": catalog_json, "csv": catalog_csv}[fmt]
+        heads = [f"{path}\n" if several else "" for path, _ in catalogs]
+        echo_document("\n\n".join(h + render(c) for h, (_, c) in zip(heads, catalogs, strict=True)))
+    if fmt != "table":  # the table lists them; keep JSON and CSV parseable on stdout
+        for path, catalog in catalogs:
+            where = f"{path}: " if several else ""
+            for item, reason in catalog.dropped:
+                click.echo(f"{where}dropped {item.name}: {reason}", err=True)
+            for warning in catalog.warnings:
+                click.echo(f"{where}warning: {warning}", err=True)
+    if len(catalogs) < len(sweeps):
+        sys.exit(max(c.exit_code for _, c in planned if isinstance(c, KablateError)))
+
+
+def plan_one_sweep(path: Path, latency: bool, threads: int | None, several: bool):
+    """The costed catalog of one sweep file. With several files a refused one is reported on
+    stderr and returned as its error, so that the others are still planned."""
     from kablate.costs.catalog import build_catalog, measure_latencies
-    from kablate.costs.export import catalog_csv, catalog_json, catalog_table
+    from kablate.costs.pointless import pointless_kernels
     from kablate.spec.loader import load_sweep
     from kablate.trials.preflight import run_preflight
 
-    catalog = build_catalog(load_sweep(sweep))
-    run_preflight(catalog)  # before --latency allocates anything at the recipe's batch size
-    if latency:
-        measure_latencies(catalog, threads)
-    render = {"table": catalog_table, "json": catalog_json, "csv": catalog_csv}[fmt]
-    click.echo(render(catalog))
-    if fmt != "table":  # the table lists them; keep JSON and CSV parseable on stdout
-        for item, reason in catalog.dropped:
-            click.echo(f"dropped {item.name}: {reason}", err=True)
-        for warning in catalog.warnings:
-            click.echo(f"warning: {warning}", err=True)
+    try:
+        catalog = build_catalog(load_sweep(path))
+        catalog.warnings += pointless_kernels(catalog)
+        run_preflight(catalog)  # before --latency allocates anything at the recipe's batch size
+        if latency:
+            measure_latencies(catalog, threads)
+    except KablateError as exc:
+        if not several:
+            raise
+        click.echo(f"error: {exc}", err=True)
+        return exc
+    return catalog
 
 
 def plan_one_model(
@@ -216,7 +268,7 @@ def plan_one_model(
     shape, kwargs = parse_input_shape(input_shape), parse_kwargs(factory_kwargs)
     result = plan_model(factory, kwargs, shape, batch_size)
     render = {"table": model_table, "json": model_json, "csv": model_csv}[fmt]
-    click.echo(render(result))
+    echo_document(render(result))
     if fmt != "table":
         for note in result.cost.notes:
             click.echo(f"note: {note}", err=True)

@@ -49,6 +49,18 @@ def test_bad_specs_say_what_is_allowed(text, phrase):
         parse_kernel(text)
 
 
+def test_a_misspelt_form_gets_a_did_you_mean():
+    with pytest.raises(KernelSpecError) as caught:
+        parse_kernel("5:splt")
+    assert str(caught.value) == (
+        "names form `splt`; did you mean `split`? "
+        "(the forms are dense, stack, split, depthwise, bottleneck)"
+    )
+    with pytest.raises(KernelSpecError) as caught:
+        parse_kernel("3:wide")  # nothing close: no guess
+    assert "did you mean" not in str(caught.value)
+
+
 def test_stack_depth_keeps_the_receptive_field():
     # (k − 1)/2 stacked 3×3 convs see k×k (Simonyan & Zisserman 2014, section 2.3)
     for k in (3, 5, 7, 9, 11):

@@ -50,7 +50,7 @@ def analysis():
         }
         for name in ("base", "cheap", "big")
         for s in (0, 1)
-        for e in range(4)
+        for e in range(1, 5)  # epochs count from 1 in curves.csv (train.record.shown_epoch)
     ]
     grids = [{"stem": ["3", "5"], "body": ["3", "5"]}]
     a = analyze(with_predictions(rows()), curves, p, grids, data_json(), PickSpec(margin=2.0))
@@ -132,6 +132,16 @@ def test_rf_vs_accuracy(analysis, tmp_path):
 def test_learning_curves(analysis, tmp_path):
     with rendering():
         check(plot_learning_curves(analysis, tmp_path, "sub"), "learning_curves")
+
+
+def test_learning_curves_put_each_epoch_where_curves_csv_numbers_it(
+    analysis, tmp_path, monkeypatch
+):
+    with rendering():
+        fig = drawn(monkeypatch, lambda: plot_learning_curves(analysis, tmp_path, "sub"))
+        full = fig.axes[0]
+        assert [list(line.get_xdata()) for line in full.get_lines()] == [[1, 2, 3, 4]] * 3
+        assert full.get_lines()[0].get_ydata()[0] == pytest.approx(0.605)  # epoch 1, 2 seeds
 
 
 def test_grid_heatmap(analysis, tmp_path):

@@ -238,7 +238,7 @@ def test_a_non_finite_validation_loss_also_ends_the_trial_as_diverged(tiny, monk
     assert record.status == "diverged"
     assert [e.epoch for e in record.curve] == [0, 1, 2]  # the curve, with its last point
     assert math.isnan(record.curve[-1].val_loss) and math.isfinite(record.curve[1].val_loss)
-    assert record.note == "validation loss was nan after epoch 2"
+    assert record.note == "validation loss was nan after epoch 3"  # the third, counted from 1
     assert record.best_epoch < 2 and math.isnan(record.test_acc)
     assert len(calls) == recipe.epochs  # no test evaluation
 
@@ -279,13 +279,13 @@ def test_an_interrupted_trial_resumes_to_the_numbers_of_an_uninterrupted_one(tin
         return len(calls) > 2 * math.ceil(160 / 32) + 2  # a few steps into epoch 2
 
     workdir = tmp_path / "cut"
-    with pytest.raises(TrialInterrupted, match="epoch 2"):
+    with pytest.raises(TrialInterrupted, match="epoch 3"):  # the third, counted from 1
         train_trial(
             layouts["all-3"], recipe, data, 3, workdir=workdir, should_stop=stop_in_epoch_two
         )
     assert load_checkpoint(workdir / loop.CHECKPOINT)["epoch"] == 1  # epochs 0 and 1 are safe
     resumed = train_trial(layouts["all-3"], recipe, data, seed=3, workdir=workdir)
-    assert resumed.note == "resumed at epoch 2"
+    assert resumed.note == "resumed at epoch 3"
     assert curve_values(resumed) == curve_values(whole)
     assert (resumed.best_val_acc, resumed.best_epoch, resumed.test_acc, resumed.steps) == (
         whole.best_val_acc,

@@ -46,6 +46,15 @@ def test_run_writes_the_results_contract_and_a_rerun_trains_nothing(tiny_sweep, 
         ("stem-5", "1"),
     }
     assert all(0.0 <= float(r["val_acc"]) <= 1.0 for r in rows)
+    # One epoch numbering: curves.csv counts the 2 epochs from 1, and trials.csv's best_epoch
+    # is the first epoch of the curve with the highest validation accuracy.
+    with (folder / "curves.csv").open() as fh:
+        curves = list(csv.DictReader(fh))
+    for r in rows:
+        mine = [c for c in curves if (c["variant"], c["seed"]) == (r["variant"], r["seed"])]
+        assert [c["epoch"] for c in mine] == ["1", "2"]
+        best = max(mine, key=lambda c: (float(c["val_acc"]), -int(c["epoch"])))
+        assert r["best_epoch"] == best["epoch"] and r["score_epoch"] == "2"
 
     card = write_report(open_results(folder))
     assert card == folder / "report" / "model_card.md"
@@ -57,6 +66,14 @@ def test_run_writes_the_results_contract_and_a_rerun_trains_nothing(tiny_sweep, 
 
     again = run_sweep(tiny_sweep, opts)
     assert again.n_ran == 0 and again.n_new == 0
+    printed: list[str] = []
+    opts.dry_run, opts.echo = True, printed.append
+    dry = run_sweep(tiny_sweep, opts)
+    assert printed == [
+        f"every one of the 4 trials of sweep tiny has already finished, in {folder}: "
+        f"`kablate run` would train nothing; `kablate report {folder}` rebuilds the report"
+    ]
+    assert dry.counts == {"done": 4}
 
 
 @pytest.mark.slow

@@ -64,3 +64,18 @@ def test_a_stopped_sweep_has_no_eta_and_says_how_to_continue():
     assert status.eta_seconds is None and status.throughput_per_hour == 0
     assert "no trial is running" in format_status(status)
     assert summarize("demo", rows[:1], trials, NOW, {}).finished
+
+
+def test_a_finished_sweep_reports_its_throughput_over_the_time_trials_ran():
+    rows = [row("a", 0, "done"), row("b", 0, "done"), row("a", 1, "diverged")]
+    trials = [
+        trial("a-s0", TrialState.COMPLETE, -300, -290),  # an earlier night
+        trial("b-s0", TrialState.COMPLETE, -295, -285),  # overlaps it: 15 min together
+        trial("a-s1", TrialState.FAIL, -10, -5),  # diverged, tonight: 5 min
+    ]
+    trials[2].user_attrs["outcome"] = "diverged"
+    status = summarize("demo", rows, trials, NOW, {})
+    assert status.finished and status.eta_seconds == 0
+    assert status.throughput_per_hour == 3 / 20 * 60  # 3 trials in 20 busy minutes
+    text = format_status(status)
+    assert "every trial has finished; throughput 9.0 trials/h over the time trials were" in text

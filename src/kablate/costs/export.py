@@ -73,6 +73,20 @@ def catalog_json(catalog: Catalog) -> str:
     return json.dumps([variant_json(v) for v in catalog.variants], indent=2)
 
 
+def catalogs_json(planned: list[tuple[object, Catalog | Exception]]) -> str:
+    """Several sweep files: a list with one object per file, in the order given. A planned
+    file is ``{"file", "sweep", "variants"}`` (`variants` as `catalog_json`), a refused one
+    ``{"file", "error"}``."""
+    out = []
+    for path, catalog in planned:
+        if isinstance(catalog, Catalog):
+            variants = [variant_json(v) for v in catalog.variants]
+            out.append({"file": str(path), "sweep": catalog.sweep.name, "variants": variants})
+        else:
+            out.append({"file": str(path), "error": str(catalog)})
+    return json.dumps(out, indent=2)
+
+
 CSV_COLUMNS = (
     "id",
     "name",
@@ -90,15 +104,30 @@ CSV_COLUMNS = (
 )
 
 
+def _csv_cells(item: CostedVariant) -> list:
+    row = variant_json(item, with_layers=False)
+    row["out_hw"] = "x".join(map(str, row["out_hw"])) if row["out_hw"] else ""
+    row["plan"] = plan_text(row["plan"])
+    return [row[c] if row[c] is not None else "" for c in CSV_COLUMNS]
+
+
 def catalog_csv(catalog: Catalog) -> str:
     buf = io.StringIO()
     writer = csv.writer(buf, lineterminator="\n")
     writer.writerow(CSV_COLUMNS)
-    for item in catalog.variants:
-        row = variant_json(item, with_layers=False)
-        row["out_hw"] = "x".join(map(str, row["out_hw"])) if row["out_hw"] else ""
-        row["plan"] = plan_text(row["plan"])
-        writer.writerow([row[c] if row[c] is not None else "" for c in CSV_COLUMNS])
+    writer.writerows(_csv_cells(item) for item in catalog.variants)
+    return buf.getvalue()
+
+
+def catalogs_csv(planned: list[tuple[object, Catalog | Exception]]) -> str:
+    """Several sweep files: one CSV, the columns of `catalog_csv` after a first `file` column;
+    a refused file has no rows (its error goes to stderr)."""
+    buf = io.StringIO()
+    writer = csv.writer(buf, lineterminator="\n")
+    writer.writerow(("file", *CSV_COLUMNS))
+    for path, catalog in planned:
+        if isinstance(catalog, Catalog):
+            writer.writerows([str(path), *_csv_cells(item)] for item in catalog.variants)
     return buf.getvalue()
 
 

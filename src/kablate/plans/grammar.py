@@ -16,6 +16,7 @@ import re
 from dataclasses import dataclass
 from typing import Literal
 
+from kablate.errors import did_you_mean
 from kablate.spec.bounds import MAX_KERNEL, MAX_SPEC_DIGITS
 
 Form = Literal["dense", "stack", "split", "depthwise", "bottleneck"]
@@ -71,7 +72,8 @@ def parse_kernel(text: str) -> KernelSpec:
     dilation = _number(match["dil"]) if match["dil"] else 1
     form = match["form"] or "dense"
     if form not in FORMS:
-        raise KernelSpecError(f"names form `{form}`; the forms are {', '.join(FORMS)}")
+        hint = did_you_mean(form, FORMS)
+        raise KernelSpecError(f"names form `{form}`{hint} (the forms are {', '.join(FORMS)})")
     if kh < 1 or kw < 1 or dilation < 1:
         raise KernelSpecError("needs kernel sizes and dilation ≥ 1")
     if match["ratio"] and form != "bottleneck":

@@ -252,7 +252,7 @@ def plot_learning_curves(analysis: Analysis, out: Path, subtitle: str) -> list[P
     the right panel zooms into the second half of training, where the plans separate."""
     fig, (full, zoom) = _figure("Learning curves", subtitle, ncols=2)
     curves = analysis.curves
-    last = int(curves["epoch"].max()) + 1 if len(curves) else 1
+    last = int(curves["epoch"].max()) if len(curves) else 1  # epochs count from 1 (shown_epoch)
     start = max(1, last // 2)
     lows = []
     for i, name in enumerate(analysis.variants["variant"]):
@@ -261,7 +261,7 @@ def plot_learning_curves(analysis: Analysis, out: Path, subtitle: str) -> list[P
             continue
         colour, marker = style(i)
         g = mine.groupby("epoch")["val_acc"]
-        epochs = g.mean().index.to_numpy() + 1
+        epochs = g.mean().index.to_numpy()
         mean, low, high = g.mean().to_numpy(), g.min().to_numpy(), g.max().to_numpy()
         n = int(mine["seed"].nunique())
         for ax in (full, zoom):

@@ -39,7 +39,7 @@ from kablate.nets.model_variant import ModelVariant
 from kablate.spec.schema import RecipeSpec
 from kablate.train.checkpoint import read_or_set_aside, resume_problem, save_checkpoint, set_aside
 from kablate.train.evidence import encode_predictions
-from kablate.train.record import EpochRecord, TrialRecord
+from kablate.train.record import EpochRecord, TrialRecord, shown_epoch
 from kablate.train.schedule import get_lr_factor
 
 EVAL_BATCH = 512
@@ -154,7 +154,7 @@ def train_epoch(
     )
     for x, y in batches:
         if should_stop is not None and should_stop():
-            raise TrialInterrupted(f"stopped in epoch {progress.epoch}")
+            raise TrialInterrupted(f"stopped in epoch {shown_epoch(progress.epoch)}")
         if progress.step >= total_steps:
             break
         lr = recipe.lr * get_lr_factor(progress.step, total_steps, steps_per_epoch, recipe)
@@ -208,7 +208,7 @@ def restore(
         eval_seconds=saved.get("eval_seconds", 0.0),
         best_state=saved["best_state"],
     )
-    progress.record.note = f"resumed at epoch {progress.epoch}"
+    progress.record.note = f"resumed at epoch {shown_epoch(progress.epoch)}"
     return progress
 
 
@@ -289,7 +289,9 @@ def train_trial(
         record.curve.append(EpochRecord(progress.epoch, train_loss, val_loss, val_acc, seconds))
         if not math.isfinite(val_loss):  # the epoch's last update blew the weights up
             record.status = "diverged"
-            record.note = f"validation loss was {val_loss} after epoch {progress.epoch}"
+            record.note = (
+                f"validation loss was {val_loss} after epoch {shown_epoch(progress.epoch)}"
+            )
             break
         if not record.best_val_acc >= chosen_acc:  # also true while best is still NaN
             record.best_val_acc, record.best_epoch = chosen_acc, progress.epoch

@@ -42,3 +42,13 @@ class TrialRecord:
         curve = [EpochRecord(**row) for row in raw.get("curve", [])]
         known = {f.name for f in fields(cls)}
         return cls(**{k: v for k, v in raw.items() if k in known and k != "curve"}, curve=curve)
+
+
+def shown_epoch(epoch: int | None) -> int | None:
+    """The number a user reads for an epoch of the trainer.
+
+    The trainer and its checkpoints count epochs from 0; everything a user reads counts from
+    1 (`trials.csv`'s `score_epoch` and `best_epoch`, `curves.csv`, the learning-curve plots,
+    the log), so that "epoch 1" is the first one everywhere. No epoch (-1 or None) is None.
+    """
+    return None if epoch is None or epoch < 0 else epoch + 1

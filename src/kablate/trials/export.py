@@ -17,6 +17,7 @@ from pathlib import Path
 import optuna
 
 from kablate.train.evidence import SPLITS, decode_predictions
+from kablate.train.record import shown_epoch
 from kablate.trials.queue import job_status, tagged_trials
 
 TRIAL_COLUMNS = (
@@ -85,13 +86,15 @@ def collect_trials(study: optuna.Study, plan: dict) -> tuple[list[dict], list[di
                     "threads",
                 ):
                     row[name] = attrs.get(name)
+                for name in ("score_epoch", "best_epoch"):
+                    row[name] = shown_epoch(row[name])
                 row["predictions"] = attrs.get("predictions") or {}
                 for epoch, tl, vl, va, sec in attrs.get("curve", []):
                     curves.append(
                         dict(
                             zip(
                                 CURVE_COLUMNS,
-                                (v["name"], seed, epoch, tl, vl, va, sec),
+                                (v["name"], seed, shown_epoch(epoch), tl, vl, va, sec),
                                 strict=True,
                             )
                         )

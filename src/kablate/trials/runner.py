@@ -213,6 +213,17 @@ def dry_run(sweep_path: Path, opts: RunOptions) -> RunSummary:
             done = finished_jobs(open_study(sweep.name, results_dir, url, create=False), jobs)
         except UsageError:
             done = set()
+    if jobs and len(done) == len(jobs):  # nothing to calibrate or order
+        text = (
+            f"every one of the {len(jobs)} trials of sweep {sweep.name} has already finished, "
+            f"in {results_dir}: `kablate run` would train nothing; `kablate report "
+            f"{results_dir}` rebuilds the report"
+        )
+        if opts.echo:
+            opts.echo(text)
+        summary = RunSummary(results_dir, len(jobs), 0, 0, layout=layout, estimate=text)
+        summary.counts = {"done": len(done)}
+        return summary
     data = prepare_data(sweep.data)
     run_preflight(catalog, data, layout[0], opts.device)
     _, text = estimate(catalog, data, jobs, done, layout, opts.budget_seconds)

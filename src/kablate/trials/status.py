@@ -3,7 +3,10 @@
 Throughput is measured from the workers that are running now: each holds one trial, and a
 trial takes about as long as the recent finished ones did (wall time from claim to tell, so
 the slowdown of workers sharing a machine is included). That stays right across a resume,
-when the study also holds trials from earlier nights.
+when the study also holds trials from earlier nights. Once every trial has finished, the
+throughput is that of the whole run: finished trials per hour of the time during which at
+least one trial was running (the union of their claim-to-tell spans, so the gaps between
+nights do not count).
 """
 
 from __future__ import annotations
@@ -26,7 +29,8 @@ class SweepStatus:
     variants: list[dict]  # per variant: name, n_trials and a count per state
     running: list[dict]  # job, worker, started (ISO time)
     mean_trial_seconds: float | None  # recent finished trials, claim to tell
-    throughput_per_hour: float  # trials per hour at the current number of running workers
+    # trials per hour at the current number of running workers; once finished, over the run span
+    throughput_per_hour: float
     eta_seconds: float | None  # None: nothing is running, so no end can be predicted
     finished: bool = False
     layout: dict = field(default_factory=dict)
@@ -78,6 +82,8 @@ def summarize(
         eta = left * mean / len(running)
     elif not left:
         eta = 0.0
+        span = busy_seconds(finished)
+        throughput = len(finished) / span * 3600 if span else 0.0
     return SweepStatus(
         sweep=name,
         n_trials=len(rows),
@@ -106,13 +112,36 @@ def summarize(
     )
 
 
+def busy_seconds(trials: list[FrozenTrial]) -> float:
+    """Seconds during which at least one of ``trials`` was running (claim to tell)."""
+    spans = sorted(
+        (t.datetime_start, t.datetime_complete)
+        for t in trials
+        if t.datetime_start and t.datetime_complete
+    )
+    total, end = 0.0, None
+    for start, stop in spans:
+        if end is None or start > end:
+            total += (stop - start).total_seconds()
+            end = stop
+        elif stop > end:
+            total += (stop - end).total_seconds()
+            end = stop
+    return total
+
+
 def format_status(status: SweepStatus) -> str:
     c = status.counts
     lines = [
         f"sweep {status.sweep}: {c['done']}/{status.n_trials} done, {c['running']} running, "
         f"{c['waiting']} waiting, {c['failed']} failed, {c['diverged']} diverged",
     ]
-    if status.finished:
+    if status.finished and status.throughput_per_hour:
+        lines.append(
+            f"every trial has finished; throughput {status.throughput_per_hour:.1f} trials/h "
+            "over the time trials were running"
+        )
+    elif status.finished:
         lines.append("every trial has finished")
     elif status.throughput_per_hour:
         lines.append(
