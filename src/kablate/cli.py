@@ -146,7 +146,8 @@ def main() -> None:
 @click.option(
     "--latency",
     is_flag=True,
-    help="Also measure CPU latency (batch 1 and the recipe's batch size, median of repeats).",
+    help="Also measure CPU latency (batch 1 and the recipe's batch size; median and IQR of "
+    "interleaved rounds, conv backends recorded).",
 )
 @click.option(
     "--threads",

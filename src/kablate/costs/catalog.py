@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
-from kablate.costs.latency import Latency, measure_latency
+from kablate.costs.latency import Latency, measure_layout_latencies
 from kablate.costs.static import StaticCost, static_cost
 from kablate.data.prepare import check_splits
 from kablate.data.sources import describe_source
@@ -97,11 +97,12 @@ def build_catalog(
 
 
 def measure_latencies(catalog: Catalog, threads: int | None = None) -> None:
-    """Measure every kept variant's CPU latency (`kablate plan --latency`), in place."""
-    for item in catalog.variants:
-        item.latency = measure_latency(
-            item.cost.layout, catalog.sweep.recipe.batch_size, threads=threads
-        )
+    """Measure every kept variant's CPU latency (`kablate plan --latency`), in place, all in
+    the same interleaved rounds (see `kablate.costs.latency`)."""
+    layouts = [item.cost.layout for item in catalog.variants]
+    found = measure_layout_latencies(layouts, catalog.sweep.recipe.batch_size, threads=threads)
+    for item, latency in zip(catalog.variants, found, strict=True):
+        item.latency = latency
 
 
 def padding_warnings(items: list[CostedVariant], n_named: int = 4) -> list[str]:
