@@ -16,6 +16,7 @@ import click
 
 from kablate import __version__
 from kablate.errors import EXIT_STOPPED, DiskFullError, KablateError, UsageError, is_disk_full
+from kablate.spec.costs import COST_NAMES
 
 EPILOG_PLAN = """\b
 Examples:
@@ -365,7 +366,7 @@ def status(results: Path, fmt: str, storage: str | None) -> None:
 )
 @click.option(
     "--cost",
-    type=click.Choice(["macs", "params", "latency"]),
+    type=click.Choice(list(COST_NAMES)),
     default=None,
     help="The cost the recommended plan minimises (default: the sweep's [pick] cost, else macs).",
 )

@@ -6,7 +6,7 @@ import itertools
 
 import torch
 
-from kablate.costs.memory import saved_activation_bytes, saved_bytes_of
+from kablate.costs.memory import saved_activation_bytes, saved_bytes_of, weight_bytes
 from kablate.costs.static import static_cost
 from kablate.nets.build import build_network
 from tests.nets.tiny import tiny_layout, tiny_network
@@ -46,3 +46,24 @@ def test_static_cost_reports_it_at_the_recipes_batch_size():
     # batch norm's per-channel mean and inverse std are kept once per batch, not per sample
     per_channel = 2 * 4 * (4 + 4 + 8)  # two fp32 values per channel of the three convs
     assert two - one == one - per_channel
+
+
+def test_weight_bytes_are_the_parameters_times_their_element_size_in_torch():
+    for norm, act, down, residual, dropout, plan in CASES:
+        net = tiny_network(
+            stages=((8, 2, "none"), (16, 1, down)),
+            residual=residual,
+            norm=norm,
+            act=act,
+            norm_groups=4,
+            dropout=dropout,
+        )
+        layout = tiny_layout(plan, net)
+        params = static_cost(layout, 1).params
+        model = build_network(layout)
+        # the reference: torch's own byte count of the trained (fp32) parameters, and of the
+        # same tensors stored as int8 (running statistics are buffers, not weights)
+        fp32 = sum(p.numel() * p.element_size() for p in model.parameters())
+        int8 = sum(p.numel() * p.detach().to(torch.int8).element_size() for p in model.parameters())
+        assert weight_bytes(params, "fp32") == fp32 == 4 * params, plan
+        assert weight_bytes(params, "int8") == int8 == params, plan

@@ -84,7 +84,12 @@ def build_catalog(
     kept, dropped = [], []
     for item in costed:
         reason = filter_reason(
-            item.cost.params, item.cost.macs, item.cost.rf, baseline.cost.rf, sweep.filters
+            item.cost.params,
+            item.cost.macs,
+            item.cost.rf,
+            baseline.cost.rf,
+            sweep.filters,
+            item.cost.act_mem_bytes,
         )
         if reason and item is not baseline:
             dropped.append((item, reason))
