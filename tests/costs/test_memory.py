@@ -23,17 +23,21 @@ CASES = [
 ]
 
 
+def case_layout(norm, act, down, residual, dropout, plan):
+    net = tiny_network(
+        stages=((8, 2, "none"), (16, 1, down)),
+        residual=residual,
+        norm=norm,
+        act=act,
+        norm_groups=4,
+        dropout=dropout,
+    )
+    return tiny_layout(plan, net)
+
+
 def test_the_estimate_equals_what_autograd_saves():
     for (norm, act, down, residual, dropout, plan), batch in itertools.product(CASES, (1, 5)):
-        net = tiny_network(
-            stages=((8, 2, "none"), (16, 1, down)),
-            residual=residual,
-            norm=norm,
-            act=act,
-            norm_groups=4,
-            dropout=dropout,
-        )
-        layout = tiny_layout(plan, net)
+        layout = case_layout(norm, act, down, residual, dropout, plan)
         model = build_network(layout).train()
         measured = saved_bytes_of(model, torch.randn(batch, 1, 8, 8))
         assert saved_activation_bytes(layout, batch) == measured, (norm, act, down, plan, batch)
@@ -49,16 +53,8 @@ def test_static_cost_reports_it_at_the_recipes_batch_size():
 
 
 def test_weight_bytes_are_the_parameters_times_their_element_size_in_torch():
-    for norm, act, down, residual, dropout, plan in CASES:
-        net = tiny_network(
-            stages=((8, 2, "none"), (16, 1, down)),
-            residual=residual,
-            norm=norm,
-            act=act,
-            norm_groups=4,
-            dropout=dropout,
-        )
-        layout = tiny_layout(plan, net)
+    for case in CASES:
+        layout, plan = case_layout(*case), case[-1]
         params = static_cost(layout, 1).params
         model = build_network(layout)
         # the reference: torch's own byte count of the trained (fp32) parameters, and of the
