@@ -142,9 +142,14 @@ def _prepare(layout: Layout) -> torch.nn.Module:
     return build_network(layout).eval().to(memory_format=torch.channels_last)
 
 
-def _input(layout: Layout, batch: int) -> torch.Tensor:
-    c, h, w = layout.in_shape
-    return torch.randn(batch, c, h, w).contiguous(memory_format=torch.channels_last)
+def _inputs(layouts: list[Layout], batch: int) -> list[torch.Tensor]:
+    """An input batch per layout; layouts of the same input shape share one (a sweep's do)."""
+    made: dict[tuple[int, int, int], torch.Tensor] = {}
+    for layout in layouts:
+        if layout.in_shape not in made:
+            x = torch.randn(batch, *layout.in_shape)
+            made[layout.in_shape] = x.contiguous(memory_format=torch.channels_last)
+    return [made[layout.in_shape] for layout in layouts]
 
 
 def interleaved_times(
@@ -182,8 +187,7 @@ def measure_layout_latencies(
         torch.set_num_threads(threads)
     try:
         models = [_prepare(layout) for layout in layouts]
-        ones = [_input(layout, 1) for layout in layouts]
-        many = [_input(layout, batch_size) for layout in layouts]
+        ones, many = _inputs(layouts, 1), _inputs(layouts, batch_size)
         batch_rounds = max(5, rounds // 4)
         at_one = interleaved_times(models, ones, rounds, warmup)
         at_many = interleaved_times(models, many, batch_rounds, 1)
