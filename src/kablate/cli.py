@@ -16,6 +16,7 @@ import click
 
 from kablate import __version__
 from kablate.errors import EXIT_STOPPED, DiskFullError, KablateError, UsageError, is_disk_full
+from kablate.spec.costs import COST_NAMES
 
 EPILOG_PLAN = """\b
 Examples:
@@ -176,7 +177,8 @@ def main() -> None:
 @click.option(
     "--latency",
     is_flag=True,
-    help="Also measure CPU latency (batch 1 and the recipe's batch size, median of repeats).",
+    help="Also measure CPU latency (batch 1 and the recipe's batch size; median and IQR of "
+    "interleaved rounds, conv backends recorded).",
 )
 @click.option(
     "--threads",
@@ -426,7 +428,7 @@ def status(results: Path, fmt: str, storage: str | None) -> None:
 )
 @click.option(
     "--cost",
-    type=click.Choice(["macs", "params", "latency"]),
+    type=click.Choice(list(COST_NAMES)),
     default=None,
     help="The cost the recommended plan minimises (default: the sweep's [pick] cost, else macs).",
 )

@@ -198,3 +198,46 @@ def test_without_a_finished_baseline_the_intervals_still_come_from_the_evidence(
         expected.low,
         expected.high,
     )
+
+
+def with_memory(p: dict, act_mem: tuple[int, ...] = (4000, 6000, 2000, 100)) -> dict:
+    for v, mem in zip(p["variants"], act_mem, strict=True):
+        v["act_mem_bytes"] = mem
+    return p
+
+
+def test_memory_is_a_cost_the_pick_and_the_fronts_use():
+    def pick(cost):  # a 10 pp margin: the synthetic evidence is too thin for the default
+        p = with_memory(plan())
+        return analyze_rows(
+            with_predictions(rows()), [], p, [], data_json(), PickSpec(cost=cost, margin=10.0)
+        )
+
+    a = pick("memory")
+    v = a.variants.set_index("variant")
+    # activation memory: base 4000 B, cheap 6000 B, big 2000 B (and 0.935 against base's
+    # 0.905): big is the one plan that needs less than the baseline, and it is better.
+    assert v["front_memory"].to_dict() == {
+        "base": False,
+        "cheap": False,
+        "big": True,
+        "never": False,
+    }
+    assert a.decision.cost == "act_mem_bytes" and a.decision.recommended == "big"
+    assert pick("macs").decision.recommended == "cheap"  # by MACs big is the costliest
+    assert v.loc["big", "cost_ratio"] == 0.5
+
+
+def test_weight_bytes_are_params_times_4_and_1():
+    v = analyze(rows(), [], plan(), []).variants.set_index("variant")
+    params = {"base": 100, "cheap": 50, "big": 300, "never": 10}
+    assert v["weight_bytes_fp32"].to_dict() == {n: 4 * p for n, p in params.items()}
+    assert v["weight_bytes_int8"].to_dict() == params
+
+
+def test_a_plan_without_activation_memory_has_no_memory_front():
+    p = plan()
+    for v in p["variants"]:
+        del v["act_mem_bytes"]
+    a = analyze(rows(), [], p, [])
+    assert a.variants["front_memory"].isna().all()

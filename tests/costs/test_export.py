@@ -5,11 +5,13 @@ from __future__ import annotations
 import csv
 import io
 import json
+import re
 
 import pytest
 
 from kablate.costs.catalog import build_catalog
-from kablate.costs.export import catalog_csv, catalog_json, catalog_table
+from kablate.costs.export import NAME_WIDTH, catalog_csv, catalog_json, catalog_table
+from kablate.costs.latency import NOISY_IQR_RATIO, Latency, Timing
 from kablate.spec import load_sweep
 from tests.conftest import write_sweep
 
@@ -191,3 +193,50 @@ def test_a_very_long_variant_name_still_fits(tmp_path):
     )
     assert len(catalog.variants[0].name) > 100
     assert max(len(line) for line in catalog_table(catalog).splitlines()) <= 100
+
+
+def with_latencies(catalog):
+    """The catalog with made-up timings (demo data): the baseline quiet, on one backend; the
+    first other variant noisy (IQR 40% of its median) and on two backends."""
+    quiet, loud = Timing(1.0, 0.95, 1.05, 30), Timing(2.0, 1.6, 2.4, 30)
+    for item in catalog.variants:
+        base = item is catalog.baseline
+        backends = (("stem", "Slow2d"),) if base else (("stem", "Mkldnn"), ("stage1.0", "Slow2d"))
+        timing = quiet if base else loud
+        item.latency = Latency(timing, timing, 16, 1, "2.x", backends)
+    return catalog
+
+
+def test_every_printed_latency_carries_its_spread_and_the_flags(tmp_path):
+    path = write_sweep(tmp_path, SWEEP, name="export")
+    catalog = with_latencies(build_catalog(load_sweep(path), in_shape=(1, 16, 16), n_classes=5))
+    lines = catalog_table(catalog).splitlines()
+    assert max(len(line) for line in lines) <= 100
+    base_row = next(line for line in lines if line.startswith("all-3 ") and "[" in line)
+    assert base_row.count("1 [0.95, 1.05]") == 2 and "Slow2d×1" in base_row
+    assert "!" not in base_row and "≠" not in base_row
+    rows = [line for line in lines if "Mkldnn×1, Slow2d×1" in line]
+    assert len(rows) == len(catalog.variants) - 1
+    assert all(r.count("2 [1.6, 2.4]") == 2 and " !≠ " in r for r in rows)
+    # no bare millisecond figure: every number in a latency row sits in "m [q1, q3]"
+    for row in [base_row, *rows]:
+        timings = row[NAME_WIDTH + 1 : NAME_WIDTH + 41]
+        figures = re.findall(r"[\d.]+ \[[\d.]+, [\d.]+\]", timings)
+        assert len(figures) == 2 and len(re.findall(r"[\d.]+", timings)) == 6
+    prose = " ".join(" ".join(lines).split())  # wrapped lines joined back
+    assert f"! noisy: the interquartile range exceeds {NOISY_IQR_RATIO:.0%} of the median" in prose
+    assert "run(s) some convs on other torch backends than the baseline all-3" in prose
+
+
+def test_json_and_csv_keep_the_spread_the_conditions_and_the_backends(tmp_path):
+    path = write_sweep(tmp_path, SWEEP, name="export")
+    catalog = with_latencies(build_catalog(load_sweep(path), in_shape=(1, 16, 16), n_classes=5))
+    base, other = json.loads(catalog_json(catalog))[:2]
+    assert (base["latency_ms"], base["latency_q1_ms"], base["latency_q3_ms"]) == (1.0, 0.95, 1.05)
+    assert base["latency_noisy"] is False and other["latency_noisy"] is True
+    assert base["crosses_backends"] is False and other["crosses_backends"] is True
+    assert other["conv_backends"] == {"stem": "Mkldnn", "stage1.0": "Slow2d"}
+    assert (other["latency_threads"], other["latency_batch_size"]) == (1, 16)
+    assert (other["latency_rounds"], other["latency_torch"]) == (30, "2.x")
+    row = list(csv.DictReader(io.StringIO(catalog_csv(catalog))))[1]
+    assert row["conv_backends"] == "stem=Mkldnn;stage1.0=Slow2d" and row["latency_q3_ms"] == "2.4"

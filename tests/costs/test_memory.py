@@ -6,7 +6,7 @@ import itertools
 
 import torch
 
-from kablate.costs.memory import saved_activation_bytes, saved_bytes_of
+from kablate.costs.memory import saved_activation_bytes, saved_bytes_of, weight_bytes
 from kablate.costs.static import static_cost
 from kablate.nets.build import build_network
 from tests.nets.tiny import tiny_layout, tiny_network
@@ -23,17 +23,21 @@ CASES = [
 ]
 
 
+def case_layout(norm, act, down, residual, dropout, plan):
+    net = tiny_network(
+        stages=((8, 2, "none"), (16, 1, down)),
+        residual=residual,
+        norm=norm,
+        act=act,
+        norm_groups=4,
+        dropout=dropout,
+    )
+    return tiny_layout(plan, net)
+
+
 def test_the_estimate_equals_what_autograd_saves():
     for (norm, act, down, residual, dropout, plan), batch in itertools.product(CASES, (1, 5)):
-        net = tiny_network(
-            stages=((8, 2, "none"), (16, 1, down)),
-            residual=residual,
-            norm=norm,
-            act=act,
-            norm_groups=4,
-            dropout=dropout,
-        )
-        layout = tiny_layout(plan, net)
+        layout = case_layout(norm, act, down, residual, dropout, plan)
         model = build_network(layout).train()
         measured = saved_bytes_of(model, torch.randn(batch, 1, 8, 8))
         assert saved_activation_bytes(layout, batch) == measured, (norm, act, down, plan, batch)
@@ -46,3 +50,16 @@ def test_static_cost_reports_it_at_the_recipes_batch_size():
     # batch norm's per-channel mean and inverse std are kept once per batch, not per sample
     per_channel = 2 * 4 * (4 + 4 + 8)  # two fp32 values per channel of the three convs
     assert two - one == one - per_channel
+
+
+def test_weight_bytes_are_the_parameters_times_their_element_size_in_torch():
+    for case in CASES:
+        layout, plan = case_layout(*case), case[-1]
+        params = static_cost(layout, 1).params
+        model = build_network(layout)
+        # the reference: torch's own byte count of the trained (fp32) parameters, and of the
+        # same tensors stored as int8 (running statistics are buffers, not weights)
+        fp32 = sum(p.numel() * p.element_size() for p in model.parameters())
+        int8 = sum(p.numel() * p.detach().to(torch.int8).element_size() for p in model.parameters())
+        assert weight_bytes(params, "fp32") == fp32 == 4 * params, plan
+        assert weight_bytes(params, "int8") == int8 == params, plan

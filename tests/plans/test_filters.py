@@ -86,3 +86,19 @@ def test_the_baseline_is_never_dropped(tmp_path):
     catalog, kept = plan_with(tmp_path, "max_macs = 1")
     assert list(kept) == ["all-3"]
     assert len(catalog.dropped) == 4
+
+
+def test_max_act_mem_drops_the_variants_that_keep_more_for_backward(tmp_path):
+    depthwise = '[[plan]]\nname = "body-dw"\nbody = "3:depthwise"\n\n[filter]\n'
+    sweep = SWEEP.replace("[filter]\n", depthwise)
+    path = write_sweep(tmp_path, sweep, name="t")
+    everything = build_catalog(load_sweep(path), in_shape=(1, 8, 8), n_classes=3)
+    mem = {v.name: v.cost.act_mem_bytes for v in everything.variants}
+    limit = mem["all-3"]
+    assert mem["body-dw"] > limit  # a depthwise pair keeps two maps per conv, not one
+    path = write_sweep(tmp_path, sweep + f"max_act_mem = {limit}\n", name="t")
+    catalog = build_catalog(load_sweep(path), in_shape=(1, 8, 8), n_classes=3)
+    assert [(item.name, reason) for item, reason in catalog.dropped] == [
+        ("body-dw", f"act mem {mem['body-dw']:,} B > max_act_mem {limit:,}")
+    ]
+    assert len(catalog.variants) == len(mem) - 1

@@ -129,3 +129,20 @@ def test_when_every_plan_costs_more_the_verdict_says_so():
     assert head.startswith("**Keep the baseline base**")
     assert "Every other plan costs more MACs than the baseline" in head
     assert "none is shown better than it" in head
+
+
+def test_the_card_shows_activation_memory_and_the_weights_at_fp32_and_int8():
+    p = plan()
+    for v, mem in zip(p["variants"], (4000, 6000, 2000, 100), strict=True):
+        v["act_mem_bytes"] = mem
+    a = analyze_rows(with_predictions(rows()), [], p, [], data_json(), PickSpec())
+    text = render_card(a, card_context())
+    table = text.split("#### Memory")[1].split("####")[0]
+    body = [line for line in table.splitlines() if line.startswith("| ") and "B |" in line]
+    # least activation memory first; × the baseline's 4000 B; weights = params × 4 and × 1
+    assert body == [
+        "| never | 100B (0.03×) | 40B | 10B |",
+        "| big | 2.0kB (0.50×) | 1.2kB | 300B |",
+        "| base | 4.0kB (1.00×) | 400B | 100B |",
+        "| cheap | 6.0kB (1.50×) | 200B | 50B |",
+    ]

@@ -9,6 +9,7 @@ import pytest
 from kablate.analysis.erf import ErfMap, Geometry
 from kablate.analysis.summary import analyze
 from kablate.report import plots
+from kablate.report.build import draw_plots
 from kablate.report.card import CardContext, render_card
 from kablate.report.plots import (
     ERF_SQUARES,
@@ -73,6 +74,7 @@ def check(paths, stem):
         ("params", "parameters", "accuracy_vs_params"),
         ("macs", "MACs", "accuracy_vs_macs"),
         ("latency_ms", "latency (ms)", "accuracy_vs_latency"),
+        ("act_mem_bytes", "activation memory", "accuracy_vs_memory"),
     ],
 )
 def test_accuracy_vs_cost(analysis, tmp_path, cost, label, stem):
@@ -109,6 +111,22 @@ def test_accuracy_vs_cost_draws_the_margin_band_and_hollow_markers(analysis, tmp
         c.get_label().split(" (n=")[0]: c.lines[0].get_markerfacecolor() for c in ax.containers
     }
     assert faces["cheap"] == "white" and faces["base"] != "white"
+
+
+def test_the_memory_plot_puts_each_variant_at_its_activation_memory(tmp_path, monkeypatch):
+    p = plan()
+    for v, mem in zip(p["variants"], (4000, 6000, 2000, 100), strict=True):
+        v["act_mem_bytes"] = mem
+    a = analyze(with_predictions(rows()), [], p, [], data_json(), PickSpec())
+    with rendering():
+        paths = draw_plots(a, tmp_path, "s")
+        fig = drawn(
+            monkeypatch,
+            lambda: plot_accuracy_vs_cost(a, "act_mem_bytes", "memory", tmp_path, "s"),
+        )
+    assert tmp_path / "accuracy_vs_memory.png" in paths
+    x = {c.get_label().split(" (n=")[0]: c.lines[0].get_xdata()[0] for c in fig.axes[0].containers}
+    assert x == {"base": 4000, "cheap": 6000, "big": 2000}  # never has no result: not drawn
 
 
 def test_confusion_matrices_show_the_pooled_counts(analysis, tmp_path, monkeypatch):

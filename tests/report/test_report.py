@@ -154,13 +154,32 @@ def test_no_password_or_home_path_is_written(results, tmp_path):
 
 
 @pytest.mark.slow
-def test_cli_report_writes_to_out_and_refuses_an_unmeasured_cost(results, tmp_path):
+def test_run_records_latency_and_the_report_picks_on_it_or_refuses_it_unmeasured(results, tmp_path):
+    plan = json.loads((results / "plan.json").read_text())
+    meta = json.loads((results / "sweep.json").read_text())
+    for v in plan["variants"]:  # measured by `run`, at the workers' threads
+        assert v["latency_q1_ms"] <= v["latency_ms"] <= v["latency_q3_ms"]
+        assert v["latency_threads"] == meta["threads"] and v["conv_backends"]
     runner = CliRunner()
-    ok = runner.invoke(main, ["report", str(results), "--out", str(tmp_path / "o"), "--no-erf"])
-    assert ok.exit_code == 0, ok.output
-    assert (tmp_path / "o" / "model_card.md").is_file()
+    for cost in ("latency", "memory"):
+        out = tmp_path / cost
+        ok = runner.invoke(
+            main, ["report", str(results), "--out", str(out), "--no-erf", "--cost", cost]
+        )
+        assert ok.exit_code == 0, ok.output
+        assert "accuracy_vs_latency.png" in (out / "model_card.md").read_text()
+        rows = list(csv.DictReader((out / "variants.csv").open()))
+        column = {"latency": "latency_ms", "memory": "act_mem_bytes"}[cost]
+        base = next(r for r in rows if r["variant_id"] == plan["baseline"])
+        for r in rows:  # the cost ratio is taken on the chosen cost's column
+            assert float(r["cost_ratio"]) == pytest.approx(float(r[column]) / float(base[column]))
+    copy = tmp_path / "unmeasured"
+    shutil.copytree(results, copy)
+    for v in plan["variants"]:
+        v["latency_ms"] = None
+    (copy / "plan.json").write_text(json.dumps(plan))
     bad = runner.invoke(
-        main, ["report", str(results), "--out", str(tmp_path / "b"), "--cost", "latency"]
+        main, ["report", str(copy), "--out", str(tmp_path / "b"), "--cost", "latency"]
     )
     assert bad.exit_code == 2 and "latency" in bad.output
 

@@ -28,7 +28,6 @@ from kablate.analysis.evidence import Evidence, gather_evidence
 from kablate.analysis.flags import variant_flags
 from kablate.analysis.power import Resolution, resolution_after
 from kablate.analysis.tables import (
-    COST_COLUMNS,
     FINISHED,
     add_fronts,
     balanced_seeds,
@@ -37,6 +36,7 @@ from kablate.analysis.tables import (
 )
 from kablate.errors import UsageError
 from kablate.plans.expand import cell_name, grid_cells
+from kablate.spec.costs import COSTS
 from kablate.spec.schema import PickSpec
 from kablate.trials.export import CURVE_COLUMNS
 
@@ -111,7 +111,7 @@ def analyze(
     evidence = gather_evidence(trials, data, seeds)
     decision, resolution = None, None
     if evidence is not None and baseline in evidence.names:
-        cost_col = COST_COLUMNS[pick.cost]
+        cost_col = COSTS[pick.cost].column
         costs = dict(zip(variants["variant"], variants[cost_col].astype(float), strict=True))
         if any(not math.isfinite(costs[n]) for n in evidence.names):
             raise UsageError(

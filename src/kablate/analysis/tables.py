@@ -8,10 +8,10 @@ import pandas as pd
 
 from kablate.analysis.pareto import pareto_front
 from kablate.analysis.stats import t_interval
+from kablate.costs.memory import weight_bytes
 from kablate.plans.expand import plan_text
+from kablate.spec.costs import COSTS
 
-# Selection and front costs → their column in the variants table.
-COST_COLUMNS = {"params": "params", "macs": "macs", "latency": "latency_ms"}
 # A trial in one of these states has a result (diverged: trained, but its loss blew up).
 FINISHED = ("done", "diverged")
 
@@ -90,6 +90,8 @@ def variant_frame(
                 "flops": v["flops"],
                 "rf": v["rf"],
                 "act_mem_bytes": v.get("act_mem_bytes"),
+                "weight_bytes_fp32": weight_bytes(v["params"], "fp32"),
+                "weight_bytes_int8": weight_bytes(v["params"], "int8"),
                 "latency_ms": v.get("latency_ms"),
                 "train_seconds_mean": float(done["train_seconds"].mean())
                 if len(done)
@@ -98,36 +100,41 @@ def variant_frame(
             }
         )
     frame = pd.DataFrame(out)
-    frame["latency_ms"] = pd.to_numeric(frame["latency_ms"], errors="coerce")
+    for cost in COSTS.values():
+        frame[cost.column] = pd.to_numeric(frame[cost.column], errors="coerce")
     add_fronts(frame)
     return frame
 
 
 def measured_costs(frame: pd.DataFrame) -> list[str]:
-    """The costs a front is drawn for: params and MACs always, latency when measured."""
+    """The costs a front is drawn for: those every variant with a result has (params and MACs
+    always; latency when measured; activation memory when the plan records it)."""
     ready = frame[frame["n_seeds"] > 0]
-    has_latency = len(ready) > 0 and ready["latency_ms"].notna().all()
-    return ["params", "macs"] + (["latency"] if has_latency else [])
+    return [
+        c.name
+        for c in COSTS.values()
+        if c.always or (len(ready) > 0 and ready[c.column].notna().all())
+    ]
 
 
 def add_fronts(frame: pd.DataFrame) -> None:
-    """Add boolean ``front_params``, ``front_macs``, ``front_all`` (every measured cost at
-    once) and ``front_latency`` (None when latency was not measured). Only variants with a
-    finished seed can be on a front."""
+    """Add a boolean ``front_<cost>`` for every cost of `COSTS` (None where that cost was not
+    measured) and ``front_all`` (every measured cost at once). Only variants with a finished
+    seed can be on a front."""
     sub = frame[frame["n_seeds"] > 0]
     names = sub["variant"].tolist()
     acc = sub["val_acc_mean"].tolist()
     costs = measured_costs(frame)
-    for cost in ("params", "macs", "latency"):
+    for cost in COSTS:
         col = f"front_{cost}"
         if cost not in costs:
             frame[col] = None
             continue
-        flags = pareto_front(acc, [[float(c)] for c in sub[COST_COLUMNS[cost]]], names)
+        flags = pareto_front(acc, [[float(c)] for c in sub[COSTS[cost].column]], names)
         frame[col] = False
         frame.loc[sub.index, col] = flags
         frame[col] = frame[col].astype(bool)
-    cols = [COST_COLUMNS[c] for c in costs]
+    cols = [COSTS[c].column for c in costs]
     flags = pareto_front(acc, sub[cols].astype(float).values.tolist(), names)
     frame["front_all"] = False
     frame.loc[sub.index, "front_all"] = flags

@@ -5,7 +5,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 from kablate.costs.graph import GraphCost
-from kablate.costs.latency import Latency, measure_latency
+from kablate.costs.latency import Latency, measure_layout_latencies
 from kablate.costs.static import StaticCost, static_cost
 from kablate.costs.user_model import UserModel, check_rf_known
 from kablate.data.prepare import check_splits
@@ -98,7 +98,12 @@ def build_catalog(
     kept, dropped = [], []
     for item in costed:
         reason = filter_reason(
-            item.cost.params, item.cost.macs, item.cost.rf, baseline.cost.rf, sweep.filters
+            item.cost.params,
+            item.cost.macs,
+            item.cost.rf,
+            baseline.cost.rf,
+            sweep.filters,
+            item.cost.act_mem_bytes,
         )
         if reason and item is not baseline:
             dropped.append((item, reason))
@@ -112,11 +117,12 @@ def build_catalog(
 
 
 def measure_latencies(catalog: Catalog, threads: int | None = None) -> None:
-    """Measure every kept variant's CPU latency (`kablate plan --latency`), in place."""
-    for item in catalog.variants:
-        item.latency = measure_latency(
-            item.blueprint, catalog.sweep.recipe.batch_size, threads=threads
-        )
+    """Measure every kept variant's CPU latency (`kablate plan --latency`), in place, all in
+    the same interleaved rounds (see `kablate.costs.latency`)."""
+    blueprints = [item.blueprint for item in catalog.variants]
+    found = measure_layout_latencies(blueprints, catalog.sweep.recipe.batch_size, threads=threads)
+    for item, latency in zip(catalog.variants, found, strict=True):
+        item.latency = latency
 
 
 def padding_warnings(items: list[CostedVariant], n_named: int = 4) -> list[str]:

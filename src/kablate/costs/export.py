@@ -9,6 +9,7 @@ import textwrap
 
 from kablate.costs.catalog import Catalog, CostedVariant
 from kablate.costs.graph import GraphCost
+from kablate.costs.latency import NOISY_IQR_RATIO, Latency, crosses_backends
 from kablate.costs.static import LayerCost, StaticCost
 from kablate.nets.model_variant import ModelVariant
 from kablate.plans.expand import plan_text
@@ -48,7 +49,49 @@ def cost_json(cost: StaticCost | GraphCost) -> dict:
     }
 
 
-def variant_json(item: CostedVariant, with_layers: bool = True) -> dict:
+LATENCY_FIELDS = (
+    "latency_ms",  # median at batch 1: the figure `[pick] cost = "latency"` selects on
+    "latency_q1_ms",
+    "latency_q3_ms",
+    "latency_batch_ms",  # median at latency_batch_size
+    "latency_batch_q1_ms",
+    "latency_batch_q3_ms",
+    "latency_noisy",
+    "latency_rounds",
+    "latency_batch_size",
+    "latency_threads",
+    "latency_torch",
+    "conv_backends",
+    "crosses_backends",
+)
+
+
+def latency_json(latency: Latency | None, baseline: Latency | None = None) -> dict:
+    """The latency fields of a variant (all None when not measured); ``crosses_backends``
+    compares its conv backends with ``baseline``'s."""
+    if latency is None:
+        return dict.fromkeys(LATENCY_FIELDS)
+    one, many = latency.batch1, latency.batch
+    return {
+        "latency_ms": one.median_ms,
+        "latency_q1_ms": one.q1_ms,
+        "latency_q3_ms": one.q3_ms,
+        "latency_batch_ms": many.median_ms,
+        "latency_batch_q1_ms": many.q1_ms,
+        "latency_batch_q3_ms": many.q3_ms,
+        "latency_noisy": latency.noisy,
+        "latency_rounds": one.n,
+        "latency_batch_size": latency.batch_size,
+        "latency_threads": latency.threads,
+        "latency_torch": latency.torch_version,
+        "conv_backends": dict(latency.backends),
+        "crosses_backends": crosses_backends(latency, baseline) if baseline else None,
+    }
+
+
+def variant_json(
+    item: CostedVariant, with_layers: bool = True, baseline: Latency | None = None
+) -> dict:
     cost = item.cost
     out = {
         "id": item.variant.id,
@@ -56,9 +99,7 @@ def variant_json(item: CostedVariant, with_layers: bool = True) -> dict:
         "plan": item.variant.plan,
         "aliases": list(item.variant.aliases),
         **cost_json(cost),
-        "latency_ms": item.latency.batch1_ms if item.latency else None,
-        "latency_batch_ms": item.latency.batch_ms if item.latency else None,
-        "latency_threads": item.latency.threads if item.latency else None,
+        **latency_json(item.latency, baseline),
     }
     if isinstance(item.blueprint, ModelVariant):  # a [model] sweep: whose code, what changed
         out["model"] = {"factory": item.blueprint.factory, "arguments": item.blueprint.arguments}
@@ -70,7 +111,8 @@ def variant_json(item: CostedVariant, with_layers: bool = True) -> dict:
 
 
 def catalog_json(catalog: Catalog) -> str:
-    return json.dumps([variant_json(v) for v in catalog.variants], indent=2)
+    base = catalog.baseline.latency
+    return json.dumps([variant_json(v, baseline=base) for v in catalog.variants], indent=2)
 
 
 def catalogs_json(planned: list[tuple[object, Catalog | Exception]]) -> str:
@@ -97,25 +139,34 @@ CSV_COLUMNS = (
     "jump",
     "out_hw",
     "act_mem_bytes",
-    "latency_ms",
-    "latency_batch_ms",
-    "latency_threads",
+    *LATENCY_FIELDS,
     "plan",
 )
 
 
-def _csv_cells(item: CostedVariant) -> list:
-    row = variant_json(item, with_layers=False)
-    row["out_hw"] = "x".join(map(str, row["out_hw"])) if row["out_hw"] else ""
+def csv_cell(value) -> str:
+    """A JSON field as one CSV cell: '' for None, 'a=x;b=y' for a mapping, 'x' for a list."""
+    if value is None:
+        return ""
+    if isinstance(value, dict):
+        return ";".join(f"{k}={v}" for k, v in value.items())
+    if isinstance(value, list):
+        return "x".join(map(str, value))
+    return value
+
+
+def _csv_cells(item: CostedVariant, baseline=None) -> list:
+    row = variant_json(item, with_layers=False, baseline=baseline)
     row["plan"] = plan_text(row["plan"])
-    return [row[c] if row[c] is not None else "" for c in CSV_COLUMNS]
+    return [csv_cell(row[c]) for c in CSV_COLUMNS]
 
 
 def catalog_csv(catalog: Catalog) -> str:
     buf = io.StringIO()
     writer = csv.writer(buf, lineterminator="\n")
     writer.writerow(CSV_COLUMNS)
-    writer.writerows(_csv_cells(item) for item in catalog.variants)
+    base = catalog.baseline.latency
+    writer.writerows(_csv_cells(item, base) for item in catalog.variants)
     return buf.getvalue()
 
 
@@ -127,7 +178,8 @@ def catalogs_csv(planned: list[tuple[object, Catalog | Exception]]) -> str:
     writer.writerow(("file", *CSV_COLUMNS))
     for path, catalog in planned:
         if isinstance(catalog, Catalog):
-            writer.writerows([str(path), *_csv_cells(item)] for item in catalog.variants)
+            base = catalog.baseline.latency
+            writer.writerows([str(path), *_csv_cells(item, base)] for item in catalog.variants)
     return buf.getvalue()
 
 
@@ -147,10 +199,60 @@ def _wrap(text: str) -> list[str]:
     return textwrap.wrap(text, TABLE_WIDTH, subsequent_indent="    ", break_on_hyphens=False)
 
 
-def _latency_cells(item: CostedVariant) -> str:
-    if item.latency is None:
-        return f"{'-':>7} {'-':>8}"
-    return f"{item.latency.batch1_ms:7.2f} {item.latency.batch_ms:8.2f}"
+def latency_table(catalog: Catalog) -> list[str]:
+    """The measured latencies, each a median with its interquartile range, the conv backends
+    each variant runs on, and a mark where a comparison with the baseline is noisy or crosses
+    backends; empty when nothing was measured."""
+    timed = [item for item in catalog.variants if item.latency]
+    if not timed:
+        return []
+    lat, base = timed[0].latency, catalog.baseline.latency
+    batch = lat.batch_size
+    lines = _wrap(
+        f"latency in ms, median [interquartile range] of {lat.batch1.n} interleaved rounds at "
+        f"batch 1 and {lat.batch.n} at batch {batch}; eval mode, channels_last, {lat.threads} "
+        f"thread(s), torch {lat.torch_version}"
+    )
+    lines += [
+        "",
+        f"{'variant':<{NAME_WIDTH + 1}} {'@1':>19} {f'@{batch}':>19} {'flag':<4} conv backends",
+    ]
+    rule = "-" * TABLE_WIDTH
+    lines.append(rule)
+    crossing, noisy = [], []
+    for item in sorted(timed, key=lambda v: (v.latency.batch1_ms, v.name)):
+        mark = "*" if item is catalog.baseline else " "
+        flags = ""
+        if item.latency.noisy:
+            flags += "!"
+            noisy.append(item.name)
+        if base and crosses_backends(item.latency, base):
+            flags += "≠"
+            crossing.append(item.name)
+        name = item.name if len(item.name) <= NAME_WIDTH else item.name[: NAME_WIDTH - 1] + "…"
+        row = (
+            f"{name:<{NAME_WIDTH}}{mark} {item.latency.batch1.text():>19} "
+            f"{item.latency.batch.text():>19} {flags:<4}"
+        )
+        backends = item.latency.backend_counts()
+        if len(row) + 1 + len(backends) > TABLE_WIDTH:  # many backends: a line of their own
+            lines += [row.rstrip(), *_wrap(f"    {backends}")]
+        else:
+            lines.append(f"{row} {backends}")
+    lines.append(rule)
+    if noisy:
+        lines += _wrap(
+            f"! noisy: the interquartile range exceeds {NOISY_IQR_RATIO:.0%} of the median at "
+            f"batch 1 or {batch} ({', '.join(noisy)}); the machine was busy, so rerun on a quiet "
+            "one before choosing on latency"
+        )
+    if crossing:
+        lines += _wrap(
+            f"≠ other backends: {', '.join(crossing)} run(s) some convs on other torch "
+            f"backends than the baseline {catalog.baseline.name}; their latency difference is "
+            "partly a difference of implementations (--format json lists each layer's backend)"
+        )
+    return lines
 
 
 def _cell(value) -> str:
@@ -176,7 +278,7 @@ def catalog_table(catalog: Catalog) -> str:
     lines += [
         "",
         f"{'variant':<{NAME_WIDTH + 1}} {'MACs':>7} {'xbase':>6} {'params':>7} {'rf':>4} "
-        f"{'jump':>4} {'map':>5} {'act mem':>8} {'ms @1':>7} {f'ms @{batch}':>8}",
+        f"{'jump':>4} {'map':>5} {'act mem':>8}",
     ]
     rule = "-" * len(lines[-1])
     lines.append(rule)
@@ -192,21 +294,17 @@ def catalog_table(catalog: Catalog) -> str:
         lines.append(
             f"{name:<{NAME_WIDTH}}{mark} {human(cost.macs):>7} "
             f"{cost.macs / max(1, base.macs):>6.2f} {human(cost.params):>7} {_cell(cost.rf):>4} "
-            f"{_cell(cost.jump):>4} {shape:>5} {memory:>8} "
-            f"{_latency_cells(item)}"
+            f"{_cell(cost.jump):>4} {shape:>5} {memory:>8}"
         )
     lines.append(rule)
     lines += _wrap(
         "rf and jump: receptive field and effective stride at the input of the head's global "
         "pool, in input pixels. map: the feature map pooled there. act mem: what one training "
-        f"step keeps for backward at batch {batch}. ms: CPU latency (--latency)."
+        f"step keeps for backward at batch {batch}. CPU latency: --latency."
     )
-    if any(item.latency for item in catalog.variants):
-        lat = next(item.latency for item in catalog.variants if item.latency)
-        lines += _wrap(
-            f"latency: median of {lat.repeats} timed passes at batch 1 and {lat.batch_repeats} "
-            f"at batch {lat.batch_size}, eval mode, {lat.threads} threads"
-        )
+    latency = latency_table(catalog)
+    if latency:
+        lines += ["", *latency]
     for item in catalog.variants:
         if item.variant.aliases:
             lines += _wrap(f"same network: {item.name} = {', '.join(item.variant.aliases)}")

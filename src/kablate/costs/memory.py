@@ -30,6 +30,14 @@ from kablate.nets.padding import is_symmetric
 FLOAT_BYTES = 4  # fp32 activations
 INDEX_BYTES = 8  # int64 max-pool indices
 NOISE_BYTES = 4  # on CPU, dropout multiplies by a saved fp32 noise tensor
+# Bytes per stored weight: fp32 as trained, int8 after quantization (whose per-tensor or
+# per-channel scales and zero points, and int32 biases, are not counted).
+WEIGHT_BYTES = {"fp32": 4, "int8": 1}
+
+
+def weight_bytes(params: int, dtype: str) -> int:
+    """Bytes of ``params`` weights stored as ``dtype`` (a key of `WEIGHT_BYTES`)."""
+    return params * WEIGHT_BYTES[dtype]
 
 
 @dataclass

@@ -12,7 +12,16 @@ import io
 import json
 from dataclasses import dataclass, field
 
-from kablate.costs.export import CSV_COLUMNS, _cell, _wrap, cost_json, human, layer_json
+from kablate.costs.export import (
+    CSV_COLUMNS,
+    _cell,
+    _wrap,
+    cost_json,
+    csv_cell,
+    human,
+    latency_json,
+    layer_json,
+)
 from kablate.costs.graph import GraphCost, graph_cost
 from kablate.nets.factory import build_model
 
@@ -42,9 +51,7 @@ def model_variant_json(plan: ModelPlan, with_layers: bool = True) -> dict:
         "plan": {},
         "aliases": [],
         **cost_json(plan.cost),
-        "latency_ms": None,
-        "latency_batch_ms": None,
-        "latency_threads": None,
+        **latency_json(None),  # not measured for a single model yet
         "model": {
             "factory": plan.factory,
             "kwargs": plan.kwargs,
@@ -67,9 +74,7 @@ def model_csv(plan: ModelPlan) -> str:
     writer = csv.writer(buf, lineterminator="\n")
     writer.writerow(CSV_COLUMNS)
     row = model_variant_json(plan, with_layers=False)
-    row["out_hw"] = "x".join(map(str, row["out_hw"])) if row["out_hw"] else ""
-    row["plan"] = ""
-    writer.writerow([row[c] if row[c] is not None else "" for c in CSV_COLUMNS])
+    writer.writerow([csv_cell(row[c]) for c in CSV_COLUMNS])
     return buf.getvalue()
 
 

@@ -18,6 +18,7 @@ from kablate.report.plots import (
     plot_rf_vs_accuracy,
     rendering,
 )
+from kablate.spec.costs import COSTS
 from kablate.spec.fields import Where, read_table
 from kablate.spec.schema import PickSpec
 from kablate.trials.environment import sanitize
@@ -56,6 +57,8 @@ VARIANT_COLUMNS = (
     "flops",
     "rf",
     "act_mem_bytes",
+    "weight_bytes_fp32",
+    "weight_bytes_int8",
     "latency_ms",
     "train_seconds_mean",
     "n_correct",
@@ -73,11 +76,11 @@ VARIANT_COLUMNS = (
     "front_macs",
     "front_params",
     "front_latency",
+    "front_memory",
     "front_all",
     "recommended",
     "plan",
 )
-COST_LABELS = {"macs": "MACs", "params": "params", "latency": "latency"}
 
 
 def subtitle(meta: dict, data: dict) -> str:
@@ -124,10 +127,9 @@ def draw_plots(analysis: Analysis, out: Path, sub: str) -> list[Path]:
     if not (analysis.variants["n_seeds"] > 0).any():
         return plots
     with rendering():
-        plots += plot_accuracy_vs_cost(analysis, "params", "parameters", out, sub)
-        plots += plot_accuracy_vs_cost(analysis, "macs", "MACs", out, sub)
-        if analysis.variants["front_latency"].notna().all():
-            plots += plot_accuracy_vs_cost(analysis, "latency_ms", "latency (ms)", out, sub)
+        for cost in COSTS.values():  # a cost that was not measured has no front
+            if analysis.variants[f"front_{cost.name}"].notna().all():
+                plots += plot_accuracy_vs_cost(analysis, cost.column, cost.axis, out, sub)
         plots += plot_rf_vs_accuracy(analysis, out, sub)
         if len(analysis.curves):
             plots += plot_learning_curves(analysis, out, sub)
@@ -193,7 +195,7 @@ def write_report(
         data,
         __version__,
         tuple(p.name for p in plots if p.suffix == ".png"),
-        COST_LABELS[pick.cost],
+        COSTS[pick.cost].label,
     )
     path = out / "model_card.md"
     tmp = path.with_suffix(".md.tmp")

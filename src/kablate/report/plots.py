@@ -31,6 +31,7 @@ from kablate.analysis.classes import confusion  # noqa: E402
 from kablate.analysis.erf import ErfMap  # noqa: E402
 from kablate.analysis.summary import Analysis  # noqa: E402
 from kablate.costs.export import human  # noqa: E402
+from kablate.spec.costs import cost_of_column  # noqa: E402
 
 OKABE_ITO = ["#0072B2", "#E69F00", "#009E73", "#D55E00", "#CC79A7", "#56B4E9", "#F0E442", "#000000"]
 MARKERS = ["o", "s", "^", "D", "v", "P", "X", "<", ">", "h"]
@@ -227,7 +228,7 @@ def plot_accuracy_vs_cost(
     ax.set_xlim(lo / 1.6, hi * 1.6)  # room for markers at both ends of a log axis
     _percent_axis(ax, "validation accuracy (95% bootstrap CI)")
     _legend_below(fig, ax, len(v) + 4)
-    return _save(fig, out, f"accuracy_vs_{cost.removesuffix('_ms')}")
+    return _save(fig, out, f"accuracy_vs_{cost_of_column(cost).name}")
 
 
 def plot_rf_vs_accuracy(analysis: Analysis, out: Path, subtitle: str) -> list[Path]:

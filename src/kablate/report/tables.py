@@ -7,7 +7,9 @@ import math
 
 from kablate.analysis.classes import per_class_accuracy
 from kablate.analysis.summary import Analysis
+from kablate.costs.export import human
 from kablate.report.verdict import cost_ratio, pct, pp
+from kablate.spec.costs import COSTS
 
 
 def flag(value) -> bool:
@@ -72,9 +74,7 @@ def variant_table(a: Analysis, cost_label: str) -> list[str]:
         f"p (Holm) | {cost_label} (× baseline) | within margin | picked | front | warnings |",
         "|---|---|---|---|---:|---:|---:|---|---:|---|---|",
     ]
-    fronts = [("MACs", "front_macs"), ("params", "front_params")]
-    if v["front_latency"].notna().all():
-        fronts.append(("latency", "front_latency"))
+    fronts = [(c.label, f"front_{c.name}") for c in COSTS.values()]
     for row in v.itertuples():
         marks = []
         if row.recommended:
@@ -86,6 +86,34 @@ def variant_table(a: Analysis, cost_label: str) -> list[str]:
         warn = "; ".join(a.flags.get(row.variant, [])) or "-"
         cells = " | ".join(variant_cells(a, row.variant))
         lines.append(f"| {name} | `{row.plan}` | {cells} | {', '.join(on) or '-'} | {warn} |")
+    return lines + [""]
+
+
+def memory_table(a: Analysis, batch_size: int | None) -> list[str]:
+    """Activation memory of a training step and the weights' bytes at fp32 and int8, per
+    variant, cheapest activation memory first; empty for a plan that does not record it."""
+    v = a.variants
+    if v["act_mem_bytes"].isna().any():
+        return []
+    v = v.sort_values(["act_mem_bytes", "variant"])
+    base = float(v.set_index("variant").loc[a.baseline, "act_mem_bytes"])
+    at = f"batch {batch_size}" if batch_size else "the recipe's batch size"
+    lines = [
+        "#### Memory",
+        "",
+        f"*Activations* are the bytes one training step at {at} keeps from the forward pass "
+        "for backward (what PyTorch's autograd saves, counted before training; × baseline in "
+        "brackets). *Weights* are the parameters × 4 bytes (fp32, as trained) and × 1 byte "
+        "(int8 after quantization; its scales and zero points not counted).",
+        "",
+        "| variant | activations per training step | weights fp32 | weights int8 |",
+        "|---|---:|---:|---:|",
+    ]
+    for row in v.itertuples():
+        lines.append(
+            f"| {row.variant} | {human(row.act_mem_bytes)}B ({row.act_mem_bytes / base:.2f}×) | "
+            f"{human(row.weight_bytes_fp32)}B | {human(row.weight_bytes_int8)}B |"
+        )
     return lines + [""]
 
 

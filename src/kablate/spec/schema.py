@@ -20,6 +20,7 @@ from kablate.spec.bounds import (
     MAX_STAGES,
     MAX_STRIDE,
 )
+from kablate.spec.costs import COST_NAMES
 from kablate.spec.fields import Check, at_least, below, between, check
 
 SourceName = Literal[
@@ -157,6 +158,7 @@ class FilterSpec:
 
     max_params: int = check(at_least(0), 0)
     max_macs: int = check(at_least(0), 0)
+    max_act_mem: int = check(at_least(0), 0)  # bytes a training step keeps for backward
     min_rf: int = check(at_least(0), 0)
     max_rf: int = check(at_least(0), 0)
     equal_rf: bool = False  # keep only variants whose rf equals the baseline's
@@ -175,7 +177,7 @@ class PickSpec:
 
     rule: Literal["margin", "one-se"] = "margin"
     margin: float = check(between(0.0, 50.0), 1.0)  # percentage points
-    cost: Literal["macs", "params", "latency"] = "macs"
+    cost: Literal[COST_NAMES] = "macs"  # see kablate.spec.costs
     within_se: float = check(between(0.0, 10.0), 1.0)
 
 

@@ -16,7 +16,7 @@ from datetime import datetime
 from pathlib import Path
 
 from kablate.analysis.power import plan_note
-from kablate.costs.catalog import Catalog, build_catalog
+from kablate.costs.catalog import Catalog, build_catalog, measure_latencies
 from kablate.costs.export import variant_json
 from kablate.data.prepare import prepare_data
 from kablate.errors import UsageError
@@ -142,7 +142,11 @@ def write_manifest(
             "in_shape": list(catalog.in_shape),
             "n_classes": catalog.n_classes,
             "variants": [
-                dict(variant_json(v), axes=[list(a) for a in v.variant.axes], grid=v.variant.grid)
+                dict(
+                    variant_json(v, baseline=catalog.baseline.latency),
+                    axes=[list(a) for a in v.variant.axes],
+                    grid=v.variant.grid,
+                )
                 for v in catalog.variants
             ],
         },
@@ -259,11 +263,17 @@ def run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
     # Before the definition is recorded: a sweep refused here can be fixed and rerun as is.
     run_preflight(catalog, data, layout[0], opts.device)
     check_definition(study, sweep)
+    # Latency once per variant, before training and at the workers' threads, into plan.json:
+    # the report's fronts and `[pick] cost = "latency"` read it from there.
+    measure_latencies(catalog, threads=layout[1])
     write_manifest(results_dir, catalog, url, opts, layout)
     write_json(results_dir / DATA_FILE, data.manifest())
     plan = {
         "seeds": list(sweep.seeds),
-        "variants": [variant_json(v, with_layers=False) for v in catalog.variants],
+        "variants": [
+            variant_json(v, with_layers=False, baseline=catalog.baseline.latency)
+            for v in catalog.variants
+        ],
     }
     liveness = liveness_for(study, lock_dir(results_dir, url))
     liveness.recover(study)

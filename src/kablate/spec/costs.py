@@ -1,0 +1,47 @@
+"""The cost vocabulary: every cost a sweep can pick on or draw a front for, in one place.
+
+Contract: `[pick] cost`, `kablate report --cost`, the analysis's fronts (``front_<name>``), the
+card's labels and the accuracy-against-cost plots (``accuracy_vs_<name>``) all read `COSTS`.
+A cost's ``column`` is its field in plan.json and in the variants table. Adding a cost is one
+entry here plus the column it names. A cost with ``always`` False may be missing from a plan
+(latency is measured only on request; plans written before activation memory was recorded
+lack it): it gets a front, a plot and a selection only where every variant has it.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+
+@dataclass(frozen=True)
+class Cost:
+    name: str  # as written in [pick] cost and --cost
+    column: str  # in plan.json's variants and in variants.csv
+    label: str  # in the card's prose and tables
+    axis: str  # a plot's axis title
+    unit: str = ""  # appended to a figure in the card: "B" for bytes
+    always: bool = True  # False: only present when measured
+
+
+COSTS: dict[str, Cost] = {
+    cost.name: cost
+    for cost in (
+        Cost("params", "params", "params", "parameters"),
+        Cost("macs", "macs", "MACs", "MACs"),
+        Cost("latency", "latency_ms", "latency", "latency (ms)", always=False),
+        Cost(
+            "memory",
+            "act_mem_bytes",
+            "activation memory",
+            "activation memory per training step (bytes)",
+            "B",
+            always=False,
+        ),
+    )
+}
+COST_NAMES = tuple(COSTS)
+
+
+def cost_of_column(column: str) -> Cost:
+    """The cost whose table column is ``column``."""
+    return next(cost for cost in COSTS.values() if cost.column == column)
