@@ -139,3 +139,16 @@ def test_a_sweep_with_both_model_and_network_is_refused(tmp_path):
     planned = kablate("plan", str(sweep), cwd=tmp_path)
     assert planned.returncode == 2
     assert "`model` and [network] are both given" in planned.stderr
+
+
+def test_a_rewrite_that_cannot_keep_its_shapes_is_refused_naming_the_module(tmp_path):
+    # mobilenet_v2's depthwise convs have groups = channels; a bottleneck's middle width
+    # (channels // 4) is not divisible by them, so kablate.nets.rewrite refuses it.
+    write_image_folder(tmp_path / "images", n_train=6, n_test=2)
+    sweep = twin_sweep(tmp_path)
+    text = sweep.read_text().replace("resnet18", "mobilenet_v2")
+    text = text[: text.index("[[plan]]")] + '[[plan]]\nname = "dw-bottleneck"\n'
+    sweep.write_text(text + 'every-depthwise = "3:bottleneck/4"\n')
+    planned = kablate("plan", str(sweep), cwd=tmp_path)
+    assert planned.returncode == 2, planned.stdout
+    assert "features.1.conv.0.0" in planned.stderr and "Traceback" not in planned.stderr
