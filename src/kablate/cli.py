@@ -461,7 +461,8 @@ def report(
     no_erf: bool,
 ) -> None:
     """Rebuild the tables, plots and model-card section of a results folder."""
-    from kablate.report.build import pick_settings, write_report
+    from kablate.analysis.summary import pick_settings
+    from kablate.report.build import write_report
     from kablate.trials.results import open_results
 
     started()
