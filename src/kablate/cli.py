@@ -38,6 +38,8 @@ EPILOG_STATUS = """\b
 Example:
   kablate status results/quickstart
   kablate status results/quickstart --format json
+Accuracy so far and the leader under the sweep's [pick] rule come from the same analysis as
+the report; the leader is provisional until every planned trial has a result.
 """
 EPILOG_EXPORT = """\b
 Example:
@@ -390,7 +392,7 @@ def run(
     help="Study storage URL, if not the one recorded in the folder.",
 )
 def status(results: Path, fmt: str, storage: str | None) -> None:
-    """Show the progress of a results folder (safe while a run is going)."""
+    """Show progress and how the variants stand so far (safe while a run is going)."""
     from kablate.trials.results import open_results
     from kablate.trials.status import format_status, read_status
 
@@ -461,7 +463,8 @@ def report(
     no_erf: bool,
 ) -> None:
     """Rebuild the tables, plots and model-card section of a results folder."""
-    from kablate.report.build import pick_settings, write_report
+    from kablate.analysis.summary import pick_settings
+    from kablate.report.build import write_report
     from kablate.trials.results import open_results
 
     started()

@@ -13,11 +13,11 @@ import torch
 from click.testing import CliRunner
 from torch.utils.flop_counter import FlopCounterMode
 
+from kablate.analysis.summary import pick_settings
 from kablate.cli import main
 from kablate.errors import SweepError
 from kablate.nets.handoff import build_handoff
 from kablate.report import write_report
-from kablate.report.build import pick_settings
 from kablate.spec import load_sweep
 from kablate.trials import RunOptions, open_results, run_sweep
 from kablate.trials.export import PREDICTION_COLUMNS

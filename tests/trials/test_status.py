@@ -2,11 +2,23 @@
 
 from __future__ import annotations
 
+import json
+import subprocess
+import sys
+from dataclasses import asdict
 from datetime import datetime, timedelta
+from pathlib import Path
 
+import pytest
 from optuna.trial import TrialState, create_trial
 
+from kablate.analysis.standing import stand
+from kablate.analysis.summary import analyze
+from kablate.spec.schema import PickSpec
+from kablate.trials import RunOptions, open_results, run_sweep
+from kablate.trials.results import DATA_FILE
 from kablate.trials.status import format_status, summarize
+from tests.conftest import TINY_SWEEP, write_sweep
 
 NOW = datetime(2026, 1, 1, 12, 0, 0)
 
@@ -79,3 +91,111 @@ def test_a_finished_sweep_reports_its_throughput_over_the_time_trials_ran():
     assert status.throughput_per_hour == 3 / 20 * 60  # 3 trials in 20 busy minutes
     text = format_status(status)
     assert "every trial has finished; throughput 9.0 trials/h over the time trials were" in text
+
+
+# A third plan cheaper than the baseline, and a wide margin, so that the rule has a cheaper plan
+# to weigh; the sweep is cut after its first seed.
+PARTIAL_SWEEP = (
+    TINY_SWEEP.replace("seeds = [0, 1]", "seeds = [0]")
+    + '\n[[plan]]\nname = "stem-1"\nstem = "1"\n\n[pick]\nmargin = 20.0\n'
+)
+
+
+@pytest.fixture(scope="module")
+def partial_sweep(tmp_path_factory) -> Path:
+    """A sweep whose first seed has finished and whose second waits: run with one seed, then
+    with two under a budget too short for any trial (as `test_budget` does)."""
+    root = tmp_path_factory.mktemp("partial")
+    path = write_sweep(root, PARTIAL_SWEEP)
+    opts = RunOptions(results_root=root / "results", workers=1, show_progress=False)
+    run_sweep(path, opts)
+    path.write_text(PARTIAL_SWEEP.replace("seeds = [0]", "seeds = [0, 1]"))
+    opts.budget_seconds, opts.echo = 0.001, lambda text: None
+    summary = run_sweep(path, opts)
+    assert summary.counts == {"done": 3, "waiting": 3}
+    return summary.results_dir
+
+
+def reference(folder: Path, rows: list[dict] | None = None):
+    """`analyze` on the folder's rows (or ``rows``), as the report runs it, with the sweep's
+    [pick] written out here rather than read back through `pick_settings`."""
+    results = open_results(folder)
+    found, curves = results.rows()
+    data = json.loads((folder / DATA_FILE).read_text())
+    pick = PickSpec(margin=20.0)
+    return analyze(rows or found, curves, results.plan, [], data, pick)
+
+
+@pytest.mark.slow
+def test_status_of_a_partial_sweep_gives_the_analysis_leader_and_accuracies(partial_sweep):
+    out = subprocess.run(
+        [sys.executable, "-m", "kablate", "status", str(partial_sweep), "--format", "json"],
+        capture_output=True,
+        text=True,
+        timeout=300,
+    )
+    assert out.returncode == 0, out.stderr
+    standing = json.loads(out.stdout)["standing"]
+    # The reference is the analysis the report runs (kablate.analysis.summary.analyze: per-image
+    # evidence, two-level bootstrap, non-inferiority pick), on the same rows.
+    analysis = reference(partial_sweep)
+    assert analysis.decision is not None and analysis.n_missing == 3
+    assert standing["leader"] == analysis.recommended
+    assert standing["provisional"] is True and standing["n_missing"] == 3
+    assert standing["stability"] == pytest.approx(analysis.decision.stability)
+    assert (standing["rule"], standing["margin_pp"], standing["baseline"]) == (
+        "margin",
+        20.0,
+        "all-3",
+    )
+    table = analysis.variants.set_index("variant")
+    assert [v["variant"] for v in standing["variants"]] == list(table.index)
+    for entry in standing["variants"]:
+        row = table.loc[entry["variant"]]
+        assert entry["n_seeds"] == row["n_seeds"] == 1 and entry["n_planned"] == 2
+        for col in ("val_acc_mean", "val_acc_ci_low", "val_acc_ci_high"):
+            assert entry[col] == pytest.approx(row[col], abs=1e-12), (entry["variant"], col)
+        # ... and the mean is the trial's own scored accuracy (one seed: nothing to average).
+        trial = analysis.trials.query("variant == @entry['variant'] and status == 'done'")
+        assert entry["val_acc_mean"] == pytest.approx(float(trial["val_acc"].iloc[0]))
+        assert entry["val_acc_ci_low"] <= entry["val_acc_mean"] <= entry["val_acc_ci_high"]
+
+    text = subprocess.run(
+        [sys.executable, "-m", "kablate", "status", str(partial_sweep)],
+        capture_output=True,
+        text=True,
+        timeout=300,
+    ).stdout
+    assert f"provisional leader (3 trial(s) have no result yet): {analysis.recommended}," in text
+    for entry in standing["variants"]:
+        mean, low, high = (
+            100 * entry[c] for c in ("val_acc_mean", "val_acc_ci_low", "val_acc_ci_high")
+        )
+        line = next(x for x in text.splitlines() if x.startswith(f"  {entry['variant']} "))
+        assert line.endswith(f"[#.]  1/2  val acc {mean:.2f}% [{low:.2f}, {high:.2f}] on 1 seed(s)")
+
+
+@pytest.mark.slow
+def test_without_a_finished_baseline_there_is_no_leader_and_status_says_why(partial_sweep):
+    folder = open_results(partial_sweep)
+    rows, curves = folder.rows()
+    for row in rows:  # as if the baseline's trial were still running
+        if row["variant"] == "all-3":
+            row["status"] = "running"
+    data = json.loads((partial_sweep / DATA_FILE).read_text())
+    standing = stand(rows, curves, folder.plan, [], data, PickSpec(margin=20.0))
+    analysis = reference(partial_sweep, rows)
+    assert analysis.decision is None and standing.leader is None
+    assert standing.note == (
+        "no leader yet: the baseline all-3 has no finished trial, and the margin rule compares "
+        "every plan with it"
+    )
+    # The other variants' accuracies are still shown, as the analysis gives them.
+    table = analysis.variants.set_index("variant")
+    shown = {v["variant"]: v["val_acc_mean"] for v in standing.variants}
+    assert shown["all-3"] is None
+    assert shown["stem-5"] == pytest.approx(table.loc["stem-5", "val_acc_mean"])
+    status = summarize("tiny", rows, [], NOW, {})
+    status.standing = asdict(standing)
+    text = format_status(status)
+    assert text.endswith(standing.note) and "leader:" not in text

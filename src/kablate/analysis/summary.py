@@ -37,6 +37,7 @@ from kablate.analysis.tables import (
 from kablate.errors import UsageError
 from kablate.plans.expand import cell_name, grid_cells
 from kablate.spec.costs import COSTS
+from kablate.spec.fields import Where, read_table
 from kablate.spec.schema import PickSpec
 from kablate.trials.export import CURVE_COLUMNS
 
@@ -82,6 +83,14 @@ class Analysis:
         """The trials without a result yet: variant, seed, status."""
         t = self.trials
         return t.loc[~t["status"].isin(FINISHED), ["variant", "seed", "status"]]
+
+
+def pick_settings(meta: dict, **overrides) -> PickSpec:
+    """The selection rule's settings: the command line's (``overrides`` that are not None),
+    else the sweep file's ``[pick]`` table, else the defaults of `PickSpec`."""
+    raw = dict(meta.get("resolved", {}).get("pick", {}))
+    raw.update({k: v for k, v in overrides.items() if v is not None})
+    return read_table(PickSpec, raw, Where("the command line or [pick]").key("pick"))
 
 
 def analyze(

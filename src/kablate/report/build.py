@@ -6,7 +6,7 @@ import json
 from pathlib import Path
 
 from kablate import __version__
-from kablate.analysis.summary import Analysis, analyze
+from kablate.analysis.summary import Analysis, analyze, pick_settings
 from kablate.errors import KablateError
 from kablate.report.card import PLOT_CAPTIONS, CardContext, render_card
 from kablate.report.plots import (
@@ -19,7 +19,6 @@ from kablate.report.plots import (
     rendering,
 )
 from kablate.spec.costs import COSTS
-from kablate.spec.fields import Where, read_table
 from kablate.spec.schema import PickSpec
 from kablate.trials.environment import sanitize
 from kablate.trials.export import (
@@ -96,14 +95,6 @@ def subtitle(meta: dict, data: dict) -> str:
         f"sweep {meta['name']} · {data['source']} ({data['sizes']['train']} train, "
         f"{data['sizes']['val']} val) · seeds {seeds} · {budget}"
     )
-
-
-def pick_settings(meta: dict, **overrides) -> PickSpec:
-    """The selection rule's settings: the command line's (``overrides`` that are not None),
-    else the sweep file's ``[pick]`` table, else the defaults of `PickSpec`."""
-    raw = dict(meta.get("resolved", {}).get("pick", {}))
-    raw.update({k: v for k, v in overrides.items() if v is not None})
-    return read_table(PickSpec, raw, Where("the command line or [pick]").key("pick"))
 
 
 def write_tables(out: Path, analysis: Analysis, data: dict) -> None:

@@ -17,6 +17,10 @@ from datetime import datetime
 
 from optuna.trial import FrozenTrial, TrialState
 
+from kablate.errors import KablateError
+from kablate.trials.meta import read_json
+from kablate.trials.results import DATA_FILE, ResultsFolder
+
 STATES = ("done", "running", "waiting", "failed", "diverged")
 RECENT = 20  # finished trials that set the expected trial time
 
@@ -34,6 +38,9 @@ class SweepStatus:
     eta_seconds: float | None  # None: nothing is running, so no end can be predicted
     finished: bool = False
     layout: dict = field(default_factory=dict)
+    # how the variants stand (`analysis.standing.Standing`), or None with the reason
+    standing: dict | None = None
+    standing_error: str | None = None
 
     def to_dict(self) -> dict:
         return asdict(self)
@@ -158,18 +165,66 @@ def format_status(status: SweepStatus) -> str:
             f"{duration(entry['seconds'] or 0)}"
         )
     width = max((len(v["variant"]) for v in status.variants), default=8)
+    cells = [f"[{progress_bar(v)}]  {v['done']}/{v['n_trials']}" for v in status.variants]
+    cell_width = max(map(len, cells), default=0)
+    accuracy = {v["variant"]: v for v in (status.standing or {}).get("variants", [])}
     lines.append("")
-    for entry in status.variants:
-        bar = (
-            "#" * entry["done"]
-            + "~" * entry["running"]
-            + "x" * (entry["failed"] + entry["diverged"])
-            + "." * entry["waiting"]
-        )
-        lines.append(f"  {entry['variant']:<{width}}  [{bar}]  {entry['done']}/{entry['n_trials']}")
+    for entry, cell in zip(status.variants, cells, strict=True):
+        acc = accuracy_text(accuracy.get(entry["variant"]))
+        lines.append(f"  {entry['variant']:<{width}}  {cell:<{cell_width}}{acc}".rstrip())
     lines.append("")
     lines.append("  # done  ~ running  x failed or diverged  . waiting")
+    lines += standing_lines(status)
     return "\n".join(lines)
+
+
+def progress_bar(entry: dict) -> str:
+    """One character per trial of a variant: '#' done, '~' running, 'x' failed or diverged,
+    '.' waiting."""
+    return (
+        "#" * entry["done"]
+        + "~" * entry["running"]
+        + "x" * (entry["failed"] + entry["diverged"])
+        + "." * entry["waiting"]
+    )
+
+
+def accuracy_text(entry: dict | None) -> str:
+    """'  val acc 91.00% [88.10, 93.40] on 2 seeds', or '' before a variant has a result."""
+    if not entry or entry["val_acc_mean"] is None:
+        return ""
+    low, high = entry["val_acc_ci_low"], entry["val_acc_ci_high"]
+    interval = f" [{100 * low:.2f}, {100 * high:.2f}]" if low is not None else ""
+    return f"  val acc {100 * entry['val_acc_mean']:.2f}%{interval} on {entry['n_seeds']} seed(s)"
+
+
+def standing_lines(status: SweepStatus) -> list[str]:
+    """The leader under the sweep's rule, marked provisional while trials lack a result."""
+    standing = status.standing
+    if standing is None:
+        return ["", f"how the variants stand is unknown: {status.standing_error}"]
+    basis = {
+        "predictions": "accuracy over every compared (seed, validation image) pair, with its 95% "
+        "interval (two-level bootstrap)",
+        "seeds": "mean of the seeds' accuracies, with its 95% t interval (none from one seed)",
+    }
+    lines = ["", f"val acc: {basis[standing['accuracy_from']]}"]
+    if standing["seeds"] is not None:
+        seeds = ", ".join(map(str, standing["seeds"]))
+        lines.append(f"compared on seed(s) {seeds}, which every variant with a result has finished")
+    if standing["leader"] is None:
+        return [*lines, standing["note"]]
+    if standing["provisional"]:
+        label = f"provisional leader ({standing['n_missing']} trial(s) have no result yet)"
+    else:
+        label = "leader (every trial has a result; `kablate report` explains the pick)"
+    share, shown = standing["stability"], ""
+    if share is not None:
+        how = "of bootstrap resamples" if standing["rule"] == "margin" else "leaving one seed out"
+        shown = f", the rule's pick in {100 * share:.0f}% {how}"
+    lines.append(f"{label}: {standing['leader']}{shown}")
+    lines.append(f"  rule {standing['rule']}: {standing['note']}")
+    return lines
 
 
 def duration(seconds: float | None) -> str:
@@ -182,9 +237,23 @@ def duration(seconds: float | None) -> str:
     return f"{m}m{s:02d}s" if m else f"{s}s"
 
 
-def read_status(folder) -> SweepStatus:
-    """The status of a `ResultsFolder`, read from its storage now."""
-    rows, _ = folder.rows()
+def read_status(folder: ResultsFolder) -> SweepStatus:
+    """The status of a `ResultsFolder`, read from its storage now, with how its variants
+    stand (or why that cannot be told: the progress is shown either way)."""
+    # Imported here: the workers import this module for `summarize`, and the analysis (pandas,
+    # statsmodels) would slow every worker's start and import the trials package in a circle.
+    from kablate.analysis.standing import stand
+    from kablate.analysis.summary import pick_settings
+
+    rows, curves = folder.rows()
     trials = folder.study.get_trials(deepcopy=False)
     layout = {k: folder.meta.get(k) for k in ("workers", "threads")}
-    return summarize(folder.name, rows, trials, datetime.now(), layout)
+    status = summarize(folder.name, rows, trials, datetime.now(), layout)
+    try:
+        data = read_json(folder.path / DATA_FILE)
+        pick = pick_settings(folder.meta)
+        grids = folder.meta.get("grids", [])
+        status.standing = asdict(stand(rows, curves, folder.plan, grids, data, pick))
+    except KablateError as exc:
+        status.standing_error = str(exc)
+    return status
