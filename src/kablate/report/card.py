@@ -159,8 +159,8 @@ def _details(a: Analysis, ctx: CardContext) -> list[str]:
         "",
         _network_line(meta["resolved"], len(a.variants)),
         f"- Sweep `{meta['name']}` from `{meta['source']}`, definition fingerprint "
-        f"`{meta['fingerprint']}` (a hash of the resolved network or model, recipe and data settings; "
-        "see Reproducing for the whole sweep's).",
+        f"`{meta['fingerprint']}` (a hash of the resolved network or model, recipe and data "
+        "settings; see Reproducing for the whole sweep's).",
         f"- Each plan trained once per seed ({', '.join(map(str, meta['seeds']))}) under one "
         f"recipe: {recipe.epochs} epochs, batch {recipe.batch_size}, "
         f"{recipe.optimizer} at peak lr {recipe.lr:g}, "
@@ -395,8 +395,8 @@ def _reproducing(meta: dict) -> list[str]:
             if meta.get("sweep_fingerprint")
             else ""
         )
-        + f"; definition fingerprint `{meta['fingerprint']}` (network or model, recipe and data only: "
-        "it stays the same when seeds or plans are added). The resolved settings are in "
+        + f"; definition fingerprint `{meta['fingerprint']}` (network or model, recipe and data "
+        "only: it stays the same when seeds or plans are added). The resolved settings are in "
         "`sweep.json` beside `trials.csv` and `variants.csv`.",
         f"- Machine: {env.get('cpu', 'unknown CPU')}, {env.get('cores', '?')} cores; "
         f"{meta.get('workers')} worker(s) × {meta.get('threads')} thread(s); device "
