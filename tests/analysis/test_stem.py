@@ -22,7 +22,7 @@ from kablate.analysis.stem import (
 )
 
 N = PAD_SIZE  # the DFT size the report uses
-EDGES = (1 / 8, 1 / 4)  # cycles per pixel, as documented in sweeps/README.md (report section)
+EDGES = (1 / 8, 1 / 4)  # cycles per pixel, as documented in sweeps/README.md (the stem section)
 
 
 def one_channel(kernel: np.ndarray) -> np.ndarray:

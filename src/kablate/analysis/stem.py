@@ -5,7 +5,8 @@ Read in this order: `power_spectrum` → `band_shares` / `radial_profile` (frequ
 `dead_mask` / `pair_masks` (dead and near-duplicate filters), `describe_filters` (one seed),
 `summarize_stems` (every variant, mean and 95% Student-t interval over seeds).
 
-Method and thresholds (documented in sweeps/README.md, report section, and in the card):
+Method and thresholds (documented in sweeps/README.md, "What the report says about the
+stem", and in the card):
 
 - Each filter's input channels are zero-padded into an N×N array (``PAD_SIZE``, or the
   kernel's size if larger), so that kernels of different sizes are sampled at the same

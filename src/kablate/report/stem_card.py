@@ -34,7 +34,8 @@ def method_lines(atlas: StemAtlas) -> list[str]:
         f"{DUPLICATE_R:g} with another live filter; opposite: below −{DUPLICATE_R:g} (a filter "
         "and its negative pass opposite halves of the signal through a ReLU, so they are not "
         "counted as duplicates). Mean over seeds with its 95% Student-t interval. The method "
-        "and why these thresholds: sweeps/README.md, report section.",
+        'and why these thresholds: sweeps/README.md, section "What the report says about the '
+        'stem".',
         "",
     ]
 
