@@ -28,9 +28,17 @@ NOT_LINEAR = "its stem is {n} convs with a norm and an activation between them: 
 def stem_layers(entry: dict, own_network: bool) -> list[dict]:
     """The stem's conv layers of one ``plan.json`` variant (its first conv for a user model)."""
     convs = [layer for layer in entry.get("layers", []) if layer["kind"] == "conv"]
-    if not own_network:
-        return convs[:1]
-    return [c for c in convs if c["name"] == "stem" or c["name"].startswith("stem.")]
+    if own_network:
+        return [c for c in convs if under(c["name"], "stem")]
+    for path in entry.get("rewrites", {}):  # a rewritten first conv: every conv it became
+        if convs and under(convs[0]["name"], path):
+            return [c for c in convs if under(c["name"], path)]
+    return convs[:1]
+
+
+def under(name: str, path: str) -> bool:
+    """Whether the layer ``name`` is the module ``path`` or inside it."""
+    return name == path or name.startswith(path + ".")
 
 
 def stem_key(layers: list[dict]) -> tuple:
@@ -51,11 +59,14 @@ def stem_label(layer: dict) -> str:
 
 
 def first_conv_weight(state: dict, layer: dict) -> np.ndarray | None:
-    """The first 4-D weight of a state dict (the first conv in module order), or None when its
-    shape is not the given conv layer's."""
+    """The weight of the given conv: by its module path (a user model), else the first 4-D
+    tensor of the state dict (the first conv in module order); None when its shape is not the
+    layer's."""
     expected = (layer["out_ch"], layer["in_ch"] // layer["groups"], *layer["kernel"])
-    for key, value in state.items():
-        if key.endswith("weight") and getattr(value, "ndim", 0) == 4:
+    named = state.get(f"{layer['name']}.weight")  # a user model's conv, by its module path
+    candidates = [named] if named is not None else state.values()
+    for value in candidates:
+        if getattr(value, "ndim", 0) == 4:
             weight = value.detach().cpu().float().numpy()
             return weight if tuple(weight.shape) == expected else None
     return None
