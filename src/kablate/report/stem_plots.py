@@ -97,7 +97,7 @@ def plot_stem_spectrum(atlas: StemAtlas, out: Path, subtitle: str) -> list[Path]
     for i, row in enumerate(s.itertuples()):
         colour, marker = style(i)
         freqs, profile = atlas.profiles[row.variant]
-        left.plot(freqs, profile, color=colour, marker=marker, markersize=3, label=row.variant)
+        left.plot(freqs, profile, color=colour, marker=marker, markersize=3, markevery=8)
         means = np.array([getattr(row, f"share_{b}_mean") for b in BANDS])
         low = np.array([getattr(row, f"share_{b}_ci_low") for b in BANDS])
         high = np.array([getattr(row, f"share_{b}_ci_high") for b in BANDS])
