@@ -8,6 +8,7 @@ import re
 import shutil
 from pathlib import Path
 
+import numpy as np
 import pytest
 import torch
 from click.testing import CliRunner
@@ -19,6 +20,7 @@ from kablate.errors import SweepError
 from kablate.nets.handoff import build_handoff
 from kablate.report import write_report
 from kablate.spec import load_sweep
+from kablate.train.loop import CHECKPOINT, scored_state
 from kablate.trials import RunOptions, open_results, run_sweep
 from kablate.trials.export import PREDICTION_COLUMNS
 from tests.conftest import TINY_SWEEP, write_sweep
@@ -260,3 +262,31 @@ def test_export_writes_the_recommended_variant_and_it_rebuilds_with_its_planned_
     assert counter.get_total_flops() == 2 * handoff["costs"]["macs"]
     unknown = CliRunner().invoke(main, ["export", str(results), "--variant", "stem5"])
     assert unknown.exit_code == 2 and "did you mean `stem-5`" in unknown.output
+
+
+@pytest.mark.slow
+def test_the_report_describes_what_each_stem_learned(results):
+    """The baseline (3×3 stem) and stem-5 from their checkpoints: the atlas section, its
+    plots, and its numbers as tables and weights."""
+    text = card_text(results)
+    section = text.split("#### What the stem learned", 1)[1].split("\n####", 1)[0]
+    assert "Not computed" not in section
+    assert "| all-3 (" in section and "| 3×3 | 2 × " in section
+    assert "| stem-5 | 5×5 | 2 × " in section
+    assert "The 5×5 stem of stem-5 leaves" in section
+    for plot in ("stem_atlas", "stem_spectrum"):
+        assert f"]({plot}.png)" in text
+        assert (results / "report" / f"{plot}.png").is_file()
+    rows = {r["variant"]: r for r in csv.DictReader((results / "stem.csv").open())}
+    assert set(rows) == {"all-3", "stem-5"} and rows["stem-5"]["stem"] == "5×5"
+    shares = [float(rows["stem-5"][f"share_{b}_mean"]) for b in ("low", "middle", "high")]
+    assert sum(shares) == pytest.approx(1)
+    seeds = list(csv.DictReader((results / "stem_seeds.csv").open()))
+    assert len(seeds) == 4
+    with np.load(results / "report" / "stem_filters.npz") as saved:
+        assert sorted(saved.files) == ["all-3/s0", "all-3/s1", "stem-5/s0", "stem-5/s1"]
+        # Each is the first conv weight of a trial's scored weights (its checkpoint).
+        for path in (results / "trials").glob(f"*/{CHECKPOINT}"):
+            state = scored_state(torch.load(path, weights_only=True))
+            first = next(v for v in state.values() if v.ndim == 4).numpy()
+            assert sum(np.array_equal(saved[k], first) for k in saved.files) == 1, path

@@ -27,6 +27,7 @@ from kablate.analysis.erf import ErfMap
 from kablate.analysis.evidence import Evidence, gather_evidence
 from kablate.analysis.flags import variant_flags
 from kablate.analysis.power import Resolution, resolution_after
+from kablate.analysis.stem import StemAtlas
 from kablate.analysis.tables import (
     FINISHED,
     add_fronts,
@@ -58,6 +59,8 @@ class Analysis:
     grid_ci_half: pd.DataFrame | None = None  # half-width of each cell's 95% CI, same shape
     erf: list[ErfMap] = field(default_factory=list)  # filled by the report, if it can
     erf_note: str = ""  # why there is no effective-receptive-field map, when there is none
+    stem: StemAtlas | None = None  # what the stem learned, filled by the report, if it can
+    stem_note: str = ""  # why there is no stem atlas, when there is none
     seeds: list[int] | None = None  # the seeds a partial sweep is compared on; None: all
     classes: tuple[str, ...] = ()
 

@@ -5,6 +5,8 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
+import numpy as np
+
 from kablate import __version__
 from kablate.analysis.summary import Analysis, analyze, pick_settings
 from kablate.errors import KablateError
@@ -18,6 +20,8 @@ from kablate.report.plots import (
     plot_rf_vs_accuracy,
     rendering,
 )
+from kablate.report.stem_card import STEM_FILTERS, STEM_SEEDS_TABLE, STEM_TABLE
+from kablate.report.stem_plots import plot_stem_atlas, plot_stem_spectrum
 from kablate.spec.costs import COSTS
 from kablate.spec.schema import PickSpec
 from kablate.trials.environment import sanitize
@@ -134,7 +138,35 @@ def draw_plots(analysis: Analysis, out: Path, sub: str) -> list[Path]:
             if len(analysis.erf) == 1 and rec == analysis.baseline:
                 roles = ["recommended and baseline"]
             plots += plot_effective_rf(analysis.erf, roles, out, sub)
+        if analysis.stem is not None:
+            plots += plot_stem_atlas(analysis.stem, out, sub)
+            plots += plot_stem_spectrum(analysis.stem, out, sub)
     return plots
+
+
+def guarded(compute, empty) -> tuple:
+    """``compute()`` → (value, note); an extra that fails gives (empty, why) instead: never
+    lose the report over an extra (erf maps, the stem atlas)."""
+    try:
+        return compute()
+    except Exception as exc:
+        note = str(exc) if isinstance(exc, KablateError) else f"{type(exc).__name__}: {exc}"
+        return empty, note.splitlines()[0] if note else "failed"
+
+
+def write_stem_tables(tables: Path, out: Path, analysis: Analysis) -> None:
+    """The stem atlas as data: per variant, per seed, and the weights it described."""
+    for name in (STEM_TABLE, STEM_SEEDS_TABLE):
+        (tables / name).unlink(missing_ok=True)
+    (out / STEM_FILTERS).unlink(missing_ok=True)
+    atlas = analysis.stem
+    if atlas is None:
+        return
+    atlas.summary.to_csv(tables / STEM_TABLE, index=False)
+    atlas.per_seed.to_csv(tables / STEM_SEEDS_TABLE, index=False)
+    weights = {f"{v}/s{seed}": w for v, seeds in atlas.filters.items() for seed, w in seeds.items()}
+    with (out / STEM_FILTERS).open("wb") as f:
+        np.savez_compressed(f, **weights)
 
 
 def scrub(text: str) -> str:
@@ -166,20 +198,21 @@ def write_report(
     analysis = analyze(rows, curves, folder.plan, folder.meta.get("grids", []), data, pick)
     if out is None:
         hint = "; give --out DIR to write the report elsewhere"
-        write_tables(writable_folder(folder.path, "results folder", hint), analysis, data)
+        tables = writable_folder(folder.path, "results folder", hint)
         out = writable_folder(folder.path / "report", "report folder", hint)
     else:
-        write_tables(writable_folder(out, "--out folder"), analysis, data)
+        tables = writable_folder(out, "--out folder")
+    write_tables(tables, analysis, data)
     if with_erf:
         from kablate.report.trained import erf_maps
 
-        try:
-            analysis.erf, analysis.erf_note = erf_maps(folder, analysis, data)
-        except Exception as exc:  # the maps are an extra: never lose the report over them
-            note = str(exc) if isinstance(exc, KablateError) else f"{type(exc).__name__}: {exc}"
-            analysis.erf, analysis.erf_note = [], note.splitlines()[0] if note else "failed"
+        analysis.erf, analysis.erf_note = guarded(lambda: erf_maps(folder, analysis, data), [])
     else:
         analysis.erf_note = "skipped on request"
+    from kablate.report.stem_weights import stem_atlas
+
+    analysis.stem, analysis.stem_note = guarded(lambda: stem_atlas(folder, analysis), None)
+    write_stem_tables(tables, out, analysis)
     plots = draw_plots(analysis, out, subtitle(folder.meta, data))
     ctx = CardContext(
         folder.meta,

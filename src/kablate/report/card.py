@@ -14,6 +14,7 @@ from datetime import UTC, datetime
 
 from kablate.analysis.summary import Analysis
 from kablate.costs.export import human
+from kablate.report.stem_card import stem_section
 from kablate.report.tables import ci, class_table, memory_table, test_table, variant_table
 from kablate.report.verdict import (
     cost_ratio,
@@ -57,6 +58,11 @@ PLOT_CAPTIONS = {
     "cell's 95% bootstrap interval; the colour scale spans at least one typical interval, so "
     "cells that differ by less than the noise look alike",
     "effective_rf": "Effective receptive field of the recommended plan and the baseline",
+    "stem_atlas": "The stem's trained filters (first seed), each scaled to its own largest "
+    "weight (mid-grey is zero), one tile pixel per kernel pixel in every panel; dead and "
+    "near-duplicate filters framed",
+    "stem_spectrum": "Radially averaged power spectrum of the stem's filters (mean over live "
+    "filters and seeds) and their energy per frequency band (95% interval over seeds)",
     "confusion": "Confusion matrices of the recommended plan and the baseline on the validation "
     "images, pooled over seeds",
 }
@@ -117,6 +123,7 @@ def render_card(a: Analysis, ctx: CardContext, now: datetime | None = None) -> s
         *test_table(a),
         *class_table(a),
         *_erf_section(a),
+        *stem_section(a.stem, a.stem_note),
         *_partial(a),
         *_plots(ctx.plots),
         "### Caveats and recommendations",
