@@ -169,6 +169,11 @@ def test_grid_table_for_a_two_axis_grid():
         expected = (v.loc[name, "val_acc_ci_high"] - v.loc[name, "val_acc_ci_low"]) / 2
         assert a.grid_ci_half.loc[cell] == pytest.approx(expected)
     assert math.isnan(a.grid_ci_half.loc["5", "5"])  # never trained
+    # The heatmap outlines the baseline's and the recommended plan's cells, found by their axes.
+    cell = {v["name"]: tuple(dict(v["axes"]).values()) for v in p["variants"]}
+    for role, name in (("baseline", "base"), ("recommended", a.recommended)):
+        [(r, c)] = a.grid_marks[role]
+        assert (a.grid.index[r], a.grid.columns[c]) == cell[name]
 
 
 def test_grid_cell_kept_under_an_earlier_plan_name_is_found_by_its_alias():
@@ -180,6 +185,7 @@ def test_grid_cell_kept_under_an_earlier_plan_name_is_found_by_its_alias():
     a = analyze(rows(), [], p, [{"stem": ["3", "5"], "body": ["3", "5"]}])
     assert a.grid.loc["3", "3"] == pytest.approx(0.905)  # seeds 0 and 1 (see above)
     assert a.grid.loc["3", "5"] == pytest.approx(0.90)
+    assert a.grid_marks["baseline"] == [(0, 0)]  # found by its alias too
 
 
 def test_without_a_finished_baseline_the_intervals_still_come_from_the_evidence():

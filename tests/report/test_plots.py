@@ -7,23 +7,18 @@ import pandas as pd
 import pytest
 
 from kablate.analysis.erf import ErfMap, Geometry
-from kablate.analysis.summary import analyze
+from kablate.analysis.summary import Analysis, analyze
 from kablate.report import plots
 from kablate.report.build import draw_plots
 from kablate.report.card import CardContext, render_card
+from kablate.report.plot_style import PALETTE, rendering, style
 from kablate.report.plots import (
-    ERF_SQUARES,
-    erf_legend,
-    erf_view,
     heatmap_limits,
     plot_accuracy_vs_cost,
     plot_confusion,
-    plot_effective_rf,
     plot_grid_heatmap,
     plot_learning_curves,
     plot_rf_vs_accuracy,
-    rendering,
-    square_shown,
 )
 from kablate.spec.schema import PickSpec
 from tests.analysis.synthetic import data_json, with_predictions
@@ -32,8 +27,9 @@ from tests.analysis.test_tables import plan, rows
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
 
 
-@pytest.fixture(scope="module")
-def analysis():
+def sweep_analysis(n_images: int = 100, margin: float = 2.0) -> Analysis:
+    """The synthetic partial sweep of `tests.analysis.test_tables` on a 2×2 grid, with
+    learning curves and one effective-receptive-field map."""
     p = plan(latency=True)
     for v, axes in zip(
         p["variants"], [("3", "3"), ("3", "5"), ("5", "3"), ("5", "5")], strict=True
@@ -54,11 +50,33 @@ def analysis():
         for e in range(1, 5)  # epochs count from 1 in curves.csv (train.record.shown_epoch)
     ]
     grids = [{"stem": ["3", "5"], "body": ["3", "5"]}]
-    a = analyze(with_predictions(rows()), curves, p, grids, data_json(), PickSpec(margin=2.0))
+    a = analyze(
+        with_predictions(rows(), n_images),
+        curves,
+        p,
+        grids,
+        data_json(n_images),
+        PickSpec(margin=margin),
+    )
     grad = np.exp(-((np.indices((9, 9)) - 4.0) ** 2).sum(axis=0) / 4.0)
     a.erf = [
         ErfMap("base", grad / grad.max(), Geometry((4.0, 4.0), (7, 7), (1, 1)), 8, (0, 1), 3, 5)
     ]
+    return a
+
+
+@pytest.fixture(scope="module")
+def analysis():
+    """The baseline is kept: on 100 images cheap is not shown within the 2 pp margin."""
+    return sweep_analysis()
+
+
+@pytest.fixture(scope="module")
+def chosen():
+    """A cheaper plan is recommended: on 1000 images cheap (0.5 pp below the baseline) is
+    shown within a 3 pp margin, so the baseline and the recommended plan differ."""
+    a = sweep_analysis(n_images=1000, margin=3.0)
+    assert (a.baseline, a.recommended) == ("base", "cheap")
     return a
 
 
@@ -85,9 +103,9 @@ def test_accuracy_vs_cost(analysis, tmp_path, cost, label, stem):
 def drawn(monkeypatch, draw):
     """Call ``draw`` and return the figure it made, before it is saved and closed."""
     figures = []
-    save = plots._save
+    save = plots.save_figure
     monkeypatch.setattr(
-        plots, "_save", lambda fig, out, stem: figures.append(fig) or save(fig, out, stem)
+        plots, "save_figure", lambda fig, out, stem: figures.append(fig) or save(fig, out, stem)
     )
     draw()
     return figures[0]
@@ -182,11 +200,6 @@ def test_heatmap_colours_span_at_least_a_typical_interval_inside_0_to_1():
     assert (low, high) == pytest.approx((0.5, 0.7))
 
 
-def test_effective_rf(analysis, tmp_path):
-    with rendering():
-        check(plot_effective_rf(analysis.erf, ["baseline"], tmp_path, "sub"), "effective_rf")
-
-
 def test_svg_is_deterministic(analysis, tmp_path):
     with rendering():
         a = (
@@ -237,31 +250,189 @@ def test_card_of_a_partial_sweep_lists_the_missing_trials(analysis):
     assert "![" in text and "(a.png)" in text
 
 
-def _map(name, centre, rf, e95, e50, shape=(8, 8)):
-    return ErfMap(name, np.ones(shape), Geometry(centre, (rf, rf), (1, 1)), 4, (0,), e50, e95)
+# --- Drawn content: each check reads matplotlib's artists and compares them with the analysis.
 
 
-def test_effective_rf_legend_says_which_squares_are_drawn():
-    inside = _map("small", (4.0, 4.0), 7, 5, 3, shape=(9, 9))
-    assert [label for label, _, _ in erf_legend([inside])] == [
-        "theoretical receptive field",
-        "square holding 95% of the gradient mass",
-        "square holding 50% of the gradient mass",
-    ]
-    # An 8×8 input whose centre output sits at (2.5, 2.5), as with an even-sized last map:
-    # the 95% square (side 10) reaches 2 px past the top-left of the input, so the view
-    # widens to show it; a 28 px theoretical square is far larger and is said not drawn.
-    big = _map("body-5", (2.5, 2.5), 28, 10, 6)
-    mid = _map("all-3", (2.5, 2.5), 7, 10, 6)
-    view = erf_view([big, mid])
-    assert view == (-3.0, 8.0, -3.0, 8.0)
-    assert square_shown(big, 10, view) and not square_shown(big, 28, view)
-    labels = [label for label, _, _ in erf_legend([big, mid])]
-    assert labels[0] == "theoretical receptive field (larger than the view for body-5)"
-    assert labels[1:] == [
-        "square holding 95% of the gradient mass",
-        "square holding 50% of the gradient mass",
-    ]
-    assert erf_legend([big])[0][0].endswith("(larger than the view: not drawn)")
-    # The legend's colours and styles are the ones the squares are drawn with.
-    assert [(c, d) for _, c, d in erf_legend([big])] == [(c, d) for _, c, d in ERF_SQUARES]
+def points(ax):
+    """variant → (x, y, colour, marker) of its error-bar marker, as drawn."""
+    out = {}
+    for c in ax.containers:
+        line = c.lines[0]
+        assert line.get_visible() and line.get_markersize() > 0  # drawn, not hidden
+        name = c.get_label().split(" (n=")[0].split("] ")[-1]
+        out[name] = (line.get_xdata()[0], line.get_ydata()[0], line.get_color(), line.get_marker())
+    return out
+
+
+def offsets(ax, label):
+    [marks] = [c for c in ax.collections if c.get_label() == label]
+    return [tuple(p) for p in marks.get_offsets()]
+
+
+@pytest.mark.parametrize("cost", ["macs", "params"])
+def test_points_marks_and_colours_are_the_analysis_data(chosen, tmp_path, monkeypatch, cost):
+    with rendering():
+        fig = drawn(monkeypatch, lambda: plot_accuracy_vs_cost(chosen, cost, "c", tmp_path, "s"))
+    ax = fig.axes[0]
+    drawn_points = points(ax)
+    v = chosen.variants.reset_index(drop=True)
+    trained = v[v["n_seeds"] > 0]
+    assert set(drawn_points) == set(trained["variant"])  # "never" has no result: not drawn
+    assert len(set(trained[cost])) == len(trained)  # no equal costs here: nothing dodged
+    for i, row in trained.iterrows():
+        x, y, colour, marker = drawn_points[row["variant"]]
+        assert (x, y) == (row[cost], row["val_acc_mean"])
+        assert (colour, marker) == style(i)  # the palette's, by plan order
+    colours = [drawn_points[name][2] for name in trained["variant"]]
+    assert len(set(colours)) == len(colours) and set(colours) <= set(PALETTE)  # not all black
+    # The intervals drawn are the analysis's 95% bootstrap intervals.
+    bars = {c.get_label().split(" (n=")[0]: c.lines[2][0].get_segments()[0] for c in ax.containers}
+    for _, row in trained.iterrows():
+        (_, low), (_, high) = bars[row["variant"]]
+        assert (low, high) == pytest.approx((row["val_acc_ci_low"], row["val_acc_ci_high"]))
+    for label, name in (("recommended", chosen.recommended), ("baseline", chosen.baseline)):
+        row = v.set_index("variant").loc[name]
+        assert offsets(ax, label) == [(row[cost], row["val_acc_mean"])]
+
+
+def test_rf_plot_marks_the_baseline_and_the_recommended_plan(chosen, tmp_path, monkeypatch):
+    with rendering():
+        fig = drawn(monkeypatch, lambda: plot_rf_vs_accuracy(chosen, tmp_path, "s"))
+    ax = fig.axes[0]
+    drawn_points = points(ax)
+    v = chosen.variants.set_index("variant")
+    for label, name in (("recommended", chosen.recommended), ("baseline", chosen.baseline)):
+        x, y, _, _ = drawn_points[name]
+        assert offsets(ax, label) == [(x, y)] and y == v.loc[name, "val_acc_mean"]
+        assert abs(x - v.loc[name, "rf"]) <= 0.25  # its rf, dodged by a quarter pixel at most
+
+
+def crowd(n: int, cost=lambda i: 1000.0 * (i + 1)) -> Analysis:
+    """A drawn-only analysis of ``n`` variants with 40-character names (invented numbers: the
+    plots' layout is under test, not the statistics)."""
+    names = [f"stem=7x7+stage1=5x5+stage2=3x3+head-{i:04d}" for i in range(n)]
+    assert {len(name) for name in names} == {40}
+    acc = np.linspace(0.80, 0.90, n)
+    variants = pd.DataFrame(
+        {
+            "variant": names,
+            "variant_id": [f"v{i}" for i in range(n)],
+            "n_seeds": 3,
+            "val_acc_mean": acc,
+            "val_acc_ci_low": acc - 0.01,
+            "val_acc_ci_high": acc + 0.01,
+            "p_holm": 0.01,
+            "macs": [cost(i) for i in range(n)],
+            "rf": 9 + 2 * (np.arange(n) % 5),
+            "recommended": [i == min(3, n - 1) for i in range(n)],
+        }
+    )
+    curves = pd.DataFrame(
+        [
+            {"variant": name, "seed": 0, "epoch": e, "val_acc": acc[i] * e / 3}
+            for i, name in enumerate(names)
+            for e in (1, 2, 3)
+        ]
+    )
+    return Analysis(pd.DataFrame(), variants, curves, names[0], PickSpec(), None)
+
+
+def axes_height(fig) -> float:
+    return fig.axes[0].get_window_extent().height / fig.dpi
+
+
+@pytest.mark.parametrize("kind", ["cost", "curves"])
+def test_legends_of_50_variants_with_long_names_fit_in_the_figure(tmp_path, monkeypatch, kind):
+    def draw(a):
+        if kind == "cost":
+            return lambda: plot_accuracy_vs_cost(a, "macs", "MACs", tmp_path, "s")
+        return lambda: plot_learning_curves(a, tmp_path, "s")
+
+    with rendering():
+        fig = drawn(monkeypatch, draw(crowd(50)))
+        fig.canvas.draw()
+        small = drawn(monkeypatch, draw(crowd(4)))
+        small.canvas.draw()
+    [legend] = fig.legends
+    texts = [t.get_text() for t in legend.get_texts()]
+    keys = ["hollow: not told apart from\nthe baseline (Holm p ≥ 0.05)", "recommended", "baseline"]
+    names = [n for n in texts if n.startswith("stem=7x7")]
+    assert len(names) == 50 and len(texts) == 50 + (len(keys) if kind == "cost" else 0)
+    if kind == "cost":
+        assert sorted(set(texts) - set(names)) == sorted(keys)
+    box = fig.bbox
+    for text in legend.get_texts():
+        extent = text.get_window_extent()
+        assert box.x0 <= extent.x0 and extent.x1 <= box.x1, text.get_text()
+        assert box.y0 <= extent.y0 and extent.y1 <= box.y1, text.get_text()
+    # The subtitle stays above the axes however tall the figure grows.
+    [subtitle] = [t for t in fig.texts if t.get_text() == "s"]
+    assert subtitle.get_window_extent().y0 >= fig.axes[0].get_window_extent().y1
+    # The figure grew with the legend, so the axes kept their size (within 3%).
+    assert axes_height(fig) == pytest.approx(axes_height(small), rel=0.03)
+
+
+def test_beyond_70_variants_every_point_carries_its_number(tmp_path, monkeypatch):
+    a = crowd(75)
+    with rendering():
+        fig = drawn(monkeypatch, lambda: plot_accuracy_vs_cost(a, "macs", "MACs", tmp_path, "s"))
+    ax = fig.axes[0]
+    numbers = {t.get_text(): t.xy for t in ax.texts}
+    labels = [c.get_label() for c in ax.containers]
+    for i, row in a.variants.iterrows():
+        assert numbers[str(i + 1)] == (row["macs"], row["val_acc_mean"])
+        assert labels[i].startswith(f"[{i + 1}] {row['variant']}")
+
+
+def test_variants_of_equal_cost_are_drawn_side_by_side_about_it(tmp_path, monkeypatch):
+    # Three plans at 2000 MACs and two at 5000, as all-3, stem-5 and stem-7 can be.
+    macs = [1000.0, 2000.0, 2000.0, 2000.0, 5000.0, 5000.0]
+    a = crowd(len(macs), cost=lambda i: macs[i])
+    with rendering():
+        fig = drawn(monkeypatch, lambda: plot_accuracy_vs_cost(a, "macs", "MACs", tmp_path, "s"))
+    ax = fig.axes[0]
+    x = np.array([c.lines[0].get_xdata()[0] for c in ax.containers])  # in plan order
+    assert len(set(x)) == len(x)  # no two points share an x position
+    assert x[0] == 1000.0
+    for group in ([1, 2, 3], [4, 5]):
+        shift = np.log10(x[group] / np.array(macs)[group])
+        assert np.all(np.diff(shift) > 0)  # plan order, left to right
+        assert shift == pytest.approx(-shift[::-1])  # symmetric about the true cost
+        assert np.diff(shift) == pytest.approx(np.full(len(group) - 1, np.diff(shift)[0]))
+    assert "equal values side by side" in ax.get_xlabel()
+
+
+def test_learning_curves_mark_the_baseline_and_the_recommended_plan(chosen, tmp_path, monkeypatch):
+    with rendering():
+        fig = drawn(monkeypatch, lambda: plot_learning_curves(chosen, tmp_path, "s"))
+    full = fig.axes[0]
+    c = chosen.curves
+    marked = {}
+    for line in full.get_lines():
+        name, _, role = line.get_label().partition(" (n=2)")
+        expected = c[c["variant"] == name].groupby("epoch")["val_acc"].mean().to_numpy()
+        assert line.get_ydata() == pytest.approx(expected)
+        thick = line.get_linewidth() > 2 * min(x.get_linewidth() for x in full.get_lines())
+        assert thick == bool(role), line.get_label()  # exactly the marked lines are thick
+        if role:
+            marked[role.strip(" ()")] = name
+    assert marked == {"baseline": "base", "recommended": "cheap"}
+
+
+def test_the_heatmap_outlines_the_baseline_and_the_recommended_cells(chosen, tmp_path, monkeypatch):
+    with rendering():
+        fig = drawn(monkeypatch, lambda: plot_grid_heatmap(chosen, tmp_path, "s"))
+    ax = fig.axes[0]
+    # The fixture's axes per variant (see `chosen` above), not the chosen's own lookup.
+    axes = {"base": ("3", "3"), "cheap": ("3", "5"), "big": ("5", "3"), "never": ("5", "5")}
+    outlined = {
+        p.get_label().removesuffix(" (outlined)"): (
+            ax.get_yticklabels()[round(p.get_y() + p.get_height() / 2)].get_text(),
+            ax.get_xticklabels()[round(p.get_x() + p.get_width() / 2)].get_text(),
+        )
+        for p in ax.patches
+        if p.get_label().endswith("(outlined)")
+    }
+    assert outlined == {"baseline": axes["base"], "recommended": axes["cheap"]}
+    labels = [t.get_text() for t in fig.legends[0].get_texts()]
+    assert labels == ["baseline (outlined)", "recommended (outlined)"]

@@ -9,7 +9,7 @@ from matplotlib.patches import Rectangle
 
 from kablate.analysis.stem import BANDS, summarize_stems
 from kablate.report import stem_plots
-from kablate.report.plots import rendering
+from kablate.report.plot_style import rendering
 from kablate.report.stem_plots import plot_stem_atlas, plot_stem_spectrum, tile_origin
 from tests.analysis.test_stem import planted_bank
 
@@ -27,10 +27,13 @@ def atlas():
 def drawn(monkeypatch, draw):
     """The figure a plot function draws (it is closed once saved)."""
     figures = []
-    save = stem_plots._save
-    monkeypatch.setattr(
-        stem_plots, "_save", lambda fig, out, stem: figures.append(fig) or save(fig, out, stem)
-    )
+    save = stem_plots.save_figure
+
+    def keep(fig, out, stem):
+        figures.append(fig)
+        return save(fig, out, stem)
+
+    monkeypatch.setattr(stem_plots, "save_figure", keep)
     with rendering():
         paths = draw()
     assert all(p.is_file() for p in paths)

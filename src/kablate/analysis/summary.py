@@ -63,6 +63,8 @@ class Analysis:
     stem_note: str = ""  # why there is no stem atlas, when there is none
     seeds: list[int] | None = None  # the seeds a partial sweep is compared on; None: all
     classes: tuple[str, ...] = ()
+    # (row, column) positions in ``grid`` of the baseline's and the recommended plan's cells
+    grid_marks: dict[str, list[tuple[int, int]]] = field(default_factory=dict)
 
     @property
     def recommended(self) -> str | None:
@@ -170,6 +172,12 @@ def analyze(
         grid_table(variants, plan, grids, ci_half_width(variants)),
         seeds=seeds,
         classes=tuple(str(c) for c in data.get("classes", range(n_classes))),
+        grid_marks=grid_marks(
+            variants,
+            plan,
+            grids,
+            {"baseline": baseline, "recommended": decision.recommended if decision else None},
+        ),
     )
 
 
@@ -287,3 +295,21 @@ def grid_table(
                 table.loc[cell[rows], cell[cols]] = acc[vid]
         return table
     return None
+
+
+def grid_marks(
+    variants: pd.DataFrame, plan: dict, grids: list[dict], names: dict[str, str | None]
+) -> dict[str, list[tuple[int, int]]]:
+    """For each role (e.g. "baseline") whose variant ``names`` gives, the (row, column)
+    positions in `grid_table`'s table of the cells that variant fills (none when it is not in
+    the grid; several when cells alias it). Found by `grid_table` itself, so they agree."""
+    out = {}
+    for role, name in names.items():
+        if name is None:
+            continue
+        table = grid_table(variants, plan, grids, (variants["variant"] == name).astype(float))
+        if table is None:
+            return {}
+        rows, cols = np.nonzero(table.to_numpy(dtype=float) == 1.0)
+        out[role] = [(int(r), int(c)) for r, c in zip(rows, cols, strict=True)]
+    return out

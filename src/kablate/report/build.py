@@ -11,14 +11,14 @@ from kablate import __version__
 from kablate.analysis.summary import Analysis, analyze, pick_settings
 from kablate.errors import KablateError
 from kablate.report.card import PLOT_CAPTIONS, CardContext, render_card
+from kablate.report.erf_plots import plot_effective_rf
+from kablate.report.plot_style import rendering
 from kablate.report.plots import (
     plot_accuracy_vs_cost,
     plot_confusion,
-    plot_effective_rf,
     plot_grid_heatmap,
     plot_learning_curves,
     plot_rf_vs_accuracy,
-    rendering,
 )
 from kablate.report.stem_card import STEM_FILTERS, STEM_SEEDS_TABLE, STEM_TABLE
 from kablate.report.stem_plots import plot_stem_atlas, plot_stem_spectrum

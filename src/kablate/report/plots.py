@@ -1,8 +1,8 @@
 """Plots of an `Analysis`. They only draw: every number comes from the analysis tables.
 
-Colours are the Okabe–Ito palette (colour-blind safe); markers also differ, so the plots read
-in greyscale. Every figure carries a subtitle naming the sweep, data, seeds and budget, and is
-sized for a model card (6.4 in wide; text no smaller than 7.5 pt at that width).
+Each variant keeps its look (`plot_style.style`) in every plot, and the baseline and the
+recommended plan are marked in every plot and on the grid heatmap. Every figure carries a
+subtitle naming the sweep, data, seeds and budget.
 """
 
 from __future__ import annotations
@@ -10,16 +10,12 @@ from __future__ import annotations
 import math
 from pathlib import Path
 
-import matplotlib
-
-matplotlib.use("Agg")
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
-import pandas as pd  # noqa: E402
-from matplotlib import patheffects  # noqa: E402
-from matplotlib.lines import Line2D  # noqa: E402
-from matplotlib.patches import Patch, Rectangle  # noqa: E402
-from matplotlib.ticker import (  # noqa: E402
+import numpy as np
+import pandas as pd
+from matplotlib import patheffects
+from matplotlib.axes import Axes
+from matplotlib.patches import Rectangle
+from matplotlib.ticker import (
     FuncFormatter,
     LogLocator,
     MaxNLocator,
@@ -27,85 +23,39 @@ from matplotlib.ticker import (  # noqa: E402
     PercentFormatter,
 )
 
-from kablate.analysis.classes import confusion  # noqa: E402
-from kablate.analysis.erf import ErfMap  # noqa: E402
-from kablate.analysis.summary import Analysis  # noqa: E402
-from kablate.costs.export import human  # noqa: E402
-from kablate.spec.costs import cost_of_column  # noqa: E402
+from kablate.analysis.classes import confusion
+from kablate.analysis.summary import Analysis
+from kablate.costs.export import human
+from kablate.report.plot_style import (
+    dodge,
+    legend_below,
+    new_figure,
+    numbered,
+    save_figure,
+    style,
+    variant_label,
+)
+from kablate.spec.costs import cost_of_column
 
-OKABE_ITO = ["#0072B2", "#E69F00", "#009E73", "#D55E00", "#CC79A7", "#56B4E9", "#F0E442", "#000000"]
-MARKERS = ["o", "s", "^", "D", "v", "P", "X", "<", ">", "h"]
-WIDTH_IN, HEIGHT_IN, DPI = 6.4, 4.4, 150
-# No dates, versions or random ids in the files, so the same analysis gives the same bytes.
-METADATA = {"png": {"Software": None}, "svg": {"Date": None, "Creator": None}}
-STYLE = {
-    "svg.hashsalt": "kablate",
-    "svg.fonttype": "path",
-    "font.size": 8.5,
-    "axes.titlesize": 8,
-    "axes.labelsize": 8.5,
-    "xtick.labelsize": 8,
-    "ytick.labelsize": 8,
-    "legend.fontsize": 7.5,
-}
+# Equal values are drawn side by side, not on top of each other: rf in steps of a quarter
+# pixel, a cost in steps of this share of the log axis's span (about a marker's width).
+RF_DODGE, COST_DODGE = 0.25, 0.025
+DODGED = "equal values side by side"
+MARKED_LINE = 2.6  # line width of the baseline's and the recommended plan's learning curves
 
 
-def style(i: int) -> tuple[str, str]:
-    """Colour and marker of the i-th variant (the same in every plot)."""
-    return OKABE_ITO[i % len(OKABE_ITO)], MARKERS[i % len(MARKERS)]
-
-
-def _figure(title: str, subtitle: str, ncols: int = 1) -> tuple[plt.Figure, list[plt.Axes]]:
-    fig, axes = plt.subplots(
-        1, ncols, figsize=(WIDTH_IN, HEIGHT_IN), dpi=DPI, layout="constrained", squeeze=False
-    )
-    fig.suptitle(f"{title}\n", fontsize=11, fontweight="bold")
-    fig.text(0.5, 0.935, subtitle, ha="center", va="top", fontsize=8, color="#444444")
-    for ax in axes[0]:
-        ax.grid(True, color="#dddddd", linewidth=0.6)
-        ax.set_axisbelow(True)
-    return fig, list(axes[0])
-
-
-def _save(fig: plt.Figure, out: Path, stem: str) -> list[Path]:
-    paths = []
-    for ext in ("png", "svg"):
-        path = out / f"{stem}.{ext}"
-        fig.savefig(path, metadata=METADATA[ext])
-        paths.append(path)
-    plt.close(fig)
-    return paths
-
-
-def _legend_below(fig: plt.Figure, ax: plt.Axes, n_items: int) -> None:
-    """One legend under the plot, so it never hides a point."""
-    handles, labels = ax.get_legend_handles_labels()
-    longest = max((len(label) for label in labels), default=0)
-    per_row = 2 if longest > 32 else 3 if longest > 22 else 4  # keep the rows inside 6.4 in
-    fig.legend(
-        handles,
-        labels,
-        loc="outside lower center",
-        ncol=min(per_row, max(1, n_items)),
-        frameon=False,
-        markerscale=0.8,
-        handletextpad=0.4,
-        columnspacing=1.2,
-    )
-
-
-def _percent_axis(ax: plt.Axes, label: str) -> None:
+def _percent_axis(ax: Axes, label: str) -> None:
     ax.yaxis.set_major_formatter(PercentFormatter(xmax=1.0, decimals=1))
     ax.set_ylabel(label)
 
 
-def _log_cost_axis(ax: plt.Axes, label: str) -> None:
+def _log_cost_axis(ax: Axes, label: str) -> None:
     """A log axis with few, short tick labels (10k, 20k, 50k, …); no crowded minor labels."""
     ax.set_xscale("log")
     ax.xaxis.set_major_locator(LogLocator(base=10, subs=(1.0, 2.0, 5.0)))
     ax.xaxis.set_major_formatter(FuncFormatter(lambda x, _: human(x).replace(".0", "")))
     ax.xaxis.set_minor_formatter(NullFormatter())
-    ax.set_xlabel(f"{label} (log scale)")
+    ax.set_xlabel(f"{label} (log scale; {DODGED})")
 
 
 def _trained(analysis: Analysis) -> pd.DataFrame:
@@ -127,13 +77,15 @@ def _told_apart(row) -> bool:
     return bool(p < 0.05) if p is not None and math.isfinite(p) else True
 
 
-def _points(ax: plt.Axes, v: pd.DataFrame, x: str) -> None:
+def _points(ax: Axes, v: pd.DataFrame, x: str, n_variants: int) -> None:
+    """One marker with its 95% interval per variant, at (``x``, mean validation accuracy);
+    numbered beside the marker when the variants outnumber the distinct looks."""
     for row in v.itertuples():
         colour, marker = style(row.order)
         filled = _told_apart(row)
+        at = (getattr(row, x), row.val_acc_mean)
         ax.errorbar(
-            getattr(row, x),
-            row.val_acc_mean,
+            *at,
             yerr=_ci_error(row),
             fmt=marker,
             color=colour,
@@ -141,12 +93,21 @@ def _points(ax: plt.Axes, v: pd.DataFrame, x: str) -> None:
             markersize=6,
             capsize=3,
             elinewidth=1.1,
-            label=f"{row.variant} (n={row.n_seeds})",
+            label=variant_label(row.variant, row.order, n_variants, row.n_seeds),
             zorder=3,
         )
+        if numbered(n_variants):
+            _number(ax, at, row.order)
 
 
-def _margin_band(ax: plt.Axes, v: pd.DataFrame, analysis: Analysis) -> None:
+def _number(ax: Axes, at: tuple[float, float], i: int) -> None:
+    """The variant's number (i + 1, as in its legend label) just above right of a point."""
+    ax.annotate(
+        str(i + 1), at, xytext=(4, 3), textcoords="offset points", fontsize=6, color="#333333"
+    )
+
+
+def _margin_band(ax: Axes, v: pd.DataFrame, analysis: Analysis) -> None:
     """The baseline's accuracy as a dashed line and, under the margin rule, the band down to
     baseline − margin: a plan is recommended only if its whole lower bound of the difference
     clears that band's bottom edge (the card gives the bound)."""
@@ -169,7 +130,7 @@ def _margin_band(ax: plt.Axes, v: pd.DataFrame, analysis: Analysis) -> None:
     _hollow_key(ax)
 
 
-def _hollow_key(ax: plt.Axes) -> None:
+def _hollow_key(ax: Axes) -> None:
     """A legend entry that says what a hollow marker means."""
     ax.plot(
         [],
@@ -178,11 +139,11 @@ def _hollow_key(ax: plt.Axes) -> None:
         color="#555555",
         markerfacecolor="white",
         linestyle="none",
-        label="hollow: not told apart from the baseline (Holm p ≥ 0.05)",
+        label="hollow: not told apart from\nthe baseline (Holm p ≥ 0.05)",
     )
 
 
-def _mark(ax: plt.Axes, v: pd.DataFrame, x: str, analysis: Analysis) -> None:
+def _mark(ax: Axes, v: pd.DataFrame, x: str, analysis: Analysis) -> None:
     rec = v[v["recommended"]]
     if len(rec):
         ax.scatter(
@@ -215,47 +176,54 @@ def plot_accuracy_vs_cost(
     analysis: Analysis, cost: str, label: str, out: Path, subtitle: str
 ) -> list[Path]:
     """Validation accuracy (95% bootstrap interval) against a cost on a log axis, with the
-    baseline, the margin band and the recommended plan marked. No Pareto staircase: a line
-    through point estimates would suggest an order that the intervals often do not support
-    (the fronts are in the card's table)."""
-    v = _trained(analysis)
-    fig, (ax,) = _figure(f"Validation accuracy vs {label}", subtitle)
+    baseline, the margin band and the recommended plan marked. Variants of equal cost are drawn
+    side by side (`plot_style.dodge`). No Pareto staircase: a line through point estimates
+    would suggest an order that the intervals often do not support (the fronts are in the
+    card's table)."""
+    v = _trained(analysis).copy()
+    lo, hi = v[cost].min() / 1.6, v[cost].max() * 1.6  # room for markers at both ends
+    v["cost_drawn"] = dodge(v[cost], COST_DODGE * math.log10(hi / lo), log=True)
+    fig, (ax,) = new_figure(f"Validation accuracy vs {label}", subtitle)
     _margin_band(ax, v, analysis)
-    _points(ax, v, cost)
-    _mark(ax, v, cost, analysis)
+    _points(ax, v, "cost_drawn", len(analysis.variants))
+    _mark(ax, v, "cost_drawn", analysis)
     _log_cost_axis(ax, label)
-    lo, hi = v[cost].min(), v[cost].max()
-    ax.set_xlim(lo / 1.6, hi * 1.6)  # room for markers at both ends of a log axis
+    ax.set_xlim(min(lo, v["cost_drawn"].min() / 1.2), max(hi, v["cost_drawn"].max() * 1.2))
     _percent_axis(ax, "validation accuracy (95% bootstrap CI)")
-    _legend_below(fig, ax, len(v) + 4)
-    return _save(fig, out, f"accuracy_vs_{cost_of_column(cost).name}")
+    legend_below(fig, ax)
+    return save_figure(fig, out, f"accuracy_vs_{cost_of_column(cost).name}")
 
 
 def plot_rf_vs_accuracy(analysis: Analysis, out: Path, subtitle: str) -> list[Path]:
     v = _trained(analysis).copy()
-    # Variants with the same rf are drawn side by side (a small dodge), not on top of each other.
-    rank = v.groupby("rf").cumcount()
-    size = v.groupby("rf")["rf"].transform("size")
-    v["rf_drawn"] = v["rf"] + 0.25 * (rank - (size - 1) / 2)
-    fig, (ax,) = _figure("Validation accuracy vs receptive field", subtitle)
+    v["rf_drawn"] = dodge(v["rf"], RF_DODGE)
+    fig, (ax,) = new_figure("Validation accuracy vs receptive field", subtitle)
     _hollow_key(ax)
-    _points(ax, v, "rf_drawn")
+    _points(ax, v, "rf_drawn", len(analysis.variants))
     _mark(ax, v, "rf_drawn", analysis)
     ax.xaxis.set_major_locator(MaxNLocator(integer=True))
-    ax.set_xlabel("theoretical receptive field at the head (input pixels; equal values dodged)")
+    ax.set_xlabel(f"theoretical receptive field at the head (input pixels; {DODGED})")
     _percent_axis(ax, "validation accuracy (95% bootstrap CI)")
-    _legend_below(fig, ax, len(v) + 3)
-    return _save(fig, out, "rf_vs_accuracy")
+    legend_below(fig, ax)
+    return save_figure(fig, out, "rf_vs_accuracy")
+
+
+def role(analysis: Analysis, name: str) -> str:
+    """ "baseline", "recommended", "baseline, recommended" or "" for the variant ``name``."""
+    marked = (("baseline", analysis.baseline), ("recommended", analysis.recommended))
+    return ", ".join(r for r, n in marked if n == name)
 
 
 def plot_learning_curves(analysis: Analysis, out: Path, subtitle: str) -> list[Path]:
-    """Mean validation accuracy per epoch, one line per variant (band: min–max over seeds);
-    the right panel zooms into the second half of training, where the plans separate."""
-    fig, (full, zoom) = _figure("Learning curves", subtitle, ncols=2)
+    """Mean validation accuracy per epoch, one line per variant (band: min–max over seeds),
+    the baseline's and the recommended plan's drawn thicker and named so in the legend; the
+    right panel zooms into the second half of training, where the plans separate."""
+    fig, (full, zoom) = new_figure("Learning curves", subtitle, ncols=2)
     curves = analysis.curves
     last = int(curves["epoch"].max()) if len(curves) else 1  # epochs count from 1 (shown_epoch)
     start = max(1, last // 2)
     lows = []
+    n_variants = len(analysis.variants)
     for i, name in enumerate(analysis.variants["variant"]):
         mine = curves[curves["variant"] == name]
         if not len(mine):
@@ -264,7 +232,8 @@ def plot_learning_curves(analysis: Analysis, out: Path, subtitle: str) -> list[P
         g = mine.groupby("epoch")["val_acc"]
         epochs = g.mean().index.to_numpy()
         mean, low, high = g.mean().to_numpy(), g.min().to_numpy(), g.max().to_numpy()
-        n = int(mine["seed"].nunique())
+        label = variant_label(name, i, n_variants, int(mine["seed"].nunique()))
+        marked = role(analysis, name)
         for ax in (full, zoom):
             ax.plot(
                 epochs,
@@ -272,10 +241,13 @@ def plot_learning_curves(analysis: Analysis, out: Path, subtitle: str) -> list[P
                 marker=marker,
                 markersize=3,
                 color=colour,
-                linewidth=1.2,
-                label=f"{name} (n={n})" if ax is full else None,
+                linewidth=MARKED_LINE if marked else 1.2,
+                zorder=3 if marked else 2,
+                label=(f"{label} ({marked})" if marked else label) if ax is full else None,
             )
             ax.fill_between(epochs, low, high, color=colour, alpha=0.12, linewidth=0)
+        if numbered(n_variants):
+            _number(full, (epochs[-1], mean[-1]), i)
         lows.append(low[epochs >= start].min() if (epochs >= start).any() else 1.0)
     zoom.set_xlim(start - 0.3, last + 0.3)
     if lows:
@@ -287,8 +259,8 @@ def plot_learning_curves(analysis: Analysis, out: Path, subtitle: str) -> list[P
     full.set_ylabel("validation accuracy (mean; band: min–max over seeds)")
     full.set_title("all epochs")
     zoom.set_title(f"epochs {start}–{last}")
-    _legend_below(fig, full, len(analysis.variants))
-    return _save(fig, out, "learning_curves")
+    legend_below(fig, full)
+    return save_figure(fig, out, "learning_curves")
 
 
 def heatmap_limits(means: np.ndarray, halves: np.ndarray) -> tuple[float, float]:
@@ -308,9 +280,11 @@ def heatmap_limits(means: np.ndarray, halves: np.ndarray) -> tuple[float, float]
 
 
 def plot_grid_heatmap(analysis: Analysis, out: Path, subtitle: str) -> list[Path]:
+    """Mean validation accuracy per grid cell with its interval's half-width, the baseline's
+    and the recommended plan's cells outlined."""
     table = analysis.grid
     assert table is not None
-    fig, (ax,) = _figure("Validation accuracy over the grid", subtitle)
+    fig, (ax,) = new_figure("Validation accuracy over the grid", subtitle)
     ax.grid(False)
     data = table.to_numpy(dtype=float)
     halves = (
@@ -338,128 +312,36 @@ def plot_grid_heatmap(analysis: Analysis, out: Path, subtitle: str) -> list[Path
     bar = fig.colorbar(image, ax=ax, label=label)
     bar.formatter = PercentFormatter(xmax=1.0, decimals=1)
     bar.update_ticks()
-    return _save(fig, out, "grid_heatmap")
+    _outline_cells(ax, analysis.grid_marks)
+    legend_below(fig, ax)
+    return save_figure(fig, out, "grid_heatmap")
 
 
-# The squares drawn on an effective-receptive-field map: (what, colour, line style).
-ERF_SQUARES = (
-    ("theoretical receptive field", "#E69F00", "--"),
-    ("square holding 95% of the gradient mass", "#FFFFFF", "-"),
-    ("square holding 50% of the gradient mass", "#D55E00", "-"),
-)
-# A dark outline under every square, so that the white one shows on a light map and in the legend.
-OUTLINE = [patheffects.withStroke(linewidth=2.8, foreground="#000000")]
+# How a marked cell is outlined: (inset from the cell's edge, line style). The recommended
+# plan's outline sits inside the baseline's, so both show when they are the same cell.
+CELL_OUTLINES = {"baseline": (0.04, "--"), "recommended": (0.12, "-")}
+# A white line under the black one, so the outline shows on dark and light cells alike.
+HALO = [patheffects.withStroke(linewidth=3.6, foreground="#FFFFFF")]
 
 
-def erf_sides(erf: ErfMap) -> tuple[int, int, int]:
-    """The sides of the squares of ``ERF_SQUARES``, in the same order."""
-    return erf.geometry.rf[0], erf.extent95, erf.extent50
-
-
-def erf_view(maps: list[ErfMap]) -> tuple[float, float, float, float]:
-    """(left, right, top, bottom) shared by every panel: the input and the mass squares (which
-    may reach past the input when the centre is off the middle), plus half a pixel. The
-    theoretical square is not widened into view: it can be many times the input."""
-    left = top = -0.5
-    right = bottom = -0.5
-    for erf in maps:
-        h, w = erf.grad.shape
-        cy, cx = erf.geometry.centre
-        half = max(erf.extent95, erf.extent50) / 2
-        left, right = min(left, cx - half), max(right, w - 0.5, cx + half)
-        top, bottom = min(top, cy - half), max(bottom, h - 0.5, cy + half)
-    return left - 0.5, right + 0.5, top - 0.5, bottom + 0.5
-
-
-def square_shown(erf: ErfMap, side: float, view: tuple[float, float, float, float]) -> bool:
-    """Whether any edge of the centred square of ``side`` lies inside the view (the square
-    always overlaps the view, since its centre is on the input)."""
-    cy, cx = erf.geometry.centre
-    left, right, top, bottom = view
-    half = side / 2
-    return any(left < x < right for x in (cx - half, cx + half)) or any(
-        top < y < bottom for y in (cy - half, cy + half)
-    )
-
-
-def erf_legend(maps: list[ErfMap]) -> list[tuple[str, str, str]]:
-    """(label, colour, line style) per square, saying which squares fall outside the view."""
-    view = erf_view(maps)
-    out = []
-    for i, (what, colour, dash) in enumerate(ERF_SQUARES):
-        hidden = [m.variant for m in maps if not square_shown(m, erf_sides(m)[i], view)]
-        if hidden and len(hidden) == len(maps):
-            what += " (larger than the view: not drawn)"
-        elif hidden:
-            what += f" (larger than the view for {', '.join(hidden)})"
-        out.append((what, colour, dash))
-    return out
-
-
-def plot_effective_rf(maps: list[ErfMap], roles: list[str], out: Path, subtitle: str) -> list[Path]:
-    """One panel per map: the mean input-gradient magnitude of the centre output (Luo et al.
-    2016), with the theoretical receptive field drawn as a dashed square and the squares
-    holding 95% and 50% of the gradient mass as solid ones. The legend is built from the
-    same table as the squares, so it says what is drawn."""
-    fig, axes = _figure("Effective vs theoretical receptive field", subtitle, ncols=len(maps))
-    view = erf_view(maps)
-    image = None
-    outside = False
-    for ax, erf, role in zip(axes, maps, roles, strict=True):
-        ax.grid(False)
-        ax.set_facecolor("#D9D9D9")  # outside the input
-        h, w = erf.grad.shape
-        image = ax.imshow(erf.grad, cmap="cividis", vmin=0, vmax=1, interpolation="nearest")
-        cy, cx = erf.geometry.centre
-        for side, (_, colour, dash) in zip(erf_sides(erf), ERF_SQUARES, strict=True):
-            half = side / 2
+def _outline_cells(ax: Axes, marks: dict[str, list[tuple[int, int]]]) -> None:
+    """Outline each marked cell (``Analysis.grid_marks``), labelled with its role."""
+    for role, cells in marks.items():
+        inset, dash = CELL_OUTLINES[role]
+        for k, (r, c) in enumerate(cells):
             ax.add_patch(
                 Rectangle(
-                    (cx - half, cy - half),
-                    side,
-                    side,
+                    (c - 0.5 + inset, r - 0.5 + inset),
+                    1 - 2 * inset,
+                    1 - 2 * inset,
                     fill=False,
-                    edgecolor=colour,
+                    edgecolor="#000000",
                     linestyle=dash,
-                    linewidth=1.4,
-                    path_effects=OUTLINE,
-                    clip_on=True,
+                    linewidth=1.8,
+                    path_effects=HALO,
+                    label=f"{role} (outlined)" if k == 0 else None,
                 )
             )
-        ax.plot([cx], [cy], marker="+", color="#D55E00", markersize=8, linestyle="none")
-        ax.set_xlim(view[0], view[1])
-        ax.set_ylim(view[3], view[2])
-        outside = outside or view[0] < -0.5 or view[1] > w - 0.5 or view[3] > h - 0.5
-        beyond = " (beyond the input)" if erf.geometry.rf[0] > max(h, w) else ""
-        ax.set_title(
-            f"{role}: {erf.variant}\ntheoretical rf {erf.geometry.rf[0]} px{beyond}\n"
-            f"50% of the mass in {erf.extent50} px · 95% in {erf.extent95} px",
-            fontsize=7.5,
-        )
-        ax.set_xlabel("input column (px)")
-        ax.set_ylabel("input row (px)")
-    if image is not None:
-        fig.colorbar(
-            image, ax=axes, shrink=0.8, label="mean |input gradient| of the centre output (max = 1)"
-        )
-    handles = [
-        Line2D([], [], color=colour, linestyle=dash, linewidth=1.4, path_effects=OUTLINE, label=t)
-        for t, colour, dash in erf_legend(maps)
-    ]
-    handles.append(
-        Line2D(
-            [],
-            [],
-            color="#D55E00",
-            marker="+",
-            linestyle="none",
-            label="centre of the output's receptive field",
-        )
-    )
-    if outside:
-        handles.append(Patch(facecolor="#D9D9D9", label="outside the input"))
-    fig.legend(handles=handles, loc="outside lower center", ncol=2, frameon=False, fontsize=7)
-    return _save(fig, out, "effective_rf")
 
 
 def plot_confusion(analysis: Analysis, out: Path, subtitle: str) -> list[Path]:
@@ -467,7 +349,7 @@ def plot_confusion(analysis: Analysis, out: Path, subtitle: str) -> list[Path]:
     recommended plan and the baseline, each cell annotated with its count."""
     d, ev = analysis.decision, analysis.evidence
     names = list(dict.fromkeys([d.recommended, d.baseline]))
-    fig, axes = _figure("Confusion on the validation images", subtitle, ncols=len(names))
+    fig, axes = new_figure("Confusion on the validation images", subtitle, ncols=len(names))
     image = None
     for ax, name in zip(axes, names, strict=True):
         ax.grid(False)
@@ -495,9 +377,4 @@ def plot_confusion(analysis: Analysis, out: Path, subtitle: str) -> list[Path]:
     fig.colorbar(
         image, ax=axes, shrink=0.8, label="share of the true class (counts: seeds × images)"
     )
-    return _save(fig, out, "confusion")
-
-
-def rendering():
-    """The rc settings every plot is drawn and saved under (fonts, deterministic SVG ids)."""
-    return plt.rc_context(STYLE)
+    return save_figure(fig, out, "confusion")

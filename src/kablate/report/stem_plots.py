@@ -11,7 +11,7 @@ from matplotlib.lines import Line2D
 from matplotlib.patches import Rectangle
 
 from kablate.analysis.stem import BAND_EDGES, BANDS, DEAD_RATIO, DUPLICATE_R, StemAtlas
-from kablate.report.plots import DPI, WIDTH_IN, _figure, _save, plt, style
+from kablate.report.plot_style import DPI, WIDTH_IN, new_figure, plt, save_figure, style
 
 MAX_COLUMNS = 16  # tiles per row
 FRAMES = {  # mask → (colour, line style, legend text)
@@ -84,14 +84,14 @@ def plot_stem_atlas(atlas: StemAtlas, out: Path, subtitle: str) -> list[Path]:
         ax.set_axis_off()
     handles = [Line2D([], [], color=c, linestyle=d, label=t) for c, d, t in FRAMES.values()]
     fig.legend(handles=handles, loc="outside lower center", ncols=2, frameon=False)
-    return _save(fig, out, "stem_atlas")
+    return save_figure(fig, out, "stem_atlas")
 
 
 def plot_stem_spectrum(atlas: StemAtlas, out: Path, subtitle: str) -> list[Path]:
     """Left: each variant's radially averaged power spectrum (share of energy per ring, mean
     over live filters and seeds). Right: energy share per band, mean and 95% interval over
     seeds. Band edges dashed on the left, named on the right."""
-    fig, (left, right) = _figure("Frequency coverage of the stem's filters", subtitle, ncols=2)
+    fig, (left, right) = new_figure("Frequency coverage of the stem's filters", subtitle, ncols=2)
     s = atlas.summary
     width = 0.8 / len(s)
     for i, row in enumerate(s.itertuples()):
@@ -117,4 +117,4 @@ def plot_stem_spectrum(atlas: StemAtlas, out: Path, subtitle: str) -> list[Path]
     right.set_ylabel("share of filter energy (95% interval over seeds)")
     right.set_ylim(0, 1)
     right.legend(fontsize=6.5, loc="upper right")
-    return _save(fig, out, "stem_spectrum")
+    return save_figure(fig, out, "stem_spectrum")
