@@ -8,6 +8,7 @@ import pandas as pd
 
 from kablate.analysis.pareto import pareto_front
 from kablate.analysis.stats import t_interval
+from kablate.costs.export import LATENCY_FIELDS, ORT_FIELDS
 from kablate.costs.memory import weight_bytes
 from kablate.plans.expand import plan_text
 from kablate.spec.costs import COSTS
@@ -92,7 +93,7 @@ def variant_frame(
                 "act_mem_bytes": v.get("act_mem_bytes"),
                 "weight_bytes_fp32": weight_bytes(v["params"], "fp32"),
                 "weight_bytes_int8": weight_bytes(v["params"], "int8"),
-                "latency_ms": v.get("latency_ms"),
+                **{f: v.get(f) for f in LATENCY_FIELDS + ORT_FIELDS if f != "conv_backends"},
                 "train_seconds_mean": float(done["train_seconds"].mean())
                 if len(done)
                 else math.nan,
