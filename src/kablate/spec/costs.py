@@ -5,7 +5,8 @@ card's labels and the accuracy-against-cost plots (``accuracy_vs_<name>``) all r
 A cost's ``column`` is its field in plan.json and in the variants table. Adding a cost is one
 entry here plus the column it names. A cost with ``always`` False may be missing from a plan
 (latency is measured only on request, ONNX Runtime's only with the `onnx` extra; plans
-written before activation memory was recorded lack it): it gets a front, a plot and a selection only where every variant has it.
+written before activation memory was recorded lack it): it gets a front, a plot and a
+selection only where every variant has it.
 """
 
 from __future__ import annotations
