@@ -40,7 +40,7 @@ def erf_maps(folder: ResultsFolder, analysis: Analysis, data: dict) -> tuple[lis
     note = ""
     ids = dict(zip(analysis.variants["variant"], analysis.variants["variant_id"], strict=True))
     states = {
-        name: _scored_states(
+        name: scored_states(
             folder.path, ids[name], sorted(done.loc[done["variant"] == name, "seed"].astype(int))
         )
         for name in names
@@ -71,7 +71,7 @@ def erf_maps(folder: ResultsFolder, analysis: Analysis, data: dict) -> tuple[lis
     return maps, note
 
 
-def _scored_states(results: Path, variant_id: str, seeds: list[int]) -> dict[int, dict]:
+def scored_states(results: Path, variant_id: str, seeds: list[int]) -> dict[int, dict]:
     """seed → the scored weights of each given (finished) trial whose checkpoint exists."""
     out = {}
     for seed in seeds:
