@@ -91,6 +91,7 @@ def variant_frame(
                 "flops": v["flops"],
                 "rf": v["rf"],
                 "act_mem_bytes": v.get("act_mem_bytes"),
+                "infer_mem_bytes": v.get("infer_mem_bytes"),
                 "weight_bytes_fp32": weight_bytes(v["params"], "fp32"),
                 "weight_bytes_int8": weight_bytes(v["params"], "int8"),
                 **{f: v.get(f) for f in LATENCY_FIELDS + ORT_FIELDS if f != "conv_backends"},

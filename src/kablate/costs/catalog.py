@@ -6,11 +6,13 @@ from dataclasses import dataclass, field
 
 from kablate.costs.graph import GraphCost
 from kablate.costs.latency import Latency, measure_layout_latencies
+from kablate.costs.memory import inference_peak_bytes
 from kablate.costs.static import StaticCost, static_cost
 from kablate.costs.user_model import UserModel, check_rf_known
 from kablate.data.prepare import check_splits
 from kablate.data.sources import describe_source
 from kablate.errors import PlanError
+from kablate.nets.build import build_network
 from kablate.nets.layout import Layout, layout_network
 from kablate.nets.model_variant import ModelVariant
 from kablate.nets.padding import is_symmetric
@@ -28,6 +30,7 @@ class CostedVariant:
     cost: StaticCost | GraphCost
     blueprint: Layout | ModelVariant
     latency: Latency | None = None
+    infer_mem_bytes: int | None = None  # peak live activations at batch 1, when measured
 
     @property
     def name(self) -> str:
@@ -117,12 +120,15 @@ def build_catalog(
 
 
 def measure_latencies(catalog: Catalog, threads: int | None = None) -> None:
-    """Measure every kept variant's CPU latency (`kablate plan --latency`), in place, all in
-    the same interleaved rounds (see `kablate.costs.latency`)."""
+    """Measure every kept variant's CPU latency (`kablate plan --latency`, `kablate run`), in
+    place, all in the same interleaved rounds (see `kablate.costs.latency`), and its peak of
+    live activations at inference, batch 1 (`kablate.costs.memory.inference_peak_bytes`)."""
     blueprints = [item.blueprint for item in catalog.variants]
     found = measure_layout_latencies(blueprints, catalog.sweep.recipe.batch_size, threads=threads)
     for item, latency in zip(catalog.variants, found, strict=True):
         item.latency = latency
+        network = build_network(item.blueprint)
+        item.infer_mem_bytes = inference_peak_bytes(network, item.blueprint.in_shape)
 
 
 def padding_warnings(items: list[CostedVariant], n_named: int = 4) -> list[str]:

@@ -132,6 +132,7 @@ def variant_json(
         "plan": item.variant.plan,
         "aliases": list(item.variant.aliases),
         **cost_json(cost),
+        "infer_mem_bytes": item.infer_mem_bytes,  # measured with the latency
         **latency_json(item.latency, baseline),
     }
     if isinstance(item.blueprint, ModelVariant):  # a [model] sweep: whose code, what changed
@@ -175,6 +176,7 @@ CSV_COLUMNS = (
     *LATENCY_FIELDS,
     "plan",
     *ORT_FIELDS,  # after `plan`: columns are only ever appended
+    "infer_mem_bytes",
 )
 
 

@@ -56,6 +56,7 @@ VARIANT_COLUMNS = (
     "flops",
     "rf",
     "act_mem_bytes",
+    "infer_mem_bytes",
     "weight_bytes_fp32",
     "weight_bytes_int8",
     "latency_ms",

@@ -101,21 +101,33 @@ def memory_table(a: Analysis, batch_size: int | None) -> list[str]:
     v = v.sort_values(["act_mem_bytes", "variant"])
     base = float(v.set_index("variant").loc[a.baseline, "act_mem_bytes"])
     at = f"batch {batch_size}" if batch_size else "the recipe's batch size"
+    inference = pd.to_numeric(v["infer_mem_bytes"], errors="coerce").notna().all()
     lines = [
         "#### Memory",
         "",
         f"*Activations* are the bytes one training step at {at} keeps from the forward pass "
         "for backward (what PyTorch's autograd saves, counted before training; × baseline in "
-        "brackets). *Weights* are the parameters × 4 bytes (fp32, as trained) and × 1 byte "
+        "brackets). "
+        + (
+            "*At inference* is the peak of activation bytes alive at once in one eval-mode "
+            "forward pass at batch 1, the input included (measured with the latency, on the "
+            "operators torch runs). "
+            if inference
+            else ""
+        )
+        + "*Weights* are the parameters × 4 bytes (fp32, as trained) and × 1 byte "
         "(int8 after quantization; its scales and zero points not counted).",
         "",
-        "| variant | activations per training step | weights fp32 | weights int8 |",
-        "|---|---:|---:|---:|",
+        "| variant | activations per training step | "
+        + ("at inference, batch 1 | " if inference else "")
+        + "weights fp32 | weights int8 |",
+        "|---|---:|---:|---:|" + ("---:|" if inference else ""),
     ]
     for row in v.itertuples():
+        peak = f"{human(row.infer_mem_bytes)}B | " if inference else ""
         lines.append(
             f"| {row.variant} | {human(row.act_mem_bytes)}B ({row.act_mem_bytes / base:.2f}×) | "
-            f"{human(row.weight_bytes_fp32)}B | {human(row.weight_bytes_int8)}B |"
+            f"{peak}{human(row.weight_bytes_fp32)}B | {human(row.weight_bytes_int8)}B |"
         )
     return lines + [""]
 
