@@ -187,7 +187,7 @@ def main() -> None:
     "--threads",
     type=click.IntRange(min=1),
     default=None,
-    help="Threads for --latency (default: torch's).",
+    help="Threads for --latency (default: the sweep's [target] threads, else torch's).",
 )
 def plan(
     sweeps: tuple[Path, ...],

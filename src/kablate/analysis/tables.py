@@ -13,6 +13,8 @@ from kablate.costs.memory import weight_bytes
 from kablate.plans.expand import plan_text
 from kablate.spec.costs import COSTS
 
+# Latency fields that hold a mapping or a list, not one figure per variant
+LISTS = ("conv_backends", "latency_input")
 # A trial in one of these states has a result (diverged: trained, but its loss blew up).
 FINISHED = ("done", "diverged")
 
@@ -94,7 +96,7 @@ def variant_frame(
                 "infer_mem_bytes": v.get("infer_mem_bytes"),
                 "weight_bytes_fp32": weight_bytes(v["params"], "fp32"),
                 "weight_bytes_int8": weight_bytes(v["params"], "int8"),
-                **{f: v.get(f) for f in LATENCY_FIELDS + ORT_FIELDS if f != "conv_backends"},
+                **{f: v.get(f) for f in LATENCY_FIELDS + ORT_FIELDS if f not in LISTS},
                 "train_seconds_mean": float(done["train_seconds"].mean())
                 if len(done)
                 else math.nan,

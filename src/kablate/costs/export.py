@@ -63,6 +63,7 @@ LATENCY_FIELDS = (
     "latency_torch",
     "conv_backends",
     "crosses_backends",
+    "latency_input",  # C, H, W of the timed input: the data's, or [target] input
 )
 # ONNX Runtime's figures, taken in the same rounds as torch's (the `onnx` extra); where it was
 # not measured, `ort_absent` says why.
@@ -106,6 +107,7 @@ def latency_json(latency: Latency | None, baseline: Latency | None = None) -> di
         "latency_torch": latency.torch_version,
         "conv_backends": dict(latency.backends),
         "crosses_backends": crosses_backends(latency, baseline) if baseline else None,
+        "latency_input": list(latency.in_shape) or None,
     }
 
 
@@ -244,10 +246,11 @@ def latency_table(catalog: Catalog) -> list[str]:
         return []
     lat, base = timed[0].latency, catalog.baseline.latency
     batch = lat.batch_size
+    shape = "x".join(map(str, lat.in_shape)) or "?"
     lines = _wrap(
         f"latency in ms, median [interquartile range] of {lat.batch1.n} interleaved rounds at "
-        f"batch 1 and {lat.batch.n} at batch {batch}; eval mode, channels_last, {lat.threads} "
-        f"thread(s), torch {lat.torch_version}"
+        f"batch 1 and {lat.batch.n} at batch {batch}; input {shape}; eval mode, channels_last, "
+        f"{lat.threads} thread(s), torch {lat.torch_version}"
     )
     lines += [
         "",

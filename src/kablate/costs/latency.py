@@ -104,6 +104,7 @@ class Latency:
     backends: tuple[tuple[str, str], ...] = ()  # (conv layer name, backend) at batch 1
     ort: RuntimeTiming | None = None  # ONNX Runtime's, in the same rounds
     ort_absent: str = ""  # why ``ort`` is None
+    in_shape: tuple[int, ...] = ()  # C, H, W of the timed input
 
     @property
     def batch1_ms(self) -> float:
@@ -277,6 +278,7 @@ def measure_layout_latencies(
                     tuple(zip(names, backends, strict=True)),
                     ort,
                     absent,
+                    tuple(layout.in_shape),
                 )
             )
         return out
