@@ -45,6 +45,7 @@ EPILOG_EXPORT = """\b
 Example:
   kablate export results/quickstart
   kablate export results/resnet-stages --variant stage1-5
+  kablate export results/quickstart --onnx --seed 0   # + handoff/<variant>.onnx, seed 0's weights
 In Python, build the exported network (freshly initialised) or rewrite your own model:
   from kablate.nets.handoff import build_handoff, apply_handoff
   net = build_handoff("results/quickstart/handoff/all-3.json")
@@ -186,7 +187,7 @@ def main() -> None:
     "--threads",
     type=click.IntRange(min=1),
     default=None,
-    help="Threads for --latency (default: torch's).",
+    help="Threads for --latency (default: the sweep's [target] threads, else torch's).",
 )
 def plan(
     sweeps: tuple[Path, ...],
@@ -493,12 +494,38 @@ def report(
     metavar="URL",
     help="Study storage URL, if not the one recorded in the folder.",
 )
-def export(results: Path, variant: str | None, out: Path | None, storage: str | None) -> None:
+@click.option(
+    "--onnx",
+    is_flag=True,
+    help="Also write the variant as an ONNX file beside the handoff (needs the onnx extra).",
+)
+@click.option(
+    "--seed",
+    type=click.IntRange(min=0),
+    default=None,
+    help="With --onnx: carry the weights this seed's trial was scored with (its checkpoint "
+    "must be in RESULTS/trials/); default: fresh initial weights.",
+)
+def export(
+    results: Path,
+    variant: str | None,
+    out: Path | None,
+    storage: str | None,
+    onnx: bool,
+    seed: int | None,
+) -> None:
     """Write a variant as a file your code can build: kablate's own network, or the list of
-    rewrites to apply to your model."""
-    from kablate.report.handoff import write_handoff
+    rewrites to apply to your model; with --onnx, also as an ONNX file."""
+    from kablate.report.handoff import write_handoff, write_onnx_handoff
     from kablate.trials.results import open_results
 
     started()
-    path = write_handoff(open_results(results, storage), variant, out)
+    if seed is not None and not onnx:
+        raise UsageError("--seed chooses the weights of the ONNX file: add --onnx")
+    folder = open_results(results, storage)
+    path = write_handoff(folder, variant, out)
     click.echo(f"handoff: {path}")
+    if onnx:
+        onnx_out = out.with_suffix(".onnx") if out else None
+        onnx_path, weights = write_onnx_handoff(folder, variant, seed, onnx_out)
+        click.echo(f"onnx: {onnx_path} ({weights})")

@@ -6,12 +6,13 @@ import csv
 import io
 import json
 import re
+from dataclasses import replace
 
 import pytest
 
 from kablate.costs.catalog import build_catalog
 from kablate.costs.export import NAME_WIDTH, catalog_csv, catalog_json, catalog_table
-from kablate.costs.latency import NOISY_IQR_RATIO, Latency, Timing
+from kablate.costs.latency import NOISY_IQR_RATIO, Latency, RuntimeTiming, Timing
 from kablate.spec import load_sweep
 from tests.conftest import write_sweep
 
@@ -240,3 +241,33 @@ def test_json_and_csv_keep_the_spread_the_conditions_and_the_backends(tmp_path):
     assert (other["latency_rounds"], other["latency_torch"]) == (30, "2.x")
     row = list(csv.DictReader(io.StringIO(catalog_csv(catalog))))[1]
     assert row["conv_backends"] == "stem=Mkldnn;stage1.0=Slow2d" and row["latency_q3_ms"] == "2.4"
+
+
+def test_onnx_runtime_figures_sit_beside_torchs_or_the_table_says_why_not(tmp_path):
+    path = write_sweep(tmp_path, SWEEP, name="export")
+    catalog = with_latencies(build_catalog(load_sweep(path), in_shape=(1, 16, 16), n_classes=5))
+    # demo timings: ONNX Runtime at half torch's median, for every variant but the last,
+    # which "did not export"
+    for item in catalog.variants[:-1]:
+        half = Timing(item.latency.batch1_ms / 2, 0.46, 0.54, 30)
+        item.latency = replace(item.latency, ort=RuntimeTiming(half, half, "1.x"))
+    last = catalog.variants[-1]
+    last.latency = replace(last.latency, ort_absent="export to ONNX failed: X")
+    lines = catalog_table(catalog).splitlines()
+    assert max(len(line) for line in lines) <= 100
+    at = next(i for i, line in enumerate(lines) if line.startswith("ONNX Runtime 1.x latency"))
+    base_row = next(line for line in lines[at:] if line.startswith("all-3 "))
+    assert base_row.split() == ["all-3", "0.5", "[0.46,", "0.54]", "0.5", "[0.46,", "0.54]", "0.50"]
+    assert f"not measured on ONNX Runtime: {last.name}: export to ONNX failed: X" in lines
+    rows = json.loads(catalog_json(catalog))
+    assert rows[0]["ort_latency_ms"] == 0.5 and rows[0]["onnxruntime_version"] == "1.x"
+    assert rows[-1]["ort_latency_ms"] is None
+    assert rows[-1]["ort_absent"] == "export to ONNX failed: X"
+    table = list(csv.DictReader(io.StringIO(catalog_csv(catalog))))
+    assert table[0]["ort_latency_q3_ms"] == "0.54" and table[-1]["ort_latency_ms"] == ""
+    # without the extra: one line with the reason, no figures
+    for item in catalog.variants:
+        item.latency = replace(item.latency, ort=None, ort_absent="onnxruntime not installed")
+    lines = catalog_table(catalog).splitlines()
+    assert "ONNX Runtime latency: not measured: onnxruntime not installed" in lines
+    assert not any(line.startswith("ONNX Runtime 1.x") for line in lines)

@@ -116,3 +116,36 @@ def test_a_comparison_crosses_backends_when_either_side_uses_one_the_other_does_
     assert crosses_backends(base, lat("Mkldnn", "Slow2d", "Slow2d"))
     assert crosses_backends(lat("unknown", "Slow2d", "Slow2d"), base)  # never silently equal
     assert lat("Slow2d", "Mkldnn", "Slow2d").backend_counts() == "Mkldnn×1, Slow2d×2"
+
+
+def test_onnx_runtime_is_timed_in_the_same_rounds_where_installed():
+    pytest.importorskip("onnxruntime")
+    lat = measure_latency(tiny_layout({}), batch_size=4, rounds=6, warmup=1, threads=1)
+    assert lat.ort is not None and lat.ort_absent == ""
+    assert (lat.ort.batch1.n, lat.ort.batch.n) == (lat.batch1.n, lat.batch.n) == (6, 5)
+    assert lat.ort.batch1.q1_ms <= lat.ort.batch1.median_ms <= lat.ort.batch1.q3_ms
+    import onnxruntime
+
+    assert lat.ort.version == onnxruntime.__version__
+
+
+def test_without_the_extra_the_reason_is_recorded_instead_of_a_figure(monkeypatch):
+    from kablate.costs import latency
+
+    monkeypatch.setattr(latency, "onnx_missing", lambda: "onnxruntime not installed")
+    lat = measure_latency(tiny_layout({}), batch_size=2, rounds=5, warmup=1, threads=1)
+    assert lat.ort is None and lat.ort_absent == "onnxruntime not installed"
+    assert lat.batch1.n == 5  # torch's figures are still taken
+
+
+def test_a_network_that_does_not_export_keeps_its_torch_figures(monkeypatch):
+    pytest.importorskip("onnxruntime")
+    from kablate.costs import latency
+
+    def refuse(model, shape):
+        raise RuntimeError("unsupported operator\nmore detail")
+
+    monkeypatch.setattr(latency, "export_onnx", refuse)
+    lat = measure_latency(tiny_layout({}), batch_size=2, rounds=5, warmup=1, threads=1)
+    assert lat.ort is None
+    assert lat.ort_absent == "export to ONNX failed: RuntimeError: unsupported operator"

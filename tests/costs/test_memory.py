@@ -63,3 +63,25 @@ def test_weight_bytes_are_the_parameters_times_their_element_size_in_torch():
         int8 = sum(p.numel() * p.detach().to(torch.int8).element_size() for p in model.parameters())
         assert weight_bytes(params, "fp32") == fp32 == 4 * params, plan
         assert weight_bytes(params, "int8") == int8 == params, plan
+
+
+def test_inference_peak_matches_a_hand_worked_chain_and_a_residual_block():
+    """Input 1×8×8, stem conv to 4×8×8, stage1 conv 4→4, max-pool to 4×4, stage2 conv 4→8;
+    ReLU in place, no norm; fp32. Bytes: input 256, each 4×8×8 map 1,024, 4×4×4 256, 8×4×4
+    512. Worst moment, stage1's conv: the input (held by the caller) 256 + the stem's output
+    1,024 (its input) + its own output 1,024 = 2,304; the stem: 256 + 1,024; the pool:
+    256 + 1,024 + 256; stage2's conv: 256 + 256 + 512."""
+    from kablate.costs.memory import inference_peak_bytes
+
+    chain = tiny_layout({}, tiny_network(norm="none"))
+    assert inference_peak_bytes(build_network(chain), chain.in_shape) == 256 + 1024 + 1024
+    # Residual stages: stage1 holds its input for the skip while its conv's output and the
+    # sum (a new tensor) exist: 256 + 1,024 (skip) + 1,024 (conv) + 1,024 (x + y).
+    res = tiny_layout({}, tiny_network(norm="none", residual=True))
+    assert inference_peak_bytes(build_network(res), res.in_shape) == 256 + 3 * 1024
+    # Batch norm in eval makes a new tensor after each conv: stage1 then holds its input
+    # (1,024), the conv's output and the norm's output: 256 + 3 × 1,024 again.
+    bn = tiny_layout({}, tiny_network())
+    model = build_network(bn).train()
+    assert inference_peak_bytes(model, bn.in_shape) == 256 + 3 * 1024
+    assert model.training  # the mode is given back

@@ -146,3 +146,14 @@ def test_the_card_shows_activation_memory_and_the_weights_at_fp32_and_int8():
         "| base | 4.0kB (1.00×) | 400B | 100B |",
         "| cheap | 6.0kB (1.50×) | 200B | 50B |",
     ]
+
+
+def test_the_memory_table_adds_inference_memory_where_it_was_measured():
+    p = plan()
+    for v, mem in zip(p["variants"], (4000, 6000, 2000, 100), strict=True):
+        v["act_mem_bytes"], v["infer_mem_bytes"] = mem, mem // 10
+    a = analyze_rows(with_predictions(rows()), [], p, [], data_json(), PickSpec())
+    table = render_card(a, card_context()).split("#### Memory")[1].split("####")[0]
+    assert "| variant | activations per training step | at inference, batch 1 |" in table
+    assert "| base | 4.0kB (1.00×) | 400B | 400B | 100B |" in table.splitlines()
+    assert "peak of activation bytes alive at once" in table

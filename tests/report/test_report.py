@@ -17,6 +17,7 @@ from torch.utils.flop_counter import FlopCounterMode
 from kablate.analysis.summary import pick_settings
 from kablate.cli import main
 from kablate.errors import SweepError
+from kablate.nets.build import build_network
 from kablate.nets.handoff import build_handoff
 from kablate.report import write_report
 from kablate.spec import load_sweep
@@ -290,3 +291,34 @@ def test_the_report_describes_what_each_stem_learned(results):
             state = scored_state(torch.load(path, weights_only=True))
             first = next(v for v in state.values() if v.ndim == 4).numpy()
             assert sum(np.array_equal(saved[k], first) for k in saved.files) == 1, path
+
+
+def test_export_onnx_carries_fresh_weights_or_a_chosen_seeds_scored_weights(results, tmp_path):
+    ort = pytest.importorskip("onnxruntime")
+    from kablate.report.handoff import find_variant
+    from kablate.report.trained import scored_states
+
+    runner = CliRunner()
+    args = ["export", str(results), "--variant", "all-3", "--onnx"]
+    fresh = runner.invoke(main, [*args, "--out", str(tmp_path / "fresh.json")])
+    trained = runner.invoke(main, [*args, "--seed", "1", "--out", str(tmp_path / "s1.json")])
+    assert fresh.exit_code == 0 and trained.exit_code == 0, fresh.output + trained.output
+    assert "fresh initial weights" in fresh.output and "-s1 was scored with" in trained.output
+    _, catalog, item = find_variant(open_results(results), "all-3")
+    torch.manual_seed(3)
+    x = torch.randn(2, *catalog.in_shape)
+    net = build_network(item.blueprint).eval()
+    net.load_state_dict(scored_states(results, item.variant.id, [1])[1])
+    with torch.no_grad():
+        want = net(x).numpy()
+
+    def run(name):  # the reference: ONNX Runtime's own session on the written file
+        session = ort.InferenceSession(str(tmp_path / name), providers=["CPUExecutionProvider"])
+        return session.run(None, {session.get_inputs()[0].name: x.numpy()})[0]
+
+    assert np.abs(run("s1.onnx") - want).max() <= 1e-4  # the trial's scored weights
+    assert np.abs(run("fresh.onnx") - want).max() > 1e-2  # not those
+    missing = runner.invoke(main, [*args, "--seed", "7"])
+    assert missing.exit_code == 2 and "no readable checkpoint of all-3 seed 7" in missing.output
+    bare = runner.invoke(main, ["export", str(results), "--seed", "1"])
+    assert bare.exit_code == 2 and "add --onnx" in bare.output

@@ -8,10 +8,13 @@ import pandas as pd
 
 from kablate.analysis.pareto import pareto_front
 from kablate.analysis.stats import t_interval
+from kablate.costs.export import LATENCY_FIELDS, ORT_FIELDS
 from kablate.costs.memory import weight_bytes
 from kablate.plans.expand import plan_text
 from kablate.spec.costs import COSTS
 
+# Latency fields that hold a mapping or a list, not one figure per variant
+LISTS = ("conv_backends", "latency_input")
 # A trial in one of these states has a result (diverged: trained, but its loss blew up).
 FINISHED = ("done", "diverged")
 
@@ -90,9 +93,10 @@ def variant_frame(
                 "flops": v["flops"],
                 "rf": v["rf"],
                 "act_mem_bytes": v.get("act_mem_bytes"),
+                "infer_mem_bytes": v.get("infer_mem_bytes"),
                 "weight_bytes_fp32": weight_bytes(v["params"], "fp32"),
                 "weight_bytes_int8": weight_bytes(v["params"], "int8"),
-                "latency_ms": v.get("latency_ms"),
+                **{f: v.get(f) for f in LATENCY_FIELDS + ORT_FIELDS if f not in LISTS},
                 "train_seconds_mean": float(done["train_seconds"].mean())
                 if len(done)
                 else math.nan,

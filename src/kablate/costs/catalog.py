@@ -2,17 +2,20 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 from kablate.costs.graph import GraphCost
 from kablate.costs.latency import Latency, measure_layout_latencies
+from kablate.costs.memory import inference_peak_bytes
 from kablate.costs.static import StaticCost, static_cost
 from kablate.costs.user_model import UserModel, check_rf_known
 from kablate.data.prepare import check_splits
 from kablate.data.sources import describe_source
-from kablate.errors import PlanError
+from kablate.errors import PlanError, UsageError
+from kablate.nets.build import build_network
 from kablate.nets.layout import Layout, layout_network
 from kablate.nets.model_variant import ModelVariant
+from kablate.nets.onnx_file import onnx_missing
 from kablate.nets.padding import is_symmetric
 from kablate.plans.expand import Variant, expand_plans, pick_baseline, with_alias
 from kablate.plans.filters import filter_reason
@@ -28,6 +31,7 @@ class CostedVariant:
     cost: StaticCost | GraphCost
     blueprint: Layout | ModelVariant
     latency: Latency | None = None
+    infer_mem_bytes: int | None = None  # peak live activations at batch 1, when measured
 
     @property
     def name(self) -> str:
@@ -117,12 +121,43 @@ def build_catalog(
 
 
 def measure_latencies(catalog: Catalog, threads: int | None = None) -> None:
-    """Measure every kept variant's CPU latency (`kablate plan --latency`), in place, all in
-    the same interleaved rounds (see `kablate.costs.latency`)."""
-    blueprints = [item.blueprint for item in catalog.variants]
-    found = measure_layout_latencies(blueprints, catalog.sweep.recipe.batch_size, threads=threads)
-    for item, latency in zip(catalog.variants, found, strict=True):
+    """Measure every kept variant's CPU latency (`kablate plan --latency`, `kablate run`), in
+    place, all in the same interleaved rounds (see `kablate.costs.latency`), and its peak of
+    live activations at inference, batch 1 (`kablate.costs.memory.inference_peak_bytes`), on
+    the sweep's `[target]`: its batch, its input size, its runtime, and ``threads`` (else the
+    target's, else torch's).
+
+    Raises:
+        UsageError: ``runtime = "onnxruntime"`` without the onnx extra.
+        PlanError: a variant that cannot be laid out at the target's input size.
+    """
+    target = catalog.sweep.target
+    missing = onnx_missing()
+    if target.runtime == "onnxruntime" and missing:
+        raise UsageError(
+            f'{catalog.sweep.source}: target.runtime = "onnxruntime" needs ONNX Runtime: '
+            f'{missing}, or set runtime = "torch"'
+        )
+    blueprints = [at_target_input(catalog, item) for item in catalog.variants]
+    batch = target.batch or catalog.sweep.recipe.batch_size
+    found = measure_layout_latencies(blueprints, batch, threads=threads or target.threads or None)
+    for item, blueprint, latency in zip(catalog.variants, blueprints, found, strict=True):
         item.latency = latency
+        network = build_network(blueprint)
+        item.infer_mem_bytes = inference_peak_bytes(network, blueprint.in_shape)
+
+
+def at_target_input(catalog: Catalog, item: CostedVariant) -> Layout | ModelVariant:
+    """The variant's blueprint at the `[target]` input size (the data's when not stated)."""
+    if not catalog.sweep.target.input:
+        return item.blueprint
+    shape = (catalog.in_shape[0], *catalog.sweep.target.input)
+    if isinstance(item.blueprint, ModelVariant):
+        return replace(item.blueprint, in_shape=shape)
+    try:
+        return layout_network(catalog.sweep.network, item.variant, shape, catalog.n_classes)
+    except PlanError as exc:
+        raise PlanError(f"{catalog.sweep.source}: at target.input {shape}: {exc}") from None
 
 
 def padding_warnings(items: list[CostedVariant], n_named: int = 4) -> list[str]:

@@ -9,7 +9,7 @@ import textwrap
 
 from kablate.costs.catalog import Catalog, CostedVariant
 from kablate.costs.graph import GraphCost
-from kablate.costs.latency import NOISY_IQR_RATIO, Latency, crosses_backends
+from kablate.costs.latency import NOISY_IQR_RATIO, Latency, Timing, crosses_backends
 from kablate.costs.static import LayerCost, StaticCost
 from kablate.nets.model_variant import ModelVariant
 from kablate.plans.expand import plan_text
@@ -63,29 +63,64 @@ LATENCY_FIELDS = (
     "latency_torch",
     "conv_backends",
     "crosses_backends",
+    "latency_input",  # C, H, W of the timed input: the data's, or [target] input
 )
+# ONNX Runtime's figures, taken in the same rounds as torch's (the `onnx` extra); where it was
+# not measured, `ort_absent` says why.
+ORT_FIELDS = (
+    "ort_latency_ms",  # median at batch 1: the figure `[pick] cost = "ort_latency"` selects on
+    "ort_latency_q1_ms",
+    "ort_latency_q3_ms",
+    "ort_latency_batch_ms",
+    "ort_latency_batch_q1_ms",
+    "ort_latency_batch_q3_ms",
+    "ort_latency_noisy",
+    "onnxruntime_version",
+    "ort_absent",
+)
+
+
+def timing_json(prefix: str, one: Timing, many: Timing) -> dict:
+    """The medians and quartiles at batch 1 and at the batch size, as ``<prefix>latency_*``."""
+    return {
+        f"{prefix}latency_ms": one.median_ms,
+        f"{prefix}latency_q1_ms": one.q1_ms,
+        f"{prefix}latency_q3_ms": one.q3_ms,
+        f"{prefix}latency_batch_ms": many.median_ms,
+        f"{prefix}latency_batch_q1_ms": many.q1_ms,
+        f"{prefix}latency_batch_q3_ms": many.q3_ms,
+    }
 
 
 def latency_json(latency: Latency | None, baseline: Latency | None = None) -> dict:
     """The latency fields of a variant (all None when not measured); ``crosses_backends``
     compares its conv backends with ``baseline``'s."""
     if latency is None:
-        return dict.fromkeys(LATENCY_FIELDS)
-    one, many = latency.batch1, latency.batch
+        return dict.fromkeys(LATENCY_FIELDS + ORT_FIELDS)
     return {
-        "latency_ms": one.median_ms,
-        "latency_q1_ms": one.q1_ms,
-        "latency_q3_ms": one.q3_ms,
-        "latency_batch_ms": many.median_ms,
-        "latency_batch_q1_ms": many.q1_ms,
-        "latency_batch_q3_ms": many.q3_ms,
+        **ort_json(latency),
+        **timing_json("", latency.batch1, latency.batch),
         "latency_noisy": latency.noisy,
-        "latency_rounds": one.n,
+        "latency_rounds": latency.batch1.n,
         "latency_batch_size": latency.batch_size,
         "latency_threads": latency.threads,
         "latency_torch": latency.torch_version,
         "conv_backends": dict(latency.backends),
         "crosses_backends": crosses_backends(latency, baseline) if baseline else None,
+        "latency_input": list(latency.in_shape) or None,
+    }
+
+
+def ort_json(latency: Latency) -> dict:
+    """ONNX Runtime's fields of a measured variant (None, and the reason, where absent)."""
+    ort = latency.ort
+    if ort is None:
+        return dict(dict.fromkeys(ORT_FIELDS), ort_absent=latency.ort_absent)
+    return {
+        **timing_json("ort_", ort.batch1, ort.batch),
+        "ort_latency_noisy": ort.noisy,
+        "onnxruntime_version": ort.version,
+        "ort_absent": None,
     }
 
 
@@ -99,6 +134,7 @@ def variant_json(
         "plan": item.variant.plan,
         "aliases": list(item.variant.aliases),
         **cost_json(cost),
+        "infer_mem_bytes": item.infer_mem_bytes,  # measured with the latency
         **latency_json(item.latency, baseline),
     }
     if isinstance(item.blueprint, ModelVariant):  # a [model] sweep: whose code, what changed
@@ -141,6 +177,8 @@ CSV_COLUMNS = (
     "act_mem_bytes",
     *LATENCY_FIELDS,
     "plan",
+    *ORT_FIELDS,  # after `plan`: columns are only ever appended
+    "infer_mem_bytes",
 )
 
 
@@ -208,10 +246,11 @@ def latency_table(catalog: Catalog) -> list[str]:
         return []
     lat, base = timed[0].latency, catalog.baseline.latency
     batch = lat.batch_size
+    shape = "x".join(map(str, lat.in_shape)) or "?"
     lines = _wrap(
         f"latency in ms, median [interquartile range] of {lat.batch1.n} interleaved rounds at "
-        f"batch 1 and {lat.batch.n} at batch {batch}; eval mode, channels_last, {lat.threads} "
-        f"thread(s), torch {lat.torch_version}"
+        f"batch 1 and {lat.batch.n} at batch {batch}; input {shape}; eval mode, channels_last, "
+        f"{lat.threads} thread(s), torch {lat.torch_version}"
     )
     lines += [
         "",
@@ -252,6 +291,38 @@ def latency_table(catalog: Catalog) -> list[str]:
             f"backends than the baseline {catalog.baseline.name}; their latency difference is "
             "partly a difference of implementations (--format json lists each layer's backend)"
         )
+    return lines + ort_table(timed, batch)
+
+
+def ort_table(timed: list[CostedVariant], batch: int) -> list[str]:
+    """ONNX Runtime's latencies beside torch's (× torch: the ratio of the medians at batch
+    1), or why there are none."""
+    measured = [item for item in timed if item.latency.ort]
+    if not measured:
+        return ["", *_wrap(f"ONNX Runtime latency: not measured: {timed[0].latency.ort_absent}")]
+    ort = measured[0].latency.ort
+    lines = [
+        "",
+        *_wrap(
+            f"ONNX Runtime {ort.version} latency in ms, the same rounds, threads and inputs "
+            "(the network exported with torch.onnx, run by an InferenceSession on the CPU)"
+        ),
+        "",
+        f"{'variant':<{NAME_WIDTH + 1}} {'@1':>19} {f'@{batch}':>19} {'x torch':>7} {'flag':<4}",
+        "-" * TABLE_WIDTH,
+    ]
+    for item in sorted(measured, key=lambda v: (v.latency.ort.batch1.median_ms, v.name)):
+        lat = item.latency
+        name = item.name if len(item.name) <= NAME_WIDTH else item.name[: NAME_WIDTH - 1] + "…"
+        ratio = lat.ort.batch1.median_ms / lat.batch1_ms
+        lines.append(
+            f"{name:<{NAME_WIDTH}}  {lat.ort.batch1.text():>19} {lat.ort.batch.text():>19} "
+            f"{ratio:>7.2f} {'!' if lat.ort.noisy else ''}".rstrip()
+        )
+    lines.append("-" * TABLE_WIDTH)
+    for item in timed:
+        if item.latency.ort is None:
+            lines += _wrap(f"not measured on ONNX Runtime: {item.name}: {item.latency.ort_absent}")
     return lines
 
 

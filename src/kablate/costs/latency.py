@@ -17,6 +17,11 @@ Read in this order:
   dilated to another native path on torch 2.14), so a latency comparison between two plans
   whose convs run on different backends compares implementations too: `crosses_backends` says
   so.
+- ONNX Runtime (the optional ``onnx`` extra, `kablate.nets.onnx_file`): each network is exported
+  and run by an ``onnxruntime.InferenceSession`` on the CPU at the same threads, in the same
+  rounds as torch (each round times every torch model and every session), summarised by the
+  same statistic. Where the extra is missing, or a network does not export, the reason is
+  recorded instead of a figure.
 """
 
 from __future__ import annotations
@@ -31,6 +36,13 @@ import torch
 from kablate.nets.build import build_network
 from kablate.nets.layout import Layout
 from kablate.nets.model_variant import ModelVariant
+from kablate.nets.onnx_file import (
+    export_onnx,
+    onnx_missing,
+    onnx_session,
+    onnxruntime_version,
+    run_session,
+)
 
 # A timing whose interquartile range exceeds this share of its median is flagged noisy.
 NOISY_IQR_RATIO = 0.2
@@ -68,6 +80,19 @@ def summarize_times(times_ms: list[float]) -> Timing:
 
 
 @dataclass(frozen=True)
+class RuntimeTiming:
+    """ONNX Runtime's timings of one network at batch 1 and at the measured batch size."""
+
+    batch1: Timing
+    batch: Timing
+    version: str  # onnxruntime's
+
+    @property
+    def noisy(self) -> bool:
+        return self.batch1.noisy or self.batch.noisy
+
+
+@dataclass(frozen=True)
 class Latency:
     """One variant's inference latency at batch 1 and at ``batch_size``, and how it was taken."""
 
@@ -77,6 +102,9 @@ class Latency:
     threads: int
     torch_version: str
     backends: tuple[tuple[str, str], ...] = ()  # (conv layer name, backend) at batch 1
+    ort: RuntimeTiming | None = None  # ONNX Runtime's, in the same rounds
+    ort_absent: str = ""  # why ``ort`` is None
+    in_shape: tuple[int, ...] = ()  # C, H, W of the timed input
 
     @property
     def batch1_ms(self) -> float:
@@ -180,6 +208,33 @@ def _conv_names(blueprint: Layout | ModelVariant, model: torch.nn.Module) -> lis
     return [name for name, m in model.named_modules() if isinstance(m, torch.nn.Conv2d)]
 
 
+def ort_runners(models: list[torch.nn.Module], shapes: list[tuple], threads: int) -> list:
+    """An ONNX Runtime session per model, as a callable on a numpy batch, or the reason there
+    is none (the extra is missing; the model does not export)."""
+    missing = onnx_missing()
+    if missing:
+        return [missing] * len(models)
+    out: list = []
+    for model, shape in zip(models, shapes, strict=True):
+        try:
+            session = onnx_session(export_onnx(model, shape), threads)
+        except Exception as exc:  # the exporter raises many types; the reason is reported
+            out.append(f"export to ONNX failed: {type(exc).__name__}: {str(exc).splitlines()[0]}")
+            continue
+        out.append(lambda x, s=session: run_session(s, x))
+    return out
+
+
+def _rounds(models: list, runners: list, inputs: list[torch.Tensor], rounds: int, warmup: int):
+    """Torch's and ONNX Runtime's times in the same interleaved rounds: (torch's per model,
+    ONNX Runtime's per runner that exists)."""
+    pairs = [(r, x) for r, x in zip(runners, inputs, strict=True) if callable(r)]
+    live = [r for r, _ in pairs]
+    arrays = [np.ascontiguousarray(x.numpy()) for _, x in pairs]
+    times = interleaved_times([*models, *live], [*inputs, *arrays], rounds, warmup)
+    return times[: len(models)], iter(times[len(models) :])
+
+
 def measure_layout_latencies(
     layouts: list[Layout | ModelVariant],
     batch_size: int,
@@ -189,30 +244,41 @@ def measure_layout_latencies(
 ) -> list[Latency]:
     """Inference latency of every layout at batch 1 and at ``batch_size``, in eval mode,
     channels_last, timed in interleaved rounds (a quarter as many at ``batch_size``, at least
-    5). ``threads`` sets torch's intra-op threads for the measurement only; the count used is
-    recorded, with torch's version and each conv layer's backend at batch 1."""
+    5), under torch and, where the ``onnx`` extra is installed, ONNX Runtime. ``threads`` sets
+    torch's intra-op threads (and ONNX Runtime's) for the measurement only; the count used is
+    recorded, with the versions and each conv layer's torch backend at batch 1."""
     before = torch.get_num_threads()
     if threads:
         torch.set_num_threads(threads)
     try:
-        models = [_prepare(layout) for layout in layouts]
-        ones, many = _inputs(layouts, 1), _inputs(layouts, batch_size)
-        batch_rounds = max(5, rounds // 4)
-        at_one = interleaved_times(models, ones, rounds, warmup)
-        at_many = interleaved_times(models, many, batch_rounds, 1)
         used = torch.get_num_threads()
+        models = [_prepare(layout) for layout in layouts]
+        runners = ort_runners(models, [layout.in_shape for layout in layouts], used)
+        ones, many = _inputs(layouts, 1), _inputs(layouts, batch_size)
+        at_one, ort_one = _rounds(models, runners, ones, rounds, warmup)
+        at_many, ort_many = _rounds(models, runners, many, max(5, rounds // 4), 1)
+        version = onnxruntime_version() if any(callable(r) for r in runners) else ""
         out = []
-        for layout, model, one, t1, tb in zip(layouts, models, ones, at_one, at_many, strict=True):
-            names = _conv_names(layout, model)
-            backends = conv_backends(model, one)
+        for i, layout in enumerate(layouts):
+            names = _conv_names(layout, models[i])
+            backends = conv_backends(models[i], ones[i])
+            ort, absent = None, ""
+            if callable(runners[i]):
+                t1, tb = next(ort_one), next(ort_many)
+                ort = RuntimeTiming(summarize_times(t1), summarize_times(tb), version)
+            else:
+                absent = runners[i]
             out.append(
                 Latency(
-                    summarize_times(t1),
-                    summarize_times(tb),
+                    summarize_times(at_one[i]),
+                    summarize_times(at_many[i]),
                     batch_size,
                     used,
                     torch.__version__,
                     tuple(zip(names, backends, strict=True)),
+                    ort,
+                    absent,
+                    tuple(layout.in_shape),
                 )
             )
         return out

@@ -15,13 +15,27 @@ save (``tools/autograd/derivatives.yaml`` in the PyTorch sources), each tensor o
 
 Parameters, buffers, gradients and optimiser state are not activations and are not counted.
 Tests compare the estimate with what ``torch.autograd.graph.saved_tensors_hooks`` sees.
+
+Inference memory (`inference_peak_bytes`) is a different figure: with no autograd nothing is
+saved, and what counts is how many activation bytes are alive *at once*. It is measured, not
+estimated: one eager forward pass at batch 1 under ``torch.no_grad``, watched at the ATen
+operator level (a ``TorchDispatchMode``), taking after every operator the bytes of the distinct
+tensor storages that are still referenced, the input included, and keeping the largest. For a
+plain chain this is the input plus the largest (layer input + layer output) pair; a residual
+block adds the skip tensor it holds. The same definition, peak of live activations with the
+input and output of the running layer, is the one used in the design of networks for
+microcontrollers (common practice; e.g. Lin et al. 2020, MCUNet, from memory). Buffers that an
+operator allocates inside itself (oneDNN's scratch space) are not visible and not counted.
 """
 
 from __future__ import annotations
 
+import weakref
 from dataclasses import dataclass
 
 import torch
+from torch.utils._python_dispatch import TorchDispatchMode
+from torch.utils._pytree import tree_flatten
 
 from kablate.nets.build import norm_groups_for
 from kablate.nets.layout import Layer, Layout
@@ -156,3 +170,44 @@ def saved_bytes_of(model: torch.nn.Module, x: torch.Tensor) -> int:
     with torch.autograd.graph.saved_tensors_hooks(pack, lambda tensor: tensor):
         model(x)
     return sum(saved.values())
+
+
+class _LiveBytes(TorchDispatchMode):
+    """After every ATen operator: the bytes of the distinct storages still referenced by a
+    tensor that an operator produced (or the input), and the largest such sum."""
+
+    def __init__(self, x: torch.Tensor):
+        super().__init__()
+        self.tensors: dict[int, tuple[int, list[weakref.ref]]] = {}  # storage → bytes, refs
+        self.peak = 0
+        self._track([x])
+
+    def _track(self, tensors: list) -> None:
+        dead = [k for k, (_, refs) in self.tensors.items() if all(r() is None for r in refs)]
+        for key in dead:  # before adding: a freed address may be reused by a new output
+            del self.tensors[key]
+        for t in tensors:
+            if isinstance(t, torch.Tensor):
+                storage = t.untyped_storage()
+                entry = self.tensors.setdefault(storage.data_ptr(), (storage.nbytes(), []))
+                entry[1].append(weakref.ref(t))
+        self.peak = max(self.peak, sum(n for n, _ in self.tensors.values()))
+
+    def __torch_dispatch__(self, func, types, args=(), kwargs=None):
+        out = func(*args, **(kwargs or {}))
+        self._track(tree_flatten(out)[0])
+        return out
+
+
+def inference_peak_bytes(model: torch.nn.Module, in_shape: tuple[int, int, int]) -> int:
+    """Peak bytes of live activations in one eval-mode forward pass of ``model`` at batch 1,
+    the input included (see the module docstring)."""
+    was_training = model.training
+    model.eval()
+    x = torch.zeros(1, *in_shape)
+    try:
+        with torch.no_grad(), _LiveBytes(x) as watch:
+            model(x)
+    finally:
+        model.train(was_training)
+    return watch.peak

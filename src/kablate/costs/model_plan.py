@@ -51,6 +51,7 @@ def model_variant_json(plan: ModelPlan, with_layers: bool = True) -> dict:
         "plan": {},
         "aliases": [],
         **cost_json(plan.cost),
+        "infer_mem_bytes": None,  # measured with the latency, not for a single model yet
         **latency_json(None),  # not measured for a single model yet
         "model": {
             "factory": plan.factory,

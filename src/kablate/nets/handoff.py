@@ -12,7 +12,8 @@ without the sweep file or the results folder:
 
 Each file also carries the variant's costs as `kablate plan` counted them, so that a rebuilt
 network can be checked against them (the tests do, with torch's own counters). Weights are not
-included: the variant is retrained at full length by the user's own recipe.
+included: the variant is retrained at full length by the user's own recipe (`kablate export
+--onnx --seed S` can put a trial's scored weights into the ONNX file beside it).
 """
 
 from __future__ import annotations

@@ -15,7 +15,14 @@ from datetime import UTC, datetime
 from kablate.analysis.summary import Analysis
 from kablate.costs.export import human
 from kablate.report.stem_card import stem_section
-from kablate.report.tables import ci, class_table, memory_table, test_table, variant_table
+from kablate.report.tables import (
+    ci,
+    class_table,
+    latency_table,
+    memory_table,
+    test_table,
+    variant_table,
+)
 from kablate.report.verdict import (
     cost_ratio,
     diff_prose,
@@ -48,6 +55,9 @@ PLOT_CAPTIONS = {
     "accuracy_vs_latency": "Validation accuracy (95% bootstrap interval) against CPU latency; "
     "the band runs from the baseline's accuracy down by the margin; hollow markers cannot be "
     "told apart from the baseline",
+    "accuracy_vs_ort_latency": "Validation accuracy (95% bootstrap interval) against ONNX "
+    "Runtime latency on the CPU; the band runs from the baseline's accuracy down by the margin; "
+    "hollow markers cannot be told apart from the baseline",
     "accuracy_vs_memory": "Validation accuracy (95% bootstrap interval) against the activation "
     "memory of a training step; the band runs from the baseline's accuracy down by the margin; "
     "hollow markers cannot be told apart from the baseline",
@@ -120,6 +130,7 @@ def render_card(a: Analysis, ctx: CardContext, now: datetime | None = None) -> s
         *_recommendation(a, ctx),
         *variant_table(a, ctx.cost_label),
         *memory_table(a, meta["resolved"].get("recipe", {}).get("batch_size")),
+        *latency_table(a),
         *test_table(a),
         *class_table(a),
         *_erf_section(a),

@@ -1,5 +1,13 @@
 """`kablate export`: write the recommended (or a named) variant of a results folder as a
-handoff file (`kablate.nets.handoff`) the user can build in their own code."""
+handoff file (`kablate.nets.handoff`) the user can build in their own code, and, with
+``--onnx``, as an ONNX file (`kablate.nets.onnx_file`).
+
+The ONNX file carries fresh initial weights (``torch.manual_seed(0)``) unless ``--seed S``
+names a trial whose checkpoint is in ``RESULTS/trials/<variant id>-s<S>/``: then it carries
+the weights that trial was scored with. Fresh weights are the default because the sweep's
+trials are short ablation runs, not the model to deploy: the file is for timing and for
+checking the deployment path; the variant is meant to be retrained at full length.
+"""
 
 from __future__ import annotations
 
@@ -43,6 +51,62 @@ def write_handoff(folder: ResultsFolder, variant: str | None = None, out: Path |
     Raises:
         UsageError: an unknown variant, or a sweep that cannot be rebuilt here.
     """
+    sweep, catalog, item = find_variant(folder, variant)
+    recommended = variant is None or _is_recommended(folder, item.name)
+    handoff = handoff_dict(sweep, item, catalog.in_shape, catalog.n_classes, recommended)
+    path = out or folder.path / HANDOFF_DIR / f"{item.name}.json"
+    write_json(path, handoff)
+    return path
+
+
+def write_onnx_handoff(
+    folder: ResultsFolder,
+    variant: str | None = None,
+    seed: int | None = None,
+    out: Path | None = None,
+) -> tuple[Path, str]:
+    """Write ``out`` (default ``RESULTS/handoff/<variant>.onnx``): fresh initial weights, or
+    those trial ``seed`` of the variant was scored with. Returns the path and what weights
+    it carries.
+
+    Raises:
+        UsageError: the onnx extra is missing; no checkpoint of that seed; as `write_handoff`.
+    """
+    import torch
+
+    from kablate.nets.build import build_network
+    from kablate.nets.onnx_file import onnx_missing, write_onnx
+    from kablate.report.trained import scored_states
+    from kablate.train.loop import CHECKPOINT
+
+    missing = onnx_missing()
+    if missing:
+        raise UsageError(f"--onnx needs the onnx extra: {missing}")
+    _, catalog, item = find_variant(folder, variant)
+    torch.manual_seed(0)
+    model = build_network(item.blueprint)
+    weights = "fresh initial weights (torch.manual_seed(0)); --seed S loads a trial's"
+    if seed is not None:
+        states = scored_states(folder.path, item.variant.id, [seed])
+        if seed not in states:
+            where = folder.path / "trials" / f"{item.variant.id}-s{seed}" / CHECKPOINT
+            raise UsageError(
+                f"no readable checkpoint of {item.name} seed {seed} at {where}: name a seed "
+                "that finished on this machine, or drop --seed for fresh weights"
+            )
+        model.load_state_dict(states[seed])
+        weights = f"the weights trial {item.variant.id}-s{seed} was scored with"
+    path = out or folder.path / HANDOFF_DIR / f"{item.name}.onnx"
+    return write_onnx(model, catalog.in_shape, path), weights
+
+
+def find_variant(folder: ResultsFolder, variant: str | None):
+    """(sweep, catalog, costed variant) of ``variant`` (default: the recommended one), rebuilt
+    from the folder's resolved sweep.
+
+    Raises:
+        UsageError: an unknown variant, or a sweep that cannot be rebuilt here.
+    """
     from kablate.costs.catalog import build_catalog
     from kablate.spec.loader import sweep_from_dict
 
@@ -58,12 +122,7 @@ def write_handoff(folder: ResultsFolder, variant: str | None = None, out: Path |
     if name not in names:
         hint = did_you_mean(name, list(names))
         raise UsageError(f"{folder.path} has no variant {name!r}{hint}")
-    item = names[name]
-    recommended = variant is None or _is_recommended(folder, item.name)
-    handoff = handoff_dict(sweep, item, in_shape, catalog.n_classes, recommended)
-    path = out or folder.path / HANDOFF_DIR / f"{item.name}.json"
-    write_json(path, handoff)
-    return path
+    return sweep, catalog, names[name]
 
 
 def _is_recommended(folder: ResultsFolder, name: str) -> bool:

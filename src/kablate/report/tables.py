@@ -5,9 +5,12 @@ from __future__ import annotations
 
 import math
 
+import pandas as pd
+
 from kablate.analysis.classes import per_class_accuracy
 from kablate.analysis.summary import Analysis
 from kablate.costs.export import human
+from kablate.costs.latency import NOISY_IQR_RATIO, Timing
 from kablate.report.verdict import cost_ratio, pct, pp
 from kablate.spec.costs import COSTS
 
@@ -98,22 +101,87 @@ def memory_table(a: Analysis, batch_size: int | None) -> list[str]:
     v = v.sort_values(["act_mem_bytes", "variant"])
     base = float(v.set_index("variant").loc[a.baseline, "act_mem_bytes"])
     at = f"batch {batch_size}" if batch_size else "the recipe's batch size"
+    inference = pd.to_numeric(v["infer_mem_bytes"], errors="coerce").notna().all()
     lines = [
         "#### Memory",
         "",
         f"*Activations* are the bytes one training step at {at} keeps from the forward pass "
         "for backward (what PyTorch's autograd saves, counted before training; × baseline in "
-        "brackets). *Weights* are the parameters × 4 bytes (fp32, as trained) and × 1 byte "
+        "brackets). "
+        + (
+            "*At inference* is the peak of activation bytes alive at once in one eval-mode "
+            "forward pass at batch 1, the input included (measured with the latency, on the "
+            "operators torch runs). "
+            if inference
+            else ""
+        )
+        + "*Weights* are the parameters × 4 bytes (fp32, as trained) and × 1 byte "
         "(int8 after quantization; its scales and zero points not counted).",
         "",
-        "| variant | activations per training step | weights fp32 | weights int8 |",
-        "|---|---:|---:|---:|",
+        "| variant | activations per training step | "
+        + ("at inference, batch 1 | " if inference else "")
+        + "weights fp32 | weights int8 |",
+        "|---|---:|---:|---:|" + ("---:|" if inference else ""),
     ]
     for row in v.itertuples():
+        peak = f"{human(row.infer_mem_bytes)}B | " if inference else ""
         lines.append(
             f"| {row.variant} | {human(row.act_mem_bytes)}B ({row.act_mem_bytes / base:.2f}×) | "
-            f"{human(row.weight_bytes_fp32)}B | {human(row.weight_bytes_int8)}B |"
+            f"{peak}{human(row.weight_bytes_fp32)}B | {human(row.weight_bytes_int8)}B |"
         )
+    return lines + [""]
+
+
+def _timing(row, prefix: str, at: str) -> str:
+    """'0.48 [0.45, 0.52]' from a variant row's ``<prefix>latency<at>_*`` fields; '!' marks a
+    noisy timing, '-' a missing one."""
+    median = getattr(row, f"{prefix}latency{at}_ms")
+    if pd.isna(median):
+        return "-"
+    q1, q3 = getattr(row, f"{prefix}latency{at}_q1_ms"), getattr(row, f"{prefix}latency{at}_q3_ms")
+    timing = Timing(median, q1, q3, 0)
+    return timing.text() + (" !" if timing.noisy else "")
+
+
+def latency_table(a: Analysis) -> list[str]:
+    """CPU latency under torch and, beside it, ONNX Runtime (or why it is absent), each a
+    median with its interquartile range; empty when latency was not measured."""
+    v = a.variants
+    if v["latency_ms"].isna().all():
+        return []
+    v = v.sort_values(["latency_ms", "variant"])
+    first = v.iloc[0]
+    if pd.isna(first["latency_batch_size"]):  # a plan from before the statistic
+        return []
+    batch = int(first["latency_batch_size"])
+    ort = v[v["ort_latency_ms"].notna()]
+    if len(ort):
+        beside = (
+            f" ONNX Runtime {ort.iloc[0]['onnxruntime_version']} ran the network exported to "
+            "ONNX in the same rounds, threads and inputs; *ORT × torch* is the ratio of the "
+            "medians at batch 1."
+        )
+    else:
+        reason = next((r for r in v["ort_absent"] if isinstance(r, str) and r), "not measured")
+        beside = f" ONNX Runtime latency is absent: {reason}."
+    lines = [
+        "#### Latency",
+        "",
+        f"Milliseconds on the CPU, median [interquartile range] of {int(first['latency_rounds'])} "
+        f"interleaved rounds at batch 1 and fewer at batch {batch}; eval mode, "
+        f"{int(first['latency_threads'])} thread(s), torch {first['latency_torch']}.{beside} "
+        f"! marks a noisy timing (interquartile range above {NOISY_IQR_RATIO:.0%} of the "
+        "median): compare those on a quiet machine.",
+        "",
+        f"| variant | torch @1 | torch @{batch} | ONNX Runtime @1 | ONNX Runtime @{batch} | "
+        "ORT × torch |",
+        "|---|---:|---:|---:|---:|---:|",
+    ]
+    for row in v.itertuples():
+        cells = [_timing(row, p, at) for p in ("", "ort_") for at in ("", "_batch")]
+        measured = pd.notna(row.ort_latency_ms)
+        shown = f"{row.ort_latency_ms / row.latency_ms:.2f}" if measured else "-"
+        lines.append(f"| {row.variant} | {' | '.join(cells)} | {shown} |")
     return lines + [""]
 
 

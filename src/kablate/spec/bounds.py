@@ -24,6 +24,8 @@ MAX_CONVS = 64  # n_convs of one stage
 MAX_GRID_CELLS = 10_000  # cells of all [[grid]] tables of a sweep together
 MAX_DEPTH = 16  # nesting of tables and arrays in a sweep or config file
 MAX_STRIDE = 64  # the stem's stride
+MAX_THREADS = 1024  # target.threads
+MAX_SIDE = 4096  # target.input: the height and width latency is measured at
 
 
 def check_input_bounds(sweep, in_shape: tuple[int, int, int]) -> None:

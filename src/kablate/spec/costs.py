@@ -4,8 +4,9 @@ Contract: `[pick] cost`, `kablate report --cost`, the analysis's fronts (``front
 card's labels and the accuracy-against-cost plots (``accuracy_vs_<name>``) all read `COSTS`.
 A cost's ``column`` is its field in plan.json and in the variants table. Adding a cost is one
 entry here plus the column it names. A cost with ``always`` False may be missing from a plan
-(latency is measured only on request; plans written before activation memory was recorded
-lack it): it gets a front, a plot and a selection only where every variant has it.
+(latency is measured only on request, ONNX Runtime's only with the `onnx` extra; plans
+written before activation memory was recorded lack it): it gets a front, a plot and a
+selection only where every variant has it.
 """
 
 from __future__ import annotations
@@ -29,6 +30,13 @@ COSTS: dict[str, Cost] = {
         Cost("params", "params", "params", "parameters"),
         Cost("macs", "macs", "MACs", "MACs"),
         Cost("latency", "latency_ms", "latency", "latency (ms)", always=False),
+        Cost(
+            "ort_latency",
+            "ort_latency_ms",
+            "ONNX Runtime latency",
+            "ONNX Runtime latency (ms)",
+            always=False,
+        ),
         Cost(
             "memory",
             "act_mem_bytes",

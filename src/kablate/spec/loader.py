@@ -26,6 +26,7 @@ from kablate.spec.schema import (
     PlanSpec,
     RecipeSpec,
     SweepSpec,
+    TargetSpec,
 )
 
 NAME_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]*$")
@@ -55,7 +56,18 @@ class SweepTable:
     story: str = ""
 
 
-TOP_LEVEL = ("sweep", "data", "network", "model", "recipe", "plan", "grid", "filter", "pick")
+TOP_LEVEL = (
+    "sweep",
+    "data",
+    "network",
+    "model",
+    "recipe",
+    "plan",
+    "grid",
+    "filter",
+    "pick",
+    "target",
+)
 
 
 def load_sweep(path: str | Path) -> SweepSpec:
@@ -88,6 +100,7 @@ def sweep_from_dict(raw: dict, path: Path) -> SweepSpec:
     recipe = read_table(RecipeSpec, recipe_raw, where.key("recipe"))
     filters = read_table(FilterSpec, raw.get("filter", {}), where.key("filter"))
     pick = read_table(PickSpec, raw.get("pick", {}), where.key("pick"))
+    target = read_table(TargetSpec, raw.get("target", {}), where.key("target"))
     model = read_model(raw, where)
     plans = read_plans(raw.get("plan", []), where.key("plan"))
     grids = read_grids(raw.get("grid", []), where.key("grid"))
@@ -116,6 +129,7 @@ def sweep_from_dict(raw: dict, path: Path) -> SweepSpec:
         story=head.story,
         pick=pick,
         model=model,
+        target=target,
         raw=resolved,
     )
 
@@ -131,6 +145,7 @@ class _TopLevel:
     grid: Any = None
     filter: Any = None
     pick: Any = None
+    target: Any = None
 
 
 def read_model(raw: dict, where: Where) -> ModelSpec | None:

@@ -17,8 +17,10 @@ from kablate.spec.bounds import (
     MAX_CONVS,
     MAX_CROP_PADDING,
     MAX_SEED,
+    MAX_SIDE,
     MAX_STAGES,
     MAX_STRIDE,
+    MAX_THREADS,
 )
 from kablate.spec.costs import COST_NAMES
 from kablate.spec.fields import Check, at_least, below, between, check
@@ -181,6 +183,27 @@ class PickSpec:
     within_se: float = check(between(0.0, 10.0), 1.0)
 
 
+def _input_side(value: tuple[int, ...]) -> str | None:
+    if value == () or (len(value) == 2 and all(1 <= v <= MAX_SIDE for v in value)):
+        return None
+    return f"must be [height, width], each from 1 to {MAX_SIDE}, or [] for the data's size"
+
+
+@dataclass(frozen=True)
+class TargetSpec:
+    """The deployment target that every latency (and the inference memory) is measured on.
+
+    ``runtime`` is what the network will run on there: ``onnxruntime`` requires ONNX Runtime's
+    figures (the `onnx` extra), ``torch`` takes them beside torch's where the extra is
+    installed. 0 and [] mean: not stated (threads: ``--threads`` in `plan`, the workers'
+    threads in `run`; batch: the recipe's; input: the data's)."""
+
+    threads: int = check(between(0, MAX_THREADS, "an integer"), 0)
+    batch: int = check(between(0, MAX_BATCH, "an integer"), 0)
+    input: tuple[int, ...] = check(_input_side, ())
+    runtime: Literal["torch", "onnxruntime"] = "torch"
+
+
 @dataclass(frozen=True)
 class PlanSpec:
     """One explicit kernel plan: a name and a kernel spec per layer group."""
@@ -207,4 +230,5 @@ class SweepSpec:
     story: str = ""
     pick: PickSpec = field(default_factory=PickSpec)  # the selection rule's cost and tolerance
     model: ModelSpec | None = None  # the user's own network; then `network` is unused
+    target: TargetSpec = field(default_factory=TargetSpec)  # where latency is measured
     raw: dict = field(default_factory=dict, compare=False, repr=False)  # resolved TOML

@@ -263,9 +263,9 @@ def run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
     # Before the definition is recorded: a sweep refused here can be fixed and rerun as is.
     run_preflight(catalog, data, layout[0], opts.device)
     check_definition(study, sweep)
-    # Latency once per variant, before training and at the workers' threads, into plan.json:
+    # Latency once per variant, before training, on [target] (else at the workers' threads):
     # the report's fronts and `[pick] cost = "latency"` read it from there.
-    measure_latencies(catalog, threads=layout[1])
+    measure_latencies(catalog, threads=catalog.sweep.target.threads or layout[1])
     write_manifest(results_dir, catalog, url, opts, layout)
     write_json(results_dir / DATA_FILE, data.manifest())
     plan = {
