@@ -6,6 +6,7 @@ import json
 from pathlib import Path
 
 from kablate import __version__
+from kablate.analysis.race import RETIRED_COLUMNS
 from kablate.analysis.summary import Analysis, analyze, pick_settings
 from kablate.errors import KablateError
 from kablate.report.card import PLOT_CAPTIONS, CardContext, render_card
@@ -30,6 +31,7 @@ from kablate.trials.export import (
 )
 from kablate.trials.meta import read_json, write_json
 from kablate.trials.preflight import writable_folder
+from kablate.trials.race import race_summary
 from kablate.trials.results import DATA_FILE, ResultsFolder
 from kablate.trials.store import redact
 
@@ -78,6 +80,7 @@ VARIANT_COLUMNS = (
     "front_memory",
     "front_all",
     "recommended",
+    *RETIRED_COLUMNS,
     "plan",
 )
 
@@ -164,6 +167,7 @@ def write_report(
     rows, curves = folder.rows()
     data = read_json(folder.path / DATA_FILE)
     analysis = analyze(rows, curves, folder.plan, folder.meta.get("grids", []), data, pick)
+    analysis.race = race_summary(folder.study)
     if out is None:
         hint = "; give --out DIR to write the report elsewhere"
         write_tables(writable_folder(folder.path, "results folder", hint), analysis, data)
