@@ -219,7 +219,9 @@ def put_accuracies(
     names = variants["variant"]
     for suffix, attr in (("mean", "mean"), ("se", "se"), ("ci_low", "low"), ("ci_high", "high")):
         column = f"{split}_acc_{suffix}"
-        old = variants[column] if keep_others else pd.Series(math.nan, index=variants.index)
+        old = pd.Series(math.nan, index=variants.index)
+        if keep_others and column in variants:
+            old = variants[column]
         variants[column] = [getattr(acc[n], attr) if n in acc else old[i] for i, n in names.items()]
 
 
