@@ -18,6 +18,7 @@ from kablate.trials import RunOptions, open_results, run_sweep
 from kablate.trials.jobs import order_jobs
 from kablate.trials.queue import RETIRED, enqueue_missing, job_status, tagged_trials
 from kablate.trials.race import read_rounds
+from kablate.trials.store import open_study
 from tests.conftest import write_sweep
 
 RACE_SWEEP = """
@@ -101,7 +102,8 @@ def test_a_resumed_race_never_trains_a_retired_variant(tmp_path):
     assert "blind" in {names[v] for v in retired}
     # As if an earlier run without racing had queued every job of two seeds: the retired
     # variants' waiting trials must be withdrawn, not trained.
-    enqueue_missing(folder.study, order_jobs(list(names.items()), (0, 1)))
+    writable = open_study("resumed", first.results_dir, None)
+    enqueue_missing(writable, order_jobs(list(names.items()), (0, 1)))
     second = run_sweep(sweep_file(tmp_path, "resumed", "on", seeds="[0, 1]"), opts)
     by_job = tagged_trials(open_results(second.results_dir).study)
     for vid in names:
