@@ -56,7 +56,14 @@ def test_throughput_and_eta_come_from_running_workers_and_recent_trial_times():
         trial("b-s1", TrialState.RUNNING, -1),
     ]
     status = summarize("demo", rows, trials, NOW, {"workers": 2, "threads": 1})
-    assert status.counts == {"done": 2, "running": 2, "waiting": 2, "failed": 1, "diverged": 1}
+    assert status.counts == {
+        "done": 2,
+        "running": 2,
+        "waiting": 2,
+        "failed": 1,
+        "diverged": 1,
+        "retired": 0,
+    }
     assert status.mean_trial_seconds == 480  # (600 + 360) / 2
     assert status.throughput_per_hour == 2 / 480 * 3600  # two workers, one trial each
     assert status.eta_seconds == 4 * 480 / 2  # 2 running + 2 waiting, two at a time

@@ -27,9 +27,11 @@ from kablate.analysis.erf import ErfMap
 from kablate.analysis.evidence import Evidence, gather_evidence
 from kablate.analysis.flags import variant_flags
 from kablate.analysis.power import Resolution, resolution_after
+from kablate.analysis.race import in_race, put_retired, retired_accuracies
 from kablate.analysis.stem import StemAtlas
 from kablate.analysis.tables import (
     FINISHED,
+    SETTLED,
     add_fronts,
     balanced_seeds,
     trial_frame,
@@ -65,6 +67,7 @@ class Analysis:
     classes: tuple[str, ...] = ()
     # (row, column) positions in ``grid`` of the baseline's and the recommended plan's cells
     grid_marks: dict[str, list[tuple[int, int]]] = field(default_factory=dict)
+    race: dict | None = None  # racing: {"rule", "rounds"} (`trials.race.race_summary`), or None
 
     @property
     def recommended(self) -> str | None:
@@ -87,7 +90,7 @@ class Analysis:
     def missing(self) -> pd.DataFrame:
         """The trials without a result yet: variant, seed, status."""
         t = self.trials
-        return t.loc[~t["status"].isin(FINISHED), ["variant", "seed", "status"]]
+        return t.loc[~t["status"].isin(SETTLED), ["variant", "seed", "status"]]
 
 
 def pick_settings(meta: dict, **overrides) -> PickSpec:
@@ -117,12 +120,15 @@ def analyze(
     """
     pick = pick or PickSpec()
     trials = trial_frame(rows)
-    seeds = balanced_seeds(trials)
+    # Variants retired by racing have fewer seeds: they are left out of the seed balance and
+    # the decision (analysis/race.py says why the pick cannot change), and shown on their own.
+    racing = in_race(trials)
+    seeds = balanced_seeds(trials[racing])
     variants = variant_frame(trials, plan, seeds=seeds)
     base_id = plan["baseline"]
     baseline = variants.loc[variants["variant_id"] == base_id, "variant"].iloc[0]
     curves_frame = pd.DataFrame(curves) if curves else pd.DataFrame(columns=list(CURVE_COLUMNS))
-    evidence = gather_evidence(trials, data, seeds)
+    evidence = gather_evidence(trials[racing], data, seeds)
     decision, resolution = None, None
     if evidence is not None and baseline in evidence.names:
         cost_col = COSTS[pick.cost].column
@@ -146,6 +152,8 @@ def analyze(
     elif evidence is not None:  # no baseline to compare with yet: the accuracies still count
         put_accuracies(variants, accuracies(evidence, resample_accuracies(evidence.correct)), "val")
         add_fronts(variants)
+    test_contrast = contrast_on_test(trials[racing], data, seeds, decision, variants)
+    show_retired(variants, trials[~racing], data)
     variants["recommended"] = variants["variant"] == (decision.recommended if decision else "")
     n_classes = int(data.get("n_classes") or len(data.get("classes", [])) or 2)
     flags = variant_flags(
@@ -165,7 +173,7 @@ def analyze(
         pick,
         decision,
         evidence,
-        contrast_on_test(trials, data, seeds, decision, variants),
+        test_contrast,
         flags,
         resolution,
         grid_table(variants, plan, grids),
@@ -213,14 +221,34 @@ def apply_decision(variants: pd.DataFrame, decision: Decision) -> None:
     add_fronts(variants)
 
 
-def put_accuracies(variants: pd.DataFrame, acc: dict[str, Accuracy], split: str) -> None:
+def put_accuracies(
+    variants: pd.DataFrame, acc: dict[str, Accuracy], split: str, keep_others: bool = False
+) -> None:
     """``<split>_acc_mean``, ``_se``, ``_ci_low`` and ``_ci_high`` from the evidence (in place):
-    the accuracy over every (seed, image) pair, its bootstrap standard error and interval."""
+    the accuracy over every (seed, image) pair, its bootstrap standard error and interval.
+    Variants not in ``acc`` get NaN, or keep their values with ``keep_others``."""
     names = variants["variant"]
     for suffix, attr in (("mean", "mean"), ("se", "se"), ("ci_low", "low"), ("ci_high", "high")):
-        variants[f"{split}_acc_{suffix}"] = [
-            getattr(acc[n], attr) if n in acc else math.nan for n in names
-        ]
+        column = f"{split}_acc_{suffix}"
+        old = pd.Series(math.nan, index=variants.index)
+        if keep_others and column in variants:
+            old = variants[column]
+        variants[column] = [getattr(acc[n], attr) if n in acc else old[i] for i, n in names.items()]
+
+
+def show_retired(variants: pd.DataFrame, retired: pd.DataFrame, data: dict) -> None:
+    """What racing did (in place): the ``retired_*`` columns, and each retired variant's
+    accuracy and correct count on its own seeds, then the fronts again."""
+    put_retired(variants, retired)
+    for split in ("val", "test"):
+        acc = retired_accuracies(retired, data, split)
+        put_accuracies(variants, acc, split, keep_others=True)
+        if split == "val":
+            for name, found in acc.items():
+                at = variants["variant"] == name
+                variants.loc[at, "n_correct"] = found.n_correct
+                variants.loc[at, "n_scored"] = found.n_scored
+    add_fronts(variants)
 
 
 def observed_resolution(evidence: Evidence, decision: Decision) -> Resolution | None:

@@ -12,11 +12,14 @@ from kablate.costs.export import LATENCY_FIELDS, ORT_FIELDS
 from kablate.costs.memory import weight_bytes
 from kablate.plans.expand import plan_text
 from kablate.spec.costs import COSTS
+from kablate.trials.queue import RETIRED
 
 # Latency fields that hold a mapping or a list, not one figure per variant
 LISTS = ("conv_backends", "latency_input")
 # A trial in one of these states has a result (diverged: trained, but its loss blew up).
 FINISHED = ("done", "diverged")
+# A trial in one of these needs nothing more: racing gave a retired variant no more seeds.
+SETTLED = (*FINISHED, RETIRED)
 
 
 def trial_frame(rows: list[dict]) -> pd.DataFrame:
@@ -75,7 +78,7 @@ def variant_frame(
                 "variant_id": v["id"],
                 "n_seeds": val.n,
                 "n_planned": len(plan["seeds"]),
-                "n_missing": int((~mine["status"].isin(FINISHED)).sum()),
+                "n_missing": int((~mine["status"].isin(SETTLED)).sum()),
                 "n_diverged": int((mine["status"] == "diverged").sum()),
                 "n_held_back": len(held),
                 "val_acc_mean": val.mean,

@@ -8,6 +8,7 @@ from pathlib import Path
 import numpy as np
 
 from kablate import __version__
+from kablate.analysis.race import RETIRED_COLUMNS
 from kablate.analysis.summary import Analysis, analyze, pick_settings
 from kablate.errors import KablateError
 from kablate.report.card import PLOT_CAPTIONS, CardContext, render_card
@@ -34,6 +35,7 @@ from kablate.trials.export import (
 )
 from kablate.trials.meta import read_json, write_json
 from kablate.trials.preflight import writable_folder
+from kablate.trials.race import race_summary
 from kablate.trials.results import DATA_FILE, ResultsFolder
 from kablate.trials.store import redact
 
@@ -85,6 +87,7 @@ VARIANT_COLUMNS = (
     "front_ort_latency",
     "front_all",
     "recommended",
+    *RETIRED_COLUMNS,
     "plan",
 )
 
@@ -199,6 +202,7 @@ def write_report(
     rows, curves = folder.rows()
     data = read_json(folder.path / DATA_FILE)
     analysis = analyze(rows, curves, folder.plan, folder.meta.get("grids", []), data, pick)
+    analysis.race = race_summary(folder.study)
     if out is None:
         hint = "; give --out DIR to write the report elsewhere"
         tables = writable_folder(folder.path, "results folder", hint)

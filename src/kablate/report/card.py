@@ -14,6 +14,7 @@ from datetime import UTC, datetime
 
 from kablate.analysis.summary import Analysis
 from kablate.costs.export import human
+from kablate.report.race import race_section
 from kablate.report.stem_card import stem_section
 from kablate.report.tables import (
     ci,
@@ -32,6 +33,7 @@ from kablate.report.verdict import (
 )
 from kablate.spec.fields import Where, read_table
 from kablate.spec.schema import RecipeSpec
+from kablate.trials.queue import RETIRED
 
 STAMP_PREFIX = "Generated "
 CAUTION = (
@@ -136,6 +138,7 @@ def render_card(a: Analysis, ctx: CardContext, now: datetime | None = None) -> s
         *_erf_section(a),
         *stem_section(a.stem, a.stem_note),
         *_partial(a),
+        *race_section(a),
         *_plots(ctx.plots),
         "### Caveats and recommendations",
         "",
@@ -324,7 +327,8 @@ def _partial(a: Analysis) -> list[str]:
     """The planned trials the statistics do not use: not finished yet, diverged, or held back
     to compare every variant on the same seeds."""
     t, held = a.trials, a.held_back
-    left_out = t.loc[t["status"].ne("done") | held, ["variant", "seed", "status"]].copy()
+    waiting = t["status"].ne("done") & t["status"].ne(RETIRED)  # racing: its own section
+    left_out = t.loc[waiting | held, ["variant", "seed", "status"]].copy()
     if not len(left_out):
         return []
     left_out.loc[held[held].index, "status"] = "done, held back"

@@ -12,7 +12,7 @@ import re
 import tomllib
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import Any, Literal
 
 from kablate.errors import SweepError
 from kablate.spec.bounds import MAX_DEPTH, MAX_GRID_CELLS, MAX_NAME, MAX_SEED
@@ -54,6 +54,8 @@ class SweepTable:
     seeds: tuple[int, ...] = check(_seeds, (0, 1, 2))
     baseline: str = ""
     story: str = ""
+    # auto: race for --budget runs (and resumed races); see kablate.trials.race
+    racing: Literal["auto", "on", "off"] = "auto"
 
 
 TOP_LEVEL = (
@@ -127,6 +129,7 @@ def sweep_from_dict(raw: dict, path: Path) -> SweepSpec:
         filters=filters,
         baseline=head.baseline,
         story=head.story,
+        racing=head.racing,
         pick=pick,
         model=model,
         target=target,

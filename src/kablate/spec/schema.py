@@ -229,6 +229,7 @@ class SweepSpec:
     baseline: str = ""  # a plan name; default: the all-3×3 variant
     story: str = ""
     pick: PickSpec = field(default_factory=PickSpec)  # the selection rule's cost and tolerance
+    racing: Literal["auto", "on", "off"] = "auto"  # retire dominated variants between seeds
     model: ModelSpec | None = None  # the user's own network; then `network` is unused
     target: TargetSpec = field(default_factory=TargetSpec)  # where latency is measured
     raw: dict = field(default_factory=dict, compare=False, repr=False)  # resolved TOML

@@ -18,7 +18,8 @@ import optuna
 
 from kablate.train.evidence import SPLITS, decode_predictions
 from kablate.train.record import shown_epoch
-from kablate.trials.queue import job_status, tagged_trials
+from kablate.trials.queue import RETIRED, job_status, tagged_trials
+from kablate.trials.race import RULE_ATTR, read_rounds, retired_variants
 
 TRIAL_COLUMNS = (
     "variant",
@@ -38,6 +39,7 @@ TRIAL_COLUMNS = (
     "worker",
     "trial",
     "n_attempts",
+    "retired_after",  # racing: the seed after which the variant was retired (trials/race.py)
 )
 CURVE_COLUMNS = ("variant", "seed", "epoch", "train_loss", "val_loss", "val_acc", "seconds")
 PREDICTION_COLUMNS = ("variant", "seed", "split", "index", "label", "predicted")
@@ -51,6 +53,8 @@ def collect_trials(study: optuna.Study, plan: dict) -> tuple[list[dict], list[di
         plan: the content of ``plan.json`` (variants with costs, seeds).
     """
     by_job = tagged_trials(study)
+    # A race's retirements count while the study races (a run with racing off trains them).
+    retired = retired_variants(read_rounds(study)) if study.user_attrs.get(RULE_ATTR) else {}
     rows, curves = [], []
     for seed in plan["seeds"]:
         for v in plan["variants"]:
@@ -101,6 +105,12 @@ def collect_trials(study: optuna.Study, plan: dict) -> tuple[list[dict], list[di
                     )
             else:
                 row["status"] = "missing"  # not enqueued yet (e.g. the run has not started)
+                row["predictions"] = {}
+            if v["id"] in retired:  # racing gave it no more seeds: the card says why
+                row["retired"] = retired[v["id"]]
+                row["retired_after"] = retired[v["id"]]["seed"]
+                if row["status"] in ("missing", "failed"):
+                    row["status"] = RETIRED
             rows.append(row)
     return rows, curves
 

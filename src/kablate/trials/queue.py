@@ -30,20 +30,23 @@ from optuna.trial import FrozenTrial, TrialState
 
 from kablate.trials.jobs import Job
 
+# A job that racing withdrew: its variant was retired (trials/race.py); the trial is told FAIL
+# with this outcome, and the job's row in trials.csv reads it too.
+RETIRED = "retired"
 # How each trial state counts for its job; the best-ranked trial of a job speaks for it.
-RANK = {"done": 5, "diverged": 4, "running": 3, "waiting": 2, "failed": 1}
+RANK = {"done": 5, "diverged": 4, "running": 3, "waiting": 2, "failed": 1, RETIRED: 0}
 
 
 def trial_status(trial: FrozenTrial) -> str:
-    """done | diverged | running | waiting | failed."""
+    """done | diverged | running | waiting | failed | retired."""
     if trial.state == TrialState.COMPLETE:
         return "done"
     if trial.state == TrialState.RUNNING:
         return "running"
     if trial.state == TrialState.WAITING:
         return "waiting"
-    if trial.user_attrs.get("outcome") == "diverged":
-        return "diverged"
+    if trial.user_attrs.get("outcome") in ("diverged", RETIRED):
+        return trial.user_attrs["outcome"]
     return "failed"
 
 
@@ -66,14 +69,15 @@ def job_status(trials: list[FrozenTrial]) -> tuple[str, FrozenTrial]:
 def enqueue_missing(study: optuna.Study, jobs: list[Job]) -> int:
     """Enqueue every job that is not done, diverged, running or waiting; return how many.
 
-    A job whose last trial failed (an error, an abandoned or interrupted run) is enqueued again.
+    A job whose last trial failed (an error, an abandoned or interrupted run) is enqueued again,
+    and so is one that racing withdrew, when a caller lists it (a run with racing off).
     Callers hold ``liveness.queue_lock()`` so that two local runners do not both enqueue a job.
     """
     existing = tagged_trials(study)
     n = 0
     for job in jobs:
         trials = existing.get(job.key)
-        if trials and job_status(trials)[0] != "failed":
+        if trials and job_status(trials)[0] not in ("failed", RETIRED):
             continue
         study.enqueue_trial({}, user_attrs=job.attrs())
         n += 1

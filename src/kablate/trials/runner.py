@@ -33,6 +33,7 @@ from kablate.trials.outcome import FINISHED, failure_reasons, own_counts
 from kablate.trials.pool import FILE_ONLY, Progress, run_workers, setup_logging
 from kablate.trials.preflight import run_preflight, writable_folder
 from kablate.trials.queue import enqueue_missing, job_status, tagged_trials
+from kablate.trials.race import start_race
 from kablate.trials.results import DATA_FILE, PLAN_FILE, SWEEP_FILE
 from kablate.trials.store import (
     JOURNAL,
@@ -277,8 +278,10 @@ def run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
     }
     liveness = liveness_for(study, lock_dir(results_dir, url))
     liveness.recover(study)
+    # Racing (trials/race.py): only the rounds decided so far are enqueued; workers go on.
+    race = start_race(study, catalog, data.val.labels, sweep.racing, opts.budget_seconds)
     with liveness.queue_lock():
-        n_new = enqueue_missing(study, jobs)
+        n_new = race.advance(study, liveness) if race else enqueue_missing(study, jobs)
     before = export_results(results_dir, study, plan)
     n_finished = before.get("done", 0) + before.get("diverged", 0)
     to_run = len(jobs) - n_finished

@@ -19,9 +19,10 @@ from optuna.trial import FrozenTrial, TrialState
 
 from kablate.errors import KablateError
 from kablate.trials.meta import read_json
+from kablate.trials.queue import RETIRED
 from kablate.trials.results import DATA_FILE, ResultsFolder
 
-STATES = ("done", "running", "waiting", "failed", "diverged")
+STATES = ("done", "running", "waiting", "failed", "diverged", RETIRED)
 RECENT = 20  # finished trials that set the expected trial time
 
 
@@ -141,7 +142,8 @@ def format_status(status: SweepStatus) -> str:
     c = status.counts
     lines = [
         f"sweep {status.sweep}: {c['done']}/{status.n_trials} done, {c['running']} running, "
-        f"{c['waiting']} waiting, {c['failed']} failed, {c['diverged']} diverged",
+        f"{c['waiting']} waiting, {c['failed']} failed, {c['diverged']} diverged"
+        + (f", {c[RETIRED]} not run (variant retired by racing)" if c[RETIRED] else ""),
     ]
     if status.finished and status.throughput_per_hour:
         lines.append(
@@ -173,19 +175,20 @@ def format_status(status: SweepStatus) -> str:
         acc = accuracy_text(accuracy.get(entry["variant"]))
         lines.append(f"  {entry['variant']:<{width}}  {cell:<{cell_width}}{acc}".rstrip())
     lines.append("")
-    lines.append("  # done  ~ running  x failed or diverged  . waiting")
+    lines.append("  # done  ~ running  x failed or diverged  . waiting  - retired (racing)")
     lines += standing_lines(status)
     return "\n".join(lines)
 
 
 def progress_bar(entry: dict) -> str:
     """One character per trial of a variant: '#' done, '~' running, 'x' failed or diverged,
-    '.' waiting."""
+    '.' waiting, '-' not run because racing retired the variant."""
     return (
         "#" * entry["done"]
         + "~" * entry["running"]
         + "x" * (entry["failed"] + entry["diverged"])
         + "." * entry["waiting"]
+        + "-" * entry[RETIRED]
     )
 
 

@@ -25,8 +25,10 @@ from kablate.train.loop import TrialInterrupted, train_trial
 from kablate.train.record import TrialRecord
 from kablate.trials.jobs import Job
 from kablate.trials.queue import Claim, claim_next, clean, next_waiting_key
+from kablate.trials.race import race_of_study
 
 log = logging.getLogger("kablate")
+RACE_POLL_SECONDS = 2.0  # how often a racing worker looks whether its round has ended
 
 
 @dataclass
@@ -199,9 +201,12 @@ def work(ctx: WorkerContext, on_finish: Callable[[str, str], None] | None = None
 
     Before every claim, trials whose worker died are failed and requeued (liveness.py). On a
     server storage an idle worker waits while trials run elsewhere, so that it can take over
-    one whose machine stops sending heartbeats.
+    one whose machine stops sending heartbeats. In a race (trials/race.py) a worker that finds
+    the queue empty decides the rounds it can and enqueues the next one; while a round still
+    runs elsewhere it waits for it.
     """
     n, ratios = 0, []
+    race = race_of_study(ctx.study, ctx.catalog, ctx.data.val.labels)
     while not (ctx.max_trials and n >= ctx.max_trials):
         if ctx.should_stop is not None and ctx.should_stop():
             break
@@ -211,8 +216,12 @@ def work(ctx: WorkerContext, on_finish: Callable[[str, str], None] | None = None
             break
         claim = claim_next(ctx.study, ctx.liveness, ctx.order)
         if claim is None:
-            if ctx.liveness.remote and others_running(ctx):
-                time.sleep(ctx.liveness.interval)
+            if race is not None:
+                with ctx.liveness.queue_lock():
+                    if race.advance(ctx.study, ctx.liveness):
+                        continue
+            if (ctx.liveness.remote or race is not None) and others_running(ctx):
+                time.sleep(RACE_POLL_SECONDS if race is not None else ctx.liveness.interval)
                 continue
             break
         started = time.time()

@@ -1,0 +1,138 @@
+"""The racing rule (analysis/race.py) on synthetic evidence (invented data, for tests only):
+a hand-worked round, Holm against statsmodels and by hand, the bound against scipy, and the
+promise that racing never retires the plan the full sweep recommends."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy import stats
+from statsmodels.stats.multitest import multipletests
+
+from kablate.analysis.decide import decide
+from kablate.analysis.evidence import Evidence
+from kablate.analysis.race import compare_pairs, retirements
+
+
+def evidence_of(correct: dict[str, np.ndarray]) -> Evidence:
+    """Evidence from (seeds, images) correctness arrays; labels are all 0."""
+    names = tuple(correct)
+    stacked = np.stack([correct[n] for n in names]).astype(bool)
+    n_seeds, n_images = stacked.shape[1:]
+    predicted = np.where(stacked, 0, 1)
+    return Evidence(names, tuple(range(n_seeds)), stacked, predicted, np.zeros(n_images, int))
+
+
+def first_right(n_right: int, n_images: int = 200, n_seeds: int = 1) -> np.ndarray:
+    """The first ``n_right`` images right on every seed, the rest wrong."""
+    row = np.arange(n_images) < n_right
+    return np.tile(row, (n_seeds, 1))
+
+
+def test_hand_worked_round():
+    # 200 images, one seed, 1 pp margin. "cheap" (cost 5) and "base" (cost 10) get 180 right;
+    # "blind" (cost 10) gets 60 right, a subset of theirs: 120 discordant images, all against
+    # it, 60 pp behind; its upper bound is near −60 + 1.645 × √(0.6 × 0.4 / 200) ≈ −54 pp
+    # (normal approximation to the resampled count), and no resample comes near −1 pp: p = 0.
+    # "near" (cost 12) gets 179 right: 1 image behind, worked out below.
+    # "base" is worse than nothing cheaper and is never retired anyway.
+    ev = evidence_of(
+        {
+            "base": first_right(180),
+            "cheap": first_right(180),
+            "blind": first_right(60),
+            "near": first_right(179),
+        }
+    )
+    costs = {"base": 10, "cheap": 5, "blind": 10, "near": 12}
+    out = retirements(ev, costs, "base", 0.01, n_resamples=2000)
+    assert set(out) == {"blind"}
+    # Two dominators with p = 0: the cheaper one is named.
+    assert out["blind"].by == "cheap"
+    assert out["blind"].diff == pytest.approx(-0.6)
+    assert out["blind"].upper == pytest.approx(-0.6 + 1.645 * np.sqrt(0.24 / 200), abs=0.01)
+    assert out["blind"].p_holm == 0.0
+    pairs = {(d.name, d.by): d for d in compare_pairs(ev, costs, "base", 0.01, 2000)}
+    # Pairs tested: w costs no more than v, v not the baseline; the baseline is a dominator.
+    assert set(pairs) == {
+        ("blind", "base"),
+        ("blind", "cheap"),
+        ("near", "base"),
+        ("near", "cheap"),
+        ("near", "blind"),
+    }
+    # near vs cheap: 1 discordant image of 200; d ≥ −1 pp unless the draw holds it 3+ times
+    # (Binomial(200, 1/200) ≥ 3: 1 − P(≤ 2) ≈ 0.080), so p ≈ 0.92, Holm keeps it in.
+    expected = 1 - stats.binom.sf(2, 200, 1 / 200)
+    assert pairs[("near", "cheap")].p_value == pytest.approx(expected, abs=0.03)
+    assert not pairs[("near", "cheap")].retires
+
+
+def test_a_wider_margin_keeps_a_variant_that_a_narrow_one_retires():
+    # "worse" is 10 images of 200 behind (5 pp). The resampled count of those images is
+    # Binomial(200, 0.05): at a 1 pp margin p = P(count ≤ 2) ≈ 0.002 (retired); at 8 pp,
+    # P(count ≤ 16) ≈ 0.99 (kept).
+    ev = evidence_of({"base": first_right(190), "worse": first_right(180)})
+    costs = {"base": 10, "worse": 10}
+    (pair,) = compare_pairs(ev, costs, "base", 0.01, 4000)
+    assert pair.p_value == pytest.approx(stats.binom.cdf(2, 200, 0.05), abs=0.003)
+    assert set(retirements(ev, costs, "base", 0.01, 4000)) == {"worse"}
+    assert retirements(ev, costs, "base", 0.08, 4000) == {}
+
+
+def test_holm_adjustment_matches_statsmodels_and_the_hand_formula():
+    # Holm 1979: sort the m p-values, multiply the i-th smallest by (m − i), take running
+    # maxima, cap at 1. statsmodels.stats.multitest.multipletests is the reference library.
+    rng = np.random.default_rng(7)
+    truth = (0.9, 0.88, 0.8, 0.9, 0.7)
+    correct = {n: rng.random((2, 150)) < p for n, p in zip("abcde", truth, strict=True)}
+    costs = {"a": 5, "b": 4, "c": 6, "d": 3, "e": 7}
+    pairs = compare_pairs(evidence_of(correct), costs, "a", 0.01, 1000)
+    p = np.array([d.p_value for d in pairs])
+    reference = multipletests(p, method="holm")[1]
+    np.testing.assert_allclose([d.p_holm for d in pairs], reference)
+    order = np.argsort(p)
+    m = len(p)
+    by_hand = np.minimum(1, np.maximum.accumulate(p[order] * (m - np.arange(m))))
+    np.testing.assert_allclose(np.array([d.p_holm for d in pairs])[order], by_hand)
+
+
+def test_upper_bound_agrees_with_scipy_bootstrap_on_one_seed():
+    # With one seed the two-level bootstrap is the paired bootstrap of the per-image
+    # differences; scipy.stats.bootstrap (percentile, one-sided "less") is the reference.
+    rng = np.random.default_rng(3)
+    a = rng.random((1, 400)) < 0.85
+    b = a.copy()
+    flip = rng.random(400) < 0.1
+    b[0, flip] = ~b[0, flip]
+    ev = evidence_of({"base": a, "other": b})
+    (pair,) = compare_pairs(ev, {"base": 1, "other": 2}, "base", 0.01, 20000)
+    per_image = b[0].astype(float) - a[0].astype(float)
+    ref = stats.bootstrap(
+        (per_image,),
+        np.mean,
+        n_resamples=20000,
+        method="percentile",
+        alternative="less",
+        random_state=1,
+    )
+    assert pair.upper == pytest.approx(ref.confidence_interval.high, abs=0.006)
+
+
+@pytest.mark.parametrize("world", range(6))
+def test_never_retires_what_the_full_sweep_recommends(world):
+    # Known ground truth: each variant's true accuracy and cost; 3 seeds × 300 images. Racing
+    # on seed 0 alone must not retire the plan the full sweep's margin rule recommends.
+    rng = np.random.default_rng(100 + world)
+    n_variants = 6
+    truth = rng.uniform(0.75, 0.95, n_variants)
+    costs = {f"v{i}": float(c) for i, c in enumerate(rng.integers(1, 10, n_variants))}
+    shared = rng.random((3, 300))  # common difficulty of each (seed, image): paired evidence
+    correct = {f"v{i}": shared < t for i, t in enumerate(truth)}
+    for name in correct:  # each variant also errs on a few images of its own
+        correct[name] = correct[name] ^ (rng.random((3, 300)) < 0.03)
+    ev = evidence_of(correct)
+    full = decide(ev, costs, "v0", margin=0.01, n_resamples=1000, leave_one_out=False)
+    retired = retirements(ev.without_seed(1).without_seed(2), costs, "v0", 0.01, 1000)
+    assert full.recommended not in retired
+    assert "v0" not in retired

@@ -1,0 +1,115 @@
+"""Racing over seeds end to end (trials/race.py): a plan that cannot see retires after seed 0,
+the decision equals the full sweep's, and a resumed race never trains a retired variant.
+
+The "blind" plan is our own construction: every 3×3 kernel dilated by 8 on 8×8 digits, so each
+off-centre tap of every conv lands in the zero padding (PyTorch's Conv2d output formula with
+padding 8: the taps sit at offsets ±8) and the network sees one pixel at a time before the
+global pool. It costs the MACs of all-3 (its taps are counted) and stays near chance.
+"""
+
+from __future__ import annotations
+
+import csv
+
+import pytest
+
+from kablate.report import write_report
+from kablate.trials import RunOptions, open_results, run_sweep
+from kablate.trials.jobs import order_jobs
+from kablate.trials.queue import RETIRED, enqueue_missing, job_status, tagged_trials
+from kablate.trials.race import read_rounds
+from kablate.trials.store import open_study
+from tests.conftest import write_sweep
+
+RACE_SWEEP = """
+[sweep]
+name = "{name}"
+seeds = {seeds}
+racing = "{racing}"
+
+[data]
+source = "digits"
+train_size = 400
+val_size = 200
+test_size = 100
+
+[network]
+from = "configs/tiny-net.toml"
+
+[recipe]
+from = "configs/tiny-recipe.toml"
+epochs = 4  # all-3 reaches about 60% on digits, far from the blind plan's chance level
+
+[[plan]]
+name = "all-3"
+body = "3"
+
+[[plan]]
+name = "stem-5"
+stem = "5"
+
+[[plan]]
+name = "blind"
+stem = "3d8"
+body = "3d8"
+"""
+
+
+def sweep_file(folder, name, racing, seeds="[0, 1]"):
+    return write_sweep(folder, RACE_SWEEP.format(name=name, racing=racing, seeds=seeds), name)
+
+
+def table(path):
+    with path.open() as fh:
+        return {r["variant"]: r for r in csv.DictReader(fh)}
+
+
+@pytest.mark.slow
+def test_race_retires_the_blind_plan_and_decides_as_the_full_sweep(tmp_path):
+    opts = RunOptions(results_root=tmp_path / "results", workers=1, show_progress=False)
+    raced = run_sweep(sweep_file(tmp_path, "raced", "on"), opts)
+    full = run_sweep(sweep_file(tmp_path, "full", "off"), opts)
+    assert full.counts == {"done": 6}
+    assert raced.counts.get(RETIRED, 0) >= 1 and raced.n_ran == raced.counts["done"] < 6
+    cards = [write_report(open_results(s.results_dir), with_erf=False) for s in (raced, full)]
+    ours, theirs = (table(s.results_dir / "variants.csv") for s in (raced, full))
+    assert ours["blind"]["retired_after"] == "0"
+    assert ours["blind"]["n_seeds"] == "1"
+    assert ours["blind"]["retired_by"] in ("all-3", "stem-5")
+    assert float(ours["blind"]["retired_bound"]) < -0.01  # its upper bound lies below −margin
+    assert ours["all-3"]["retired_after"] == ""  # the baseline is never retired
+    assert not any(r["retired_after"] for r in theirs.values())
+    pick = {name for name, r in ours.items() if r["recommended"] == "True"}
+    assert pick == {name for name, r in theirs.items() if r["recommended"] == "True"}
+    # The retired plan's interval comes from its own seed: present, and wider than on 2 seeds.
+    assert float(ours["blind"]["val_acc_ci_low"]) <= float(ours["blind"]["val_acc_mean"])
+    rows = table(raced.results_dir / "trials.csv")
+    assert rows["blind"]["status"] == RETIRED  # its seed 1 (the last row of the variant)
+    text = cards[0].read_text()
+    assert "#### Racing over seeds" in text and "Known bias" in text
+    assert "#### Racing over seeds" not in cards[1].read_text()
+
+
+@pytest.mark.slow
+def test_a_resumed_race_never_trains_a_retired_variant(tmp_path):
+    opts = RunOptions(results_root=tmp_path / "results", workers=1, show_progress=False)
+    first = run_sweep(sweep_file(tmp_path, "resumed", "on", seeds="[0]"), opts)
+    assert first.counts == {"done": 3}
+    folder = open_results(first.results_dir)
+    rounds = read_rounds(folder.study)
+    retired = set(rounds[0]["retired"])
+    names = {v["id"]: v["name"] for v in folder.plan["variants"]}
+    assert "blind" in {names[v] for v in retired}
+    # As if an earlier run without racing had queued every job of two seeds: the retired
+    # variants' waiting trials must be withdrawn, not trained.
+    writable = open_study("resumed", first.results_dir, None)
+    enqueue_missing(writable, order_jobs(list(names.items()), (0, 1)))
+    second = run_sweep(sweep_file(tmp_path, "resumed", "on", seeds="[0, 1]"), opts)
+    by_job = tagged_trials(open_results(second.results_dir).study)
+    for vid in names:
+        status, trial = job_status(by_job[f"{vid}-s1"])
+        if vid in retired:
+            assert status == RETIRED and "val_acc" not in trial.user_attrs
+        else:
+            assert status == "done"
+    assert second.n_ran == len(names) - len(retired)
