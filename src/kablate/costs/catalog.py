@@ -71,7 +71,12 @@ def build_catalog(
         in_shape, n_classes = describe_source(sweep.data)
         check_splits(sweep.data)
     check_input_bounds(sweep, in_shape)
-    model = UserModel.load(sweep, in_shape, n_classes) if sweep.model else None
+    model = None
+    if sweep.model is not None:
+        try:
+            model = UserModel.load(sweep, in_shape, n_classes)
+        except UsageError as exc:  # also PlanError: name the sweep file, as every error does
+            raise type(exc)(f"{sweep.source}: {exc}") from None
     variants = expand_plans(sweep, model.sites if model else None)
     base_name = pick_baseline(sweep, variants).name  # before merging: an all-3×3 spec wins
     costed: list[CostedVariant] = []
