@@ -7,6 +7,7 @@ from pathlib import Path
 
 from kablate import __version__
 from kablate.analysis.summary import Analysis, analyze, pick_settings
+from kablate.console import step
 from kablate.errors import KablateError
 from kablate.report.card import PLOT_CAPTIONS, CardContext, render_card
 from kablate.report.plots import (
@@ -161,9 +162,12 @@ def write_report(
         The path of the Markdown file.
     """
     pick = pick or pick_settings(folder.meta)
+    step("report", f"reading the trials of {folder.name}")
     rows, curves = folder.rows()
     data = read_json(folder.path / DATA_FILE)
+    step("report", "analysing the finished trials (paired bootstrap over seeds and images)")
     analysis = analyze(rows, curves, folder.plan, folder.meta.get("grids", []), data, pick)
+    step("report", "writing the tables (trials, variants, curves, predictions)")
     if out is None:
         hint = "; give --out DIR to write the report elsewhere"
         write_tables(writable_folder(folder.path, "results folder", hint), analysis, data)
@@ -173,6 +177,7 @@ def write_report(
     if with_erf:
         from kablate.report.trained import erf_maps
 
+        step("report", "effective receptive field maps (loading checkpoints)")
         try:
             analysis.erf, analysis.erf_note = erf_maps(folder, analysis, data)
         except Exception as exc:  # the maps are an extra: never lose the report over them
@@ -180,7 +185,9 @@ def write_report(
             analysis.erf, analysis.erf_note = [], note.splitlines()[0] if note else "failed"
     else:
         analysis.erf_note = "skipped on request"
+    step("report", "drawing the plots")
     plots = draw_plots(analysis, out, subtitle(folder.meta, data))
+    step("report", "writing the model card")
     ctx = CardContext(
         folder.meta,
         data,
