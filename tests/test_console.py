@@ -18,7 +18,7 @@ from pathlib import Path
 
 import pytest
 
-from kablate.console import PULSE_ENV, Steps, pulse_seconds, step
+from kablate.console import PULSE_ENV, PULSE_SECONDS, Steps, pulse_seconds, step
 from tests.conftest import TINY_SWEEP, write_sweep
 
 STAMP = re.compile(r"^\d{4}-\d\d-\d\d \d\d:\d\d:\d\d INFO ")
@@ -57,7 +57,7 @@ def test_the_period_comes_from_the_environment(monkeypatch):
     assert pulse_seconds() == 0.5
     for bad in ("", "0", "-1", "soon"):
         monkeypatch.setenv(PULSE_ENV, bad)
-        assert pulse_seconds() == 8.0
+        assert pulse_seconds() == PULSE_SECONDS
 
 
 def test_a_silent_step_says_it_is_still_going(lines):
