@@ -51,7 +51,7 @@ class RunLogHandler(logging.FileHandler):
 
 def setup_logging(results_dir: Path, to_console: bool, steps_on_console: bool = False) -> None:
     """run.log in ``results_dir``, and the console: every line (``to_console``), only the
-    steps (`console.say`; ``steps_on_console``, for a terminal with a progress bar), or none
+    steps (`console.step`; ``steps_on_console``, for a terminal with a progress bar), or none
     (worker processes)."""
     logger = logging.getLogger("kablate")
     logger.setLevel(logging.INFO)
