@@ -15,6 +15,7 @@ from pathlib import Path
 import click
 
 from kablate import __version__
+from kablate.console import Steps, show_steps, step
 from kablate.errors import EXIT_STOPPED, DiskFullError, KablateError, UsageError, is_disk_full
 from kablate.spec.costs import COST_NAMES
 
@@ -279,6 +280,14 @@ def plan_one_model(
             click.echo(f"note: {note}", err=True)
 
 
+def speaking(imports: str) -> Steps:
+    """A command's `console.Steps`: its step lines on the console from the first one (before the
+    heavy imports: those alone take seconds), and a line after every silence."""
+    show_steps()
+    step("start-up", f"loading {imports}")
+    return Steps()
+
+
 @main.command(epilog=EPILOG_RUN)
 @click.argument("sweep", type=click.Path(path_type=Path))
 @click.option(
@@ -338,47 +347,50 @@ def run(
     no_report: bool,
 ) -> None:
     """Train every (variant, seed) trial of a sweep, then write the report."""
-    from kablate.report.build import write_report
-    from kablate.trials.outcome import verdict
-    from kablate.trials.results import open_results
-    from kablate.trials.runner import RunOptions, run_sweep
+    with speaking("torch, pandas and matplotlib"):
+        from kablate.report.build import write_report
+        from kablate.trials.outcome import verdict
+        from kablate.trials.results import open_results
+        from kablate.trials.runner import RunOptions, run_sweep
 
-    started()
-    opts = RunOptions(
-        results_root=results_root,
-        storage=storage,
-        workers=workers or 0,
-        threads=threads or 0,
-        device=device,
-        budget_seconds=parse_duration(budget) if budget else 0.0,
-        dry_run=dry_run,
-        command="kablate " + " ".join(shlex.quote(a) for a in sys.argv[1:]),
-        echo=click.echo,
-    )
-    start = time.time()
-    summary = run_sweep(sweep, opts)
-    if dry_run:
-        return
-    code, why = verdict(summary)
-    counts = ", ".join(f"{n} {s}" for s, n in sorted(summary.counts.items()))
-    if summary.n_to_run == 0:
-        click.echo(
-            f"nothing new to train: all {summary.n_jobs} trials were already finished ({counts})"
+        started()
+        opts = RunOptions(
+            results_root=results_root,
+            storage=storage,
+            workers=workers or 0,
+            threads=threads or 0,
+            device=device,
+            budget_seconds=parse_duration(budget) if budget else 0.0,
+            dry_run=dry_run,
+            command="kablate " + " ".join(shlex.quote(a) for a in sys.argv[1:]),
+            echo=click.echo,
         )
-    elif counts:
-        click.echo(f"ran {summary.n_ran} trials in {time.time() - start:.0f}s; sweep now: {counts}")
-    if code == EXIT_STOPPED:
-        click.echo(
-            "stopped: the interrupted trials are back in the queue and resume from their last "
-            f"epoch checkpoint. Resume with the same command: {opts.command}",
-            err=True,
-        )
-    if not no_report and code != EXIT_STOPPED and summary.counts.get("done"):
-        path = write_report(open_results(summary.results_dir, storage))
-        click.echo(f"report: {path}")
-    if why:
-        click.echo(f"error: {why}", err=True)
-    sys.exit(code)
+        start = time.time()
+        summary = run_sweep(sweep, opts)
+        if dry_run:
+            return
+        code, why = verdict(summary)
+        counts = ", ".join(f"{n} {s}" for s, n in sorted(summary.counts.items()))
+        if summary.n_to_run == 0:
+            click.echo(
+                f"nothing new to train: all {summary.n_jobs} trials were already finished "
+                f"({counts})"
+            )
+        elif counts:
+            took = time.time() - start
+            click.echo(f"ran {summary.n_ran} trials in {took:.0f}s; sweep now: {counts}")
+        if code == EXIT_STOPPED:
+            click.echo(
+                "stopped: the interrupted trials are back in the queue and resume from their last "
+                f"epoch checkpoint. Resume with the same command: {opts.command}",
+                err=True,
+            )
+        if not no_report and code != EXIT_STOPPED and summary.counts.get("done"):
+            path = write_report(open_results(summary.results_dir, storage))
+            click.echo(f"report: {path}")
+        if why:
+            click.echo(f"error: {why}", err=True)
+        sys.exit(code)
 
 
 @main.command(epilog=EPILOG_STATUS)
@@ -464,14 +476,15 @@ def report(
     no_erf: bool,
 ) -> None:
     """Rebuild the tables, plots and model-card section of a results folder."""
-    from kablate.analysis.summary import pick_settings
-    from kablate.report.build import write_report
-    from kablate.trials.results import open_results
+    with speaking("pandas, statsmodels and matplotlib"):
+        from kablate.analysis.summary import pick_settings
+        from kablate.report.build import write_report
+        from kablate.trials.results import open_results
 
-    started()
-    folder = open_results(results, storage)
-    pick = pick_settings(folder.meta, rule=rule, margin=margin, cost=cost, within_se=within_se)
-    path = write_report(folder, out, pick, not no_erf)
+        started()
+        folder = open_results(results, storage)
+        pick = pick_settings(folder.meta, rule=rule, margin=margin, cost=cost, within_se=within_se)
+        path = write_report(folder, out, pick, not no_erf)
     click.echo(f"report: {path}")
 
 

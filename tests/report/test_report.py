@@ -141,6 +141,25 @@ def test_rebuilding_gives_the_same_markdown_apart_from_the_timestamp(results, tm
 
 
 @pytest.mark.slow
+def test_the_report_command_says_each_step_in_order(results, tmp_path):
+    out = CliRunner().invoke(main, ["report", str(results), "--out", str(tmp_path / "card")])
+    assert out.exit_code == 0, out.output
+    said = [re.sub(r"^\S+ \S+ INFO ", "", line) for line in out.stderr.splitlines()]
+    steps = [
+        "start-up: loading pandas",
+        "report: reading the trials of tiny",
+        "report: analysing",
+        "report: writing the tables",
+        "report: effective receptive field maps",
+        "report: drawing the plots",
+        "report: writing the model card",
+    ]
+    where = [next(i for i, line in enumerate(said) if line.startswith(s)) for s in steps]
+    assert where == sorted(where), said
+    assert out.stdout.strip() == f"report: {tmp_path / 'card' / 'model_card.md'}"
+
+
+@pytest.mark.slow
 def test_no_password_or_home_path_is_written(results, tmp_path):
     copy = tmp_path / "copy"
     shutil.copytree(results, copy)

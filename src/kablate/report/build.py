@@ -10,6 +10,7 @@ import numpy as np
 from kablate import __version__
 from kablate.analysis.race import RETIRED_COLUMNS
 from kablate.analysis.summary import Analysis, analyze, pick_settings
+from kablate.console import step
 from kablate.errors import KablateError
 from kablate.report.card import PLOT_CAPTIONS, CardContext, render_card
 from kablate.report.erf_plots import plot_effective_rf
@@ -199,10 +200,13 @@ def write_report(
         The path of the Markdown file.
     """
     pick = pick or pick_settings(folder.meta)
+    step("report", f"reading the trials of {folder.name}")
     rows, curves = folder.rows()
     data = read_json(folder.path / DATA_FILE)
+    step("report", "analysing the finished trials (paired bootstrap over seeds and images)")
     analysis = analyze(rows, curves, folder.plan, folder.meta.get("grids", []), data, pick)
     analysis.race = race_summary(folder.study)
+    step("report", "writing the tables (trials, variants, curves, predictions)")
     if out is None:
         hint = "; give --out DIR to write the report elsewhere"
         tables = writable_folder(folder.path, "results folder", hint)
@@ -213,14 +217,18 @@ def write_report(
     if with_erf:
         from kablate.report.trained import erf_maps
 
+        step("report", "effective receptive field maps (loading checkpoints)")
         analysis.erf, analysis.erf_note = guarded(lambda: erf_maps(folder, analysis, data), [])
     else:
         analysis.erf_note = "skipped on request"
     from kablate.report.stem_weights import stem_atlas
 
+    step("report", "what the stem learned (loading checkpoints)")
     analysis.stem, analysis.stem_note = guarded(lambda: stem_atlas(folder, analysis), None)
     write_stem_tables(tables, out, analysis)
+    step("report", "drawing the plots")
     plots = draw_plots(analysis, out, subtitle(folder.meta, data))
+    step("report", "writing the model card")
     ctx = CardContext(
         folder.meta,
         data,

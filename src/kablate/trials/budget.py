@@ -22,6 +22,7 @@ from pathlib import Path
 import torch
 import torch.nn.functional as F
 
+from kablate.console import step
 from kablate.costs.catalog import Catalog
 from kablate.data.batches import train_batches
 from kablate.data.prepare import PreparedData
@@ -82,13 +83,21 @@ def calibrate(catalog: Catalog, data: PreparedData, threads: int) -> dict[str, C
     n_steps, n_epochs = trial_steps(len(data.train.labels), recipe)
     out = {}
     # The first model a process trains pays one-off set-up costs: time it once, unrecorded.
+    n = len(catalog.variants)
+    step(
+        "calibration",
+        f"timing {N_TIMED} training steps, a validation pass and a checkpoint of each of {n} "
+        "variants",
+    )
     with tempfile.TemporaryDirectory(prefix="kablate-calibrate-") as tmp:
-        for item in catalog.variants[:1] + catalog.variants:
+        for i, item in enumerate(catalog.variants[:1] + catalog.variants):
+            if i:  # the first pass only warms up
+                step("calibration", f"variant {i}/{n}: {item.name}")
             torch.manual_seed(0)
             model = build_network(item.blueprint).to(memory_format=torch.channels_last)
             optimizer = make_optimizer(model, recipe)
             times = time_steps(model, optimizer, data, recipe, N_WARMUP + N_TIMED)
-            step = statistics.median(times[N_WARMUP:])
+            step_seconds = statistics.median(times[N_WARMUP:])
             start = time.perf_counter()
             evaluate(model, data.val)
             val_seconds = time.perf_counter() - start
@@ -97,9 +106,9 @@ def calibrate(catalog: Catalog, data: PreparedData, threads: int) -> dict[str, C
             save_checkpoint(Path(tmp) / "c.pt", dict(state, best_state=model.state_dict()))
             ckpt_seconds = time.perf_counter() - start
             test_seconds = val_seconds * len(data.test.labels) / max(1, len(data.val.labels))
-            trial = n_steps * step + n_epochs * (val_seconds + ckpt_seconds) + test_seconds
+            trial = n_steps * step_seconds + n_epochs * (val_seconds + ckpt_seconds) + test_seconds
             out[item.variant.id] = Calibration(
-                item.variant.id, step, val_seconds, ckpt_seconds, trial
+                item.variant.id, step_seconds, val_seconds, ckpt_seconds, trial
             )
     return out
 

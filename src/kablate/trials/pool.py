@@ -14,29 +14,30 @@ import os
 import signal
 import socket
 import sys
+import threading
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from datetime import datetime
 from pathlib import Path
 
+from optuna.trial import FrozenTrial, TrialState
 from tqdm import tqdm
 
+from kablate.console import LOG_DATE_FORMAT, LOG_FORMAT, Steps, console_handler
 from kablate.costs.catalog import build_catalog
 from kablate.data.prepare import prepare_data
 from kablate.errors import EXIT_DISK_FULL, EXIT_STOPPED, DiskFullError, is_disk_full
 from kablate.spec.loader import load_sweep
+from kablate.trials.eta import eta_seconds
 from kablate.trials.export import collect_trials
 from kablate.trials.jobs import sweep_jobs
 from kablate.trials.liveness import liveness_for
-from kablate.trials.status import duration, summarize
+from kablate.trials.status import duration
 from kablate.trials.store import lock_dir, open_study
 from kablate.trials.worker import WorkerContext, work
 
 log = logging.getLogger("kablate")
-
-
-FILE_ONLY = "file_only"  # a log record with this extra set to True skips the console
 
 
 class RunLogHandler(logging.FileHandler):
@@ -48,21 +49,20 @@ class RunLogHandler(logging.FileHandler):
             super().handleError(record)
 
 
-def setup_logging(results_dir: Path, to_console: bool) -> None:
+def setup_logging(results_dir: Path, to_console: bool, steps_on_console: bool = False) -> None:
+    """run.log in ``results_dir``, and the console: every line (``to_console``), only the
+    steps (`console.step`; ``steps_on_console``, for a terminal with a progress bar), or none
+    (worker processes)."""
     logger = logging.getLogger("kablate")
     logger.setLevel(logging.INFO)
     for handler in list(logger.handlers):
         logger.removeHandler(handler)
-    fmt = logging.Formatter("%(asctime)s %(levelname)s %(message)s", "%Y-%m-%d %H:%M:%S")
     results_dir.mkdir(parents=True, exist_ok=True)
     file_handler = RunLogHandler(results_dir / "run.log")
-    file_handler.setFormatter(fmt)
+    file_handler.setFormatter(logging.Formatter(LOG_FORMAT, LOG_DATE_FORMAT))
     logger.addHandler(file_handler)
-    if to_console:
-        console = logging.StreamHandler(sys.stderr)
-        console.setFormatter(fmt)
-        console.addFilter(lambda record: not getattr(record, FILE_ONLY, False))
-        logger.addHandler(console)
+    if to_console or steps_on_console:
+        logger.addHandler(console_handler(steps_only=not to_console))
     logger.propagate = False
 
 
@@ -142,11 +142,37 @@ def _worker_main(
         sys.exit(EXIT_DISK_FULL)
 
 
-class Progress:
-    """A tqdm bar on a terminal; otherwise a timestamped log line whenever a trial finishes."""
+# tqdm's default bar without its own remaining time and rate: the ETA shown is kablate's.
+BAR_FORMAT = "{desc}: {percentage:3.0f}%|{bar}| {n_fmt}/{total_fmt} [{elapsed} elapsed{postfix}]"
 
-    def __init__(self, total: int, initial: int, interactive: bool) -> None:
+
+class Progress:
+    """The sweep's progress: a tqdm bar on a terminal, otherwise a timestamped log line whenever
+    a trial finishes and after every silence (`console.Steps`); one ETA (eta.py) in both.
+
+    Args:
+        predicted: job key → the calibration's predicted seconds, for every job of the sweep.
+        n_workers: the run's workers.
+        since: the run's start, naive local time like Optuna's: trials claimed after it are
+            this run's, and their times correct the predictions.
+    """
+
+    def __init__(
+        self,
+        total: int,
+        initial: int,
+        interactive: bool,
+        predicted: dict[str, float] | None = None,
+        n_workers: int = 1,
+        since: datetime | None = None,
+    ) -> None:
         self.total, self.n = total, initial
+        self.predicted, self.n_workers = predicted or {}, n_workers
+        self.since = since or datetime.now()
+        self.measured: dict[str, float] = {}  # this run's finished trials: seconds
+        self.done: set[str] = set()
+        self.started: dict[str, datetime] = {}  # running trials: claimed at
+        self.lock = threading.Lock()
         self.bar = tqdm(
             total=total,
             initial=initial,
@@ -154,18 +180,73 @@ class Progress:
             disable=not interactive,
             dynamic_ncols=True,
             desc="trials",
+            bar_format=BAR_FORMAT,
         )
 
-    def update(self, n_finished: int, status=None) -> None:
+    def observe(self, trials: list[FrozenTrial]) -> None:
+        """Take the finished and running trials from the study's ``trials``."""
+        measured, done, started = {}, set(), {}
+        for t in trials:
+            key = t.user_attrs.get("job")
+            if key is None:
+                continue
+            diverged = t.user_attrs.get("outcome") == "diverged"
+            if t.state == TrialState.COMPLETE or diverged:
+                done.add(key)
+                # A diverged trial stops early: its time says nothing of the others'.
+                if not diverged and t.datetime_start and t.datetime_start >= self.since:
+                    measured[key] = (t.datetime_complete - t.datetime_start).total_seconds()
+            elif t.state == TrialState.RUNNING and t.datetime_start:
+                started[key] = t.datetime_start
+        with self.lock:
+            self.measured, self.done, self.started = measured, done, started
+
+    def eta(self) -> float | None:
+        now = datetime.now()
+        with self.lock:
+            running = {k: (now - t).total_seconds() for k, t in self.started.items()}
+            return eta_seconds(self.predicted, self.measured, self.done, running, self.n_workers)
+
+    def line(self) -> str:
+        """'progress: 3/15 trials finished, 2 running, ETA 1m10s'; sets the bar's ETA too.
+
+        Before this run's first trial is claimed the workers are still starting (imports,
+        data), which the ETA does not cover: the line says so instead of giving one.
+        """
+        text = f"progress: {self.n}/{self.total} trials finished"
+        with self.lock:
+            starting = not self.started and not self.measured
+            if self.started:
+                text += f", {len(self.started)} running"
+        if self.n >= self.total:
+            return text
+        if starting:
+            return text + "; the workers are starting"
+        eta = self.eta()
+        if eta is not None:
+            text += f", ETA {duration(eta)}"
+            self.bar.set_postfix_str(f"ETA {duration(eta)}", refresh=True)
+        return text
+
+    def update(self, n_finished: int) -> None:
         if n_finished == self.n:
             return
         self.bar.update(n_finished - self.n)
         self.n = n_finished
-        eta = ""
-        if status is not None and status.eta_seconds:
-            eta = f", ETA {duration(status.eta_seconds)}"
-            self.bar.set_postfix_str(f"ETA {duration(status.eta_seconds)}", refresh=True)
-        log.info("progress: %d/%d trials finished%s", self.n, self.total, eta)
+        log.info("%s", self.line())
+
+    def pulse(self, trials: Callable[[], list[FrozenTrial]]) -> Callable[[], str]:
+        """What `console.Steps` logs after a silence while trials run: fresh trials, the line."""
+
+        def line() -> str:
+            if self.n >= self.total:
+                return "sweep: every trial has finished; the workers are exiting"
+            self.observe(trials())
+            text = self.line()
+            self.bar.refresh()  # its elapsed time moves on a terminal too
+            return text
+
+        return line
 
     def close(self) -> None:
         self.bar.close()
@@ -196,6 +277,8 @@ def run_workers(sweep_path, results_dir, opts, url, layout, deadline, seconds, s
 
     stop = StopFlag(forward if workers > 1 else None)
     stop.install()
+    pulse = progress.pulse(lambda: study.get_trials(deepcopy=False))
+    ticker = Steps(pulse, on_terminal=False).start()
     try:
         if workers == 1:
             ctx = WorkerContext(
@@ -215,6 +298,7 @@ def run_workers(sweep_path, results_dir, opts, url, layout, deadline, seconds, s
             def on_finish(key: str, status: str) -> None:
                 rows, _ = collect_trials(study, plan)
                 counts = [r["status"] for r in rows]
+                progress.observe(study.get_trials(deepcopy=False))
                 progress.update(counts.count("done") + counts.count("diverged"))
 
             outcome.worker_names.add(ctx.worker_name)
@@ -242,6 +326,7 @@ def run_workers(sweep_path, results_dir, opts, url, layout, deadline, seconds, s
                 proc.kill()
         stop.stopped = True
     finally:
+        ticker.close()
         for proc in procs:
             proc.join()
         progress.close()
@@ -288,8 +373,8 @@ def supervise(procs, args, workers, stop, state) -> None:
         statuses = [r["status"] for r in rows]
         finished = statuses.count("done") + statuses.count("diverged")
         if finished != progress.n:
-            status = summarize("", rows, study.get_trials(deepcopy=False), datetime.now(), {})
-            progress.update(finished, status)
+            progress.observe(study.get_trials(deepcopy=False))
+            progress.update(finished)
         for proc in [p for p in procs if not p.is_alive() and p.exitcode not in (0, EXIT_STOPPED)]:
             procs.remove(proc)
             proc.join()

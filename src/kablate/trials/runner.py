@@ -16,6 +16,7 @@ from datetime import datetime
 from pathlib import Path
 
 from kablate.analysis.power import plan_note
+from kablate.console import FILE_ONLY, step
 from kablate.costs.catalog import Catalog, build_catalog, measure_latencies
 from kablate.costs.export import variant_json
 from kablate.data.prepare import prepare_data
@@ -30,7 +31,7 @@ from kablate.trials.jobs import Job, sweep_jobs
 from kablate.trials.liveness import liveness_for
 from kablate.trials.meta import check_definition, definition, fingerprint, write_json
 from kablate.trials.outcome import FINISHED, failure_reasons, own_counts
-from kablate.trials.pool import FILE_ONLY, Progress, run_workers, setup_logging
+from kablate.trials.pool import Progress, run_workers, setup_logging
 from kablate.trials.preflight import run_preflight, writable_folder
 from kablate.trials.queue import enqueue_missing, job_status, tagged_trials
 from kablate.trials.race import start_race
@@ -183,6 +184,7 @@ def estimate(
     set-up before it) and, for worker processes, their own start-up. That start-up repeats
     this process's (imports, sweep, data: its CPU time so far) plus torch's warm-up.
     """
+    step("calibration", "warming torch up")
     before = time.process_time()
     clock = time.perf_counter()
     warm_up(catalog.sweep.recipe)
@@ -204,8 +206,18 @@ def estimate(
     return seconds, text
 
 
+def brief(text: str) -> str:
+    """The estimate's first line, and how it was made (a run without --budget prints this)."""
+    return (
+        text.splitlines()[0] + "\n(from timing a few training steps of each variant on this "
+        "machine; while trials run, the ETA corrects it by their measured times; run.log and "
+        "`--dry-run` list the order)"
+    )
+
+
 def dry_run(sweep_path: Path, opts: RunOptions) -> RunSummary:
     """Calibrate and print the estimate and order without training or writing results."""
+    step("start-up", f"reading {sweep_path} and costing its variants")
     sweep = load_sweep(sweep_path)
     catalog = build_catalog(sweep)
     results_dir = opts.results_root / sweep.name
@@ -229,6 +241,7 @@ def dry_run(sweep_path: Path, opts: RunOptions) -> RunSummary:
         summary = RunSummary(results_dir, len(jobs), 0, 0, layout=layout, estimate=text)
         summary.counts = {"done": len(done)}
         return summary
+    step("start-up", f"preparing the data ({sweep.data.source}) and the preflight")
     data = prepare_data(sweep.data)
     run_preflight(catalog, data, layout[0], opts.device)
     _, text = estimate(catalog, data, jobs, done, layout, opts.budget_seconds)
@@ -250,23 +263,29 @@ def run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
     if opts.dry_run:
         return dry_run(sweep_path, opts)
     started, started_at = time.time(), datetime.now()  # Optuna's trial times are naive local
+    step("start-up", f"reading {sweep_path} and costing its variants")
     sweep = load_sweep(sweep_path)
     catalog = build_catalog(sweep)
     results_dir = opts.results_root / sweep.name
     url = resolve_url(opts.storage)
     interactive = opts.show_progress and sys.stderr.isatty()
     writable_folder(results_dir, "results folder", "; choose another with --results DIR")
-    setup_logging(results_dir, to_console=not interactive)
+    setup_logging(results_dir, to_console=not interactive, steps_on_console=True)
     study = open_study(sweep.name, results_dir, url)
     jobs = sweep_jobs(catalog)
     layout = choose_layout(opts.workers, opts.threads, len(jobs))
+    step("start-up", f"preparing the data ({sweep.data.source})")
     data = prepare_data(sweep.data)
+    n_variants = len(catalog.variants)
+    step("start-up", f"preflight: memory, and one training step of each of {n_variants} variants")
     # Before the definition is recorded: a sweep refused here can be fixed and rerun as is.
     run_preflight(catalog, data, layout[0], opts.device)
     check_definition(study, sweep)
     # Latency once per variant, before training, on [target] (else at the workers' threads):
     # the report's fronts and `[pick] cost = "latency"` read it from there.
-    measure_latencies(catalog, threads=catalog.sweep.target.threads or layout[1])
+    threads = catalog.sweep.target.threads or layout[1]
+    step("start-up", f"measuring the latency of {n_variants} variants at {threads} thread(s)")
+    measure_latencies(catalog, threads=threads)
     write_manifest(results_dir, catalog, url, opts, layout)
     write_json(results_dir / DATA_FILE, data.manifest())
     plan = {
@@ -298,17 +317,18 @@ def run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
     summary = RunSummary(results_dir, len(jobs), n_new, 0, layout=layout, n_to_run=to_run)
     summary.budget_seconds = opts.budget_seconds
     seconds: dict[str, float] = {}
-    if to_run and opts.budget_seconds:
+    if to_run:  # with or without --budget: the estimate, and the predictions the ETA starts from
         done = finished_jobs(study, jobs)
         seconds, summary.estimate = estimate(
             catalog, data, jobs, done, layout, opts.budget_seconds, started
         )
         # Into run.log; on the console only through ``echo`` when there is one (not twice).
         log.info("%s", summary.estimate, extra={FILE_ONLY: opts.echo is not None})
-        if opts.echo:
-            opts.echo(summary.estimate)
+        if opts.echo:  # without --budget, the order is only in run.log
+            opts.echo(summary.estimate if opts.budget_seconds else brief(summary.estimate))
     if to_run:
         deadline = started + opts.budget_seconds if opts.budget_seconds else 0.0
+        step("sweep", f"training {to_run} trials on {layout[0]} worker(s)")
         pool = run_workers(
             sweep_path,
             results_dir,
@@ -318,7 +338,14 @@ def run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
             deadline,
             seconds,
             (catalog, data, study, liveness, plan, jobs),
-            Progress(len(jobs), n_finished, interactive),
+            Progress(
+                len(jobs),
+                n_finished,
+                interactive,
+                predicted={j.key: seconds.get(j.variant_id, 0.0) for j in jobs},
+                n_workers=layout[0],
+                since=started_at,
+            ),
         )
         own = own_counts(study, pool.worker_names, started_at)
         summary.n_ran = sum(own[s] for s in FINISHED)
@@ -331,6 +358,7 @@ def run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
     if summary.disk_full:  # the study is consistent; writing the tables may not fit
         summary.counts = {}
         return summary
+    step("sweep", "writing trials.csv and curves.csv")
     summary.counts = export_results(results_dir, study, plan)
     summary.failures = dict(failure_reasons(study, [j.key for j in jobs]))
     if summary.interrupted:

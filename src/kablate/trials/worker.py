@@ -23,6 +23,7 @@ from kablate.data.prepare import PreparedData
 from kablate.errors import DiskFullError, is_disk_full
 from kablate.train.loop import TrialInterrupted, train_trial
 from kablate.train.record import TrialRecord
+from kablate.trials.eta import time_ratio
 from kablate.trials.jobs import Job
 from kablate.trials.queue import Claim, claim_next, clean, next_waiting_key
 from kablate.trials.race import race_of_study
@@ -205,14 +206,13 @@ def work(ctx: WorkerContext, on_finish: Callable[[str, str], None] | None = None
     the queue empty decides the rounds it can and enqueues the next one; while a round still
     runs elsewhere it waits for it.
     """
-    n, ratios = 0, []
+    n, took, predictions = 0, {}, {}  # job key → seconds taken, predicted
     race = race_of_study(ctx.study, ctx.catalog, ctx.data.val.labels)
     while not (ctx.max_trials and n >= ctx.max_trials):
         if ctx.should_stop is not None and ctx.should_stop():
             break
         ctx.liveness.recover(ctx.study)
-        scale = sum(ratios) / len(ratios) if ratios else 1.0
-        if not fits_budget(ctx, scale):
+        if not fits_budget(ctx, time_ratio(took, predictions)):
             break
         claim = claim_next(ctx.study, ctx.liveness, ctx.order)
         if claim is None:
@@ -228,7 +228,7 @@ def work(ctx: WorkerContext, on_finish: Callable[[str, str], None] | None = None
         status = run_one(ctx, claim)
         predicted = (ctx.estimates or {}).get(variant_of(claim.key))
         if predicted:
-            ratios.append((time.time() - started) / predicted)
+            took[claim.key], predictions[claim.key] = time.time() - started, predicted
         n += 1
         if on_finish is not None:
             on_finish(claim.key, status)
