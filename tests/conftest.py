@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import re
 import textwrap
 from pathlib import Path
 
@@ -74,3 +75,16 @@ stem = "5"
 @pytest.fixture
 def tiny_sweep(tmp_path: Path) -> Path:
     return write_sweep(tmp_path, TINY_SWEEP)
+
+
+STEP_LINE = re.compile(r"^\d{4}-\d\d-\d\d \d\d:\d\d:\d\d INFO ")  # kablate.console's progress
+
+
+def the_error_line(output: str) -> str:
+    """The one ``error:`` line of a refused command, which must end its output; every line
+    before it is a timestamped progress line (a command is never silent while it works)."""
+    lines = output.splitlines()
+    assert lines and lines[-1].startswith("error: "), output
+    assert all(STEP_LINE.match(line) for line in lines[:-1]), output
+    assert "Traceback" not in output
+    return lines[-1]

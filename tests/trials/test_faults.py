@@ -90,12 +90,16 @@ def test_failed_trials_exit_3_with_their_reasons_grouped_also_on_a_rerun(
 
 
 class DiskFills:
-    """Let the first ``n_ok`` calls through, then fail every later one as on a full disk."""
+    """Let the first ``n_ok`` calls through, then fail every later one as on a full disk.
+    With ``under``, only writes below that folder count and fail (the disk that fills); the
+    calibration's scratch checkpoints in the temp folder go through."""
 
-    def __init__(self, write, n_ok: int) -> None:
-        self.write, self.n_ok, self.n = write, n_ok, 0
+    def __init__(self, write, n_ok: int, under: Path | None = None) -> None:
+        self.write, self.n_ok, self.n, self.under = write, n_ok, 0, under
 
     def __call__(self, path, *args, **kwargs):
+        if self.under is not None and not Path(path).is_relative_to(self.under):
+            return self.write(path, *args, **kwargs)
         self.n += 1
         if self.n > self.n_ok:
             raise OSError(errno.ENOSPC, "No space left on device", str(path))
@@ -108,7 +112,8 @@ def test_a_full_disk_at_a_checkpoint_stops_the_run_and_puts_the_trial_back(
 ):
     results = tmp_path / "results"
     # The tiny recipe has 2 epochs: the third checkpoint is the second trial's first.
-    monkeypatch.setattr(checkpoint, "atomic_write", DiskFills(checkpoint.atomic_write, 2))
+    fills = DiskFills(checkpoint.atomic_write, 2, under=results)
+    monkeypatch.setattr(checkpoint, "atomic_write", fills)
     result = run(tiny_sweep, results)
     assert result.exit_code == EXIT_DISK_FULL, result.output
     assert "checkpoint.pt: free space and rerun the same command" in result.output

@@ -66,6 +66,16 @@ def setup_logging(results_dir: Path, to_console: bool, steps_on_console: bool = 
     logger.propagate = False
 
 
+def detach_run_log() -> None:
+    """Close and remove run.log's handler: once `run_sweep` returns, what the same process logs
+    next (a report written with --out, say) does not go into that results folder."""
+    logger = logging.getLogger("kablate")
+    for handler in list(logger.handlers):
+        if isinstance(handler, RunLogHandler):
+            logger.removeHandler(handler)
+            handler.close()
+
+
 class StopFlag:
     """Set by Ctrl-C (SIGINT) or SIGTERM: the trial stops at its next batch and is requeued.
 

@@ -31,7 +31,7 @@ from kablate.trials.jobs import Job, sweep_jobs
 from kablate.trials.liveness import liveness_for
 from kablate.trials.meta import check_definition, definition, fingerprint, write_json
 from kablate.trials.outcome import FINISHED, failure_reasons, own_counts
-from kablate.trials.pool import Progress, run_workers, setup_logging
+from kablate.trials.pool import Progress, detach_run_log, run_workers, setup_logging
 from kablate.trials.preflight import run_preflight, writable_folder
 from kablate.trials.queue import enqueue_missing, job_status, tagged_trials
 from kablate.trials.race import start_race
@@ -262,6 +262,13 @@ def run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
     check_device(opts.device)
     if opts.dry_run:
         return dry_run(sweep_path, opts)
+    try:
+        return _run_sweep(sweep_path, opts)
+    finally:
+        detach_run_log()
+
+
+def _run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
     started, started_at = time.time(), datetime.now()  # Optuna's trial times are naive local
     step("start-up", f"reading {sweep_path} and costing its variants")
     sweep = load_sweep(sweep_path)
