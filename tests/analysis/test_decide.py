@@ -37,7 +37,7 @@ def test_one_se_rule_on_the_convnext_kernel_table(within_se, expected):
     scores = {k: m for k, (m, _, _) in CONVNEXT.items()}
     ses = {k: s / math.sqrt(3) for k, (_, s, _) in CONVNEXT.items()}
     costs = {k: g for k, (_, _, g) in CONVNEXT.items()}
-    picked, best, tolerance = one_se_pick(scores, ses, costs, within_se)
+    picked, best, tolerance, _ = one_se_pick(scores, ses, costs, within_se)
     assert best == "k7"  # tied with k9 on the mean; the cheaper one is the best
     assert picked == expected
     assert tolerance == pytest.approx(within_se * 0.14 / math.sqrt(3))
@@ -124,6 +124,33 @@ def test_a_plan_at_100_percent_keeps_an_interval():
     assert acc.high == 1.0 and 1 - acc.low > 0.009
 
 
+def test_the_one_se_rule_keeps_a_tolerance_when_the_best_plan_scores_100_percent():
+    # Every seed right on every image: the bootstrap's spread is zero, but the exact binomial
+    # (Clopper & Pearson 1934) 95% interval of 300 images at 300/300 is [0.98777, 1], so the
+    # SE it implies is (1 − 0.98777) / (2 · 1.95996) = 0.312 pp, not 0.
+    perfect = np.ones((3, 300), dtype=bool)
+    near = perfect.copy()
+    near[:, :1] = False  # one image missed on every seed: 99.67%
+    ev = evidence_of({"base": perfect, "cheap": near})
+    d = decide(ev, {"base": 10, "cheap": 5}, "base", rule="one-se", within_se=1.0)
+    assert d.accuracy["base"].se == 0
+    assert d.tolerance == pytest.approx((1 - 0.025 ** (1 / 300)) / 3.91993, rel=1e-4)
+    # cheap is 1/300 = 0.33 pp below: just outside one SE, inside two.
+    assert d.recommended == "base" and d.qualifying == ("base",)
+    # In a resample that leaves out the one missed image the two tie and the cheaper is
+    # picked: a given image is left out of a bootstrap draw of n with probability
+    # (1 − 1/n)ⁿ ≈ e⁻¹ (Efron & Tibshirani 1993, §6 — from memory), 0.367 at n = 300.
+    assert d.pick_share["cheap"] == pytest.approx((1 - 1 / 300) ** 300, abs=0.03)
+    assert d.pick_share["base"] + d.pick_share["cheap"] == pytest.approx(1.0)
+    loose = decide(ev, {"base": 10, "cheap": 5}, "base", rule="one-se", within_se=2.0)
+    assert loose.recommended == "cheap" and loose.qualifying == ("cheap", "base")
+    # It stays within 0.62 pp while the missed image is drawn at most once: binomial
+    # P(X ≤ 1) for X ~ Bin(300, 1/300) = (1 − 1/n)ⁿ + (1 − 1/n)ⁿ⁻¹ = 0.736.
+    assert loose.pick_share["cheap"] == pytest.approx(
+        (1 - 1 / 300) ** 300 + (1 - 1 / 300) ** 299, abs=0.03
+    )
+
+
 def test_decide_recommends_a_cheaper_equal_plan_and_reports_stability():
     rng = np.random.default_rng(6)
     base = rng.random((3, 1000)) < 0.95
@@ -173,5 +200,5 @@ def test_one_se_best_among_equal_scores_is_the_cheaper_whatever_its_name():
     # Equal scores: the cheaper "z-cheap" is the best, so with zero tolerance it is picked,
     # not "a-costly", which only comes first by name.
     scores, ses = {"a-costly": 0.9, "z-cheap": 0.9}, {"a-costly": 0.01, "z-cheap": 0.05}
-    picked, best, tolerance = one_se_pick(scores, ses, {"a-costly": 2, "z-cheap": 1}, 1.0)
+    picked, best, tolerance, _ = one_se_pick(scores, ses, {"a-costly": 2, "z-cheap": 1}, 1.0)
     assert (picked, best) == ("z-cheap", "z-cheap") and tolerance == pytest.approx(0.05)

@@ -29,23 +29,35 @@ def test_the_headline_names_the_rule_the_margin_and_the_verdict():
     # lower bound is far below −1 pp, so the baseline is kept; a 10 pp margin lets it in.
     kept = render_card(analyze(rows()), card_context())
     head = first_paragraph(kept)
-    assert head.startswith("**Keep the baseline base**")
-    assert "non-inferiority with a 1.00 pp margin" in head
+    verdict = head.split(". ")[0]  # the verdict, the rule and the margin in one sentence
+    assert verdict.startswith("**Keep the baseline base**")
+    assert "by non-inferiority with a 1.00 pp margin" in verdict
     assert "The closest, cheap: -0.50 pp" in head
     wide = first_paragraph(render_card(analyze(rows(), margin=10.0), card_context()))
-    assert wide.startswith("**Recommended kernel plan: cheap** (`body=cheap`), 0.40× the MACs")
-    assert "with a 10.00 pp margin" in wide
+    assert wide.startswith(
+        "**Recommended kernel plan: cheap** (`body=cheap`) by non-inferiority with a 10.00 pp "
+        "margin, 0.40× the MACs"
+    )
 
 
 def test_the_one_se_rule_is_labelled_with_the_tolerance_it_used():
     a = analyze(rows(), rule="one-se", within_se=2.0)
     text = render_card(a, card_context())
-    best_se = a.decision.accuracy["big"].se
+    best_se = a.decision.accuracy["big"].interval_se
     assert (
         f"within 2 standard error(s) of the best plan's, a tolerance of {200 * best_se:.2f} pp"
         in text
     )
     assert "non-inferiority" not in first_paragraph(text)
+    assert "by the one-standard-error rule (2 SE" in first_paragraph(text).split(". ")[0]
+    # The qualifying plans and the table's column are the one-se rule's, not the margin's.
+    d = a.decision
+    within = [
+        n for n, acc in d.accuracy.items() if acc.mean >= d.accuracy["big"].mean - d.tolerance
+    ]
+    assert set(d.qualifying) == set(within)
+    assert f"Plans that qualified: {', '.join(d.qualifying)}." in text
+    assert "| within tolerance | picked |" in text and "| within margin |" not in text
 
 
 def test_a_costlier_plan_shown_better_is_listed_as_worth_its_cost_never_picked():

@@ -2,8 +2,11 @@
 
 from __future__ import annotations
 
+import re
+
 import pytest
 
+from kablate.analysis.power import resolution_before
 from kablate.errors import SweepError
 from kablate.spec import load_sweep
 from tests.conftest import REPO, TINY_SWEEP, write_sweep
@@ -110,3 +113,26 @@ def test_a_bad_stage_kernel_in_an_included_network_names_that_file(tmp_path):
     message = str(info.value)
     assert "tiny-net.toml" in message and "`stages[1].kernel`" in message
     assert "both sizes ≥ 2" in message and '"5x1:split"' in message
+
+
+STORY_RESOLUTION = re.compile(
+    r"([\d,]+) validation images resolve ([\d.]+) pp at (\d+)% disagreement"
+)
+
+
+@pytest.mark.parametrize("path", sorted((REPO / "sweeps").glob("*.toml")), ids=lambda p: p.stem)
+def test_every_shipped_story_says_what_its_validation_images_can_resolve(path):
+    # The resolution is the normal-approximation sample-size formula, (z₀.₉₅ + z₀.₈₀)·√(d/n)
+    # (NIST/SEMATECH e-Handbook §7.2.2.2), recomputed here from the sweep's own val_size.
+    sweep = load_sweep(path)
+    found = STORY_RESOLUTION.search(sweep.story)
+    assert found, f"{path.name}: the story does not say what its validation images resolve"
+    n, claimed, rate = int(found[1].replace(",", "")), float(found[2]), int(found[3]) / 100
+    assert n == sweep.data.val_size
+    assert claimed == round(100 * resolution_before(n, rate).smallest, 2)
+    # ... and whether that decides the sweep's question at its margin.
+    margin = sweep.pick.margin
+    if claimed <= margin:
+        assert f"enough for the {margin:g} pp margin" in sweep.story
+    else:
+        assert "undecided" in sweep.story or "cannot" in sweep.story, sweep.story

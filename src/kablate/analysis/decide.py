@@ -26,6 +26,7 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
+from scipy.stats import norm
 from statsmodels.stats.contingency_tables import mcnemar
 from statsmodels.stats.multitest import multipletests
 
@@ -43,6 +44,7 @@ RULES = ("margin", "one-se")
 # agrees with it in fewer than this share of them (documented in sweeps/README.md).
 STABLE_SHARE = 0.7
 ALPHA = 0.05
+Z_975 = float(norm.ppf(0.975))
 
 
 @dataclass(frozen=True)
@@ -59,6 +61,13 @@ class Accuracy:
     @property
     def mean(self) -> float:
         return self.n_correct / self.n_scored
+
+    @property
+    def interval_se(self) -> float:
+        """The standard error the 95% interval implies, (high − low) / (2 · z₀.₉₇₅), or the
+        bootstrap's if larger. It is never zero: the interval is never narrower than the exact
+        binomial one, so a plan at 100% on every seed keeps the rule of three's width."""
+        return max(self.se, (self.high - self.low) / (2 * Z_975))
 
 
 @dataclass(frozen=True)
@@ -88,7 +97,9 @@ class Decision:
     tolerance: float  # one-se: the tolerance used, as a fraction
     accuracy: dict[str, Accuracy]
     contrasts: dict[str, Contrast]
-    qualifying: tuple[str, ...]  # cheaper than the baseline and non-inferior, cheapest first
+    # the plans the rule accepts, cheapest first: for margin, those cheaper than the baseline
+    # and non-inferior; for one-se, those within the tolerance of the best plan
+    qualifying: tuple[str, ...]
     worth_cost: tuple[str, ...]  # costlier than the baseline, lower bound above zero
     pick_share: dict[str, float]  # how often each plan is the point pick in a resample
     stability: float  # share of resamples whose point pick is the recommended plan
@@ -233,16 +244,19 @@ def one_se_pick(
     score, then name).
 
     Returns:
-        (picked, best, tolerance) with the tolerance in score units.
+        (picked, best, tolerance, qualifying): the tolerance in score units, and every
+        variant within it, cheapest first.
     """
     ties = ties or {}
     best = min(scores, key=lambda n: (-ties.get(n, 0), -scores[n], costs[n], n))
     se = ses[best]
     tolerance = within_se * se if math.isfinite(se) else 0.0
     # The small slack keeps a score that equals the threshold up to rounding.
-    ok = [n for n in scores if scores[n] >= scores[best] - tolerance - 1e-12]
-    picked = min(ok, key=lambda n: (costs[n], -scores[n], n))
-    return picked, best, tolerance
+    ok = sorted(
+        (n for n in scores if scores[n] >= scores[best] - tolerance - 1e-12),
+        key=lambda n: (costs[n], -scores[n], n),
+    )
+    return ok[0], best, tolerance, tuple(ok)
 
 
 def point_picks(
@@ -273,6 +287,24 @@ def point_picks(
     return picks
 
 
+def one_se_point_picks(
+    boot: np.ndarray, names: Sequence[str], costs: Mapping[str, float], tolerance: float
+) -> np.ndarray:
+    """In each resample, the plan the one-standard-error rule would pick if that resample
+    were the truth: the cheapest plan within ``tolerance`` of the resample's best (ties in
+    cost: the larger resampled accuracy, then the name). Returns the picked index per
+    resample."""
+    order = sorted(range(len(names)), key=lambda v: (costs[names[v]], names[v]))
+    acc = boot[:, order]
+    cost = np.array([costs[names[v]] for v in order], dtype=float)
+    ok = acc >= acc.max(axis=1, keepdims=True) - tolerance - 1e-12
+    key = np.where(ok, cost[None, :], np.inf)
+    cheapest = ok & (key == key.min(axis=1, keepdims=True))
+    # Among the cheapest accepted plans the more accurate; argmax takes the first by name.
+    pick = np.argmax(np.where(cheapest, acc, -np.inf), axis=1)
+    return np.asarray(order)[pick]
+
+
 def decide(
     evidence: Evidence,
     costs: Mapping[str, float],
@@ -295,11 +327,12 @@ def decide(
     lower = {n: c.lower_bound for n, c in found.items()}
     recommended, qualifying, worth = noninferior_pick(costs, lower, counts, baseline, margin)
     tolerance = 0.0
+    picks = point_picks(boot, names, costs, baseline, margin)
     if rule == "one-se":
         scores = {n: a.mean for n, a in acc.items()}
-        ses = {n: a.se for n, a in acc.items()}
-        recommended, _, tolerance = one_se_pick(scores, ses, costs, within_se, counts)
-    picks = point_picks(boot, names, costs, baseline, margin)
+        ses = {n: a.interval_se for n, a in acc.items()}
+        recommended, _, tolerance, qualifying = one_se_pick(scores, ses, costs, within_se, counts)
+        picks = one_se_point_picks(boot, names, costs, tolerance)
     share = {n: float(np.mean(picks == v)) for v, n in enumerate(names)}
     decision = Decision(
         rule,

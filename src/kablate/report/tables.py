@@ -48,8 +48,11 @@ def variant_cells(a: Analysis, name: str) -> list[str]:
 
 
 def within_margin(a: Analysis, name: str) -> str:
-    """yes/no for the plans the rule can pick; a costlier plan is marked as such."""
+    """yes/no for the plans the rule accepts; under the margin rule a costlier plan is marked
+    as not eligible. Under the one-se rule: within the tolerance of the best plan."""
     d = a.decision
+    if d.rule == "one-se":
+        return "yes" if name in d.qualifying else "no"
     c = d.contrasts.get(name)
     if c is None:
         return "-"
@@ -63,6 +66,7 @@ def within_margin(a: Analysis, name: str) -> str:
 
 def variant_table(a: Analysis, cost_label: str) -> list[str]:
     v = a.variants.sort_values(["macs", "variant"])
+    accepted = "within tolerance" if a.decision and a.decision.rule == "one-se" else "within margin"
     lines = [
         "#### Variants against the baseline",
         "",
@@ -74,7 +78,7 @@ def variant_table(a: Analysis, cost_label: str) -> list[str]:
         "(accuracy up, cost down; on point estimates) the plan lies.",
         "",
         f"| variant | kernel plan | val acc [95% CI] | difference [95% CI] | lower bound | "
-        f"p (Holm) | {cost_label} (× baseline) | within margin | picked | front | warnings |",
+        f"p (Holm) | {cost_label} (× baseline) | {accepted} | picked | front | warnings |",
         "|---|---|---|---|---:|---:|---:|---|---:|---|---|",
     ]
     fronts = [(c.label, f"front_{c.name}") for c in COSTS.values()]

@@ -31,8 +31,9 @@ def rule_sentence(d: Decision, cost_label: str) -> str:
         return (
             f"the one-standard-error rule: the cheapest plan by {cost_label} whose validation "
             f"accuracy is within {d.within_se:g} standard error(s) of the best plan's, a "
-            f"tolerance of {100 * d.tolerance:.2f} pp (the standard error counts seeds and "
-            "validation images, by the paired two-level bootstrap)"
+            f"tolerance of {100 * d.tolerance:.2f} pp (the best plan's standard error, read from "
+            "its 95% interval: the paired two-level bootstrap over seeds and validation images, "
+            "never narrower than the exact binomial interval of one seed's images)"
         )
     return (
         f"non-inferiority with a {100 * d.margin:.2f} pp margin: the cheapest plan by "
@@ -40,6 +41,16 @@ def rule_sentence(d: Decision, cost_label: str) -> str:
         f"lower bound of (plan − {d.baseline}) validation accuracy lies above "
         f"−{100 * d.margin:.2f} pp; if none does, keep the baseline"
     )
+
+
+def rule_words(d: Decision) -> str:
+    """The rule and its margin or tolerance, short enough for the verdict's own sentence."""
+    if d.rule == "one-se":
+        return (
+            f"by the one-standard-error rule ({d.within_se:g} SE, a {100 * d.tolerance:.2f} pp "
+            "tolerance)"
+        )
+    return f"by non-inferiority with a {100 * d.margin:.2f} pp margin"
 
 
 def headline(a: Analysis, cost_label: str) -> list[str]:
@@ -53,7 +64,7 @@ def headline(a: Analysis, cost_label: str) -> list[str]:
     ratio = float(v.loc[rec, cost]) / float(v.loc[d.baseline, cost])
     where = f"{d.n_seeds} seed(s) × {d.n_images} validation images"
     if d.keeps_baseline:
-        first = f"**Keep the baseline {d.baseline}** (`{v.loc[rec, 'plan']}`)."
+        first = f"**Keep the baseline {d.baseline}** (`{v.loc[rec, 'plan']}`) {rule_words(d)}."
         closest = closest_cheaper(a)
         if d.rule == "margin" and closest is None:
             first += (
@@ -75,7 +86,8 @@ def headline(a: Analysis, cost_label: str) -> list[str]:
     else:
         c = d.contrasts[rec]
         first = (
-            f"**Recommended kernel plan: {rec}** (`{v.loc[rec, 'plan']}`), {ratio:.2f}× the "
+            f"**Recommended kernel plan: {rec}** (`{v.loc[rec, 'plan']}`) {rule_words(d)}, "
+            f"{ratio:.2f}× the "
             f"{cost_label} of the baseline {d.baseline}; against it on validation accuracy "
             f"{diff_prose(c)}, over {where}."
         )
@@ -126,10 +138,14 @@ def resolution_sentence(a: Analysis) -> str:
         f"power, one-sided 5%), with {r.n_images} validation images on which two plans "
         f"disagreed on {100 * r.disagreement:.1f}% of images"
     )
-    if d.rule == "margin" and r.smallest > d.margin:
+    if d.rule == "margin":
+        need = r.images_for(d.margin)
         text += (
-            f"; a {100 * d.margin:.2f} pp margin would need about "
-            f"{r.images_for(d.margin):,} validation images at the same disagreement"
+            f"; a {100 * d.margin:.2f} pp margin needs about {need:,} validation images at the "
+            "same disagreement"
+            + (", so this sweep can resolve it" if need <= r.n_images else "")
+            + ". More seeds shrink only the part of the error that changes from seed to seed; "
+            "the images' own sampling error stays, because every seed scores the same images"
         )
     return text + "."
 
