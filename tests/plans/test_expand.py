@@ -59,6 +59,26 @@ def test_a_bad_spec_names_the_group_and_the_text(tmp_path):
         expand_plans(sweep)
 
 
+def test_a_stride_is_the_stems_alone(tmp_path):
+    net = tiny_network(stages=((4, 2, "none"), (8, 1, "maxpool")))
+    for group in ("stem", "conv0"):
+        assert resolve_kernels(net, {group: "11s4"})["stem"].stride == 4
+    # a stage downsamples with its `down`; a stride inside it would break its shapes
+    for group in ("body", "stage1", "stage1.0", "conv2"):
+        sweep = sweep_with(tmp_path, f'[[plan]]\nname = "a"\n"{group}" = "3s2"\n')
+        with pytest.raises(SweepError, match=rf'plan\[0\]\.{group}` gives stride 2 \("3s2"\)'):
+            expand_plans(sweep)
+    grid = sweep_with(tmp_path, '[[grid]]\nstem = ["3", "7s2"]\nbody = ["3", "5s2"]\n')
+    with pytest.raises(SweepError, match=r"grid\[0\]\.body` gives stride 2.*only the stem"):
+        expand_plans(grid)
+
+
+def test_the_base_network_sets_strides_with_its_own_keys(tmp_path):
+    path = write_sweep(tmp_path, HEAD + '[network.stem]\nkernel = "7s2"\n', name="t")
+    with pytest.raises(SweepError, match=r"network\.stem\.kernel` gives a stride"):
+        load_sweep(path)
+
+
 def test_grid_is_the_cross_product_first_axis_slowest():
     cells = grid_cells({"stem": ("3", "5"), "body": ("3", "5:stack", "3d2")})
     assert len(cells) == 6
