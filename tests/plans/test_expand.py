@@ -6,7 +6,7 @@ import pytest
 
 from kablate.costs.catalog import build_catalog
 from kablate.errors import SweepError
-from kablate.plans.expand import expand_plans, grid_cells
+from kablate.plans.expand import expand_plans, grid_cells, plan_text, read_plan_text
 from kablate.plans.groups import list_slots, resolve_kernels
 from kablate.spec import load_sweep
 from tests.conftest import write_sweep
@@ -174,3 +174,10 @@ def test_an_unknown_baseline_is_an_error(tmp_path):
     )
     with pytest.raises(SweepError, match="did you mean `wide`"):
         build_catalog(load_sweep(path), in_shape=(1, 8, 8), n_classes=3)
+
+
+def test_a_plan_line_reads_back_as_the_plan():
+    # the card reads a stem stride back from the plan column of variants.csv
+    for plan in ({"stem": "11s4", "body": "3"}, {}, {"layer1.*.conv1": "5", "first-conv": "7s2"}):
+        assert read_plan_text(plan_text(plan)) == plan
+    assert read_plan_text("base") == {}  # a table that names the variant in place of a plan
