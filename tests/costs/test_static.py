@@ -178,3 +178,67 @@ def test_every_form_sees_what_its_dense_kernel_sees(down):
                 dense.jump,
                 dense.out_hw,
             )
+
+
+STEM_STRIDES = [
+    "11s4",
+    "7s2",
+    "7s2:stack",
+    "5x3s2:split",
+    "3d2s3",
+    "5s2:depthwise",
+    "3s2:bottleneck",
+]
+
+
+@pytest.mark.parametrize("spec", STEM_STRIDES)
+def test_a_stem_with_its_own_stride_costs_what_torch_counts_and_sees_what_its_gradient_sees(spec):
+    net = tiny_network(stages=((2, 1, "none"), (2, 2, "maxpool")), residual=True, stem_ch=4)
+    layout = tiny_layout({"stem": spec}, net, in_shape=(1, 96, 96))
+    cost = static_cost(layout, 1)
+    model = build_network(layout)
+    # the map after the stem: ceil(96 / s) under same padding (PyTorch's Conv2d output formula)
+    stride = int(spec.split("s")[1].split(":")[0])
+    stem_out = model.blocks[0](torch.zeros(1, *layout.in_shape)).shape[-2:]
+    assert (
+        tuple(stem_out)
+        == (-(-96 // stride),) * 2
+        == cost.layers[len(layout.blocks[0].layers) - 1].layer.out_hw
+    )
+    assert cost.params == sum(p.numel() for p in model.parameters())
+    counter = FlopCounterMode(display=False)  # torch counts 2 FLOPs per multiply-accumulate
+    with counter:
+        model(torch.zeros(1, *layout.in_shape))
+    assert counter.get_total_flops() == cost.flops
+    # the recurrence of Araujo, Norris & Sim 2019 against the gradient's support
+    assert max(cost.rf_hw) < 80 and empirical_rf(layout) == cost.rf_hw
+
+
+def closed_form_rf(kernels_strides: list[tuple[int, int]]) -> tuple[int, int]:
+    """Araujo, Norris & Sim 2019 (Distill), the closed form for one path of L layers:
+    r = 1 + Σ_l (k_l − 1) · Π_{i<l} s_i, and the jump (effective stride) Π_l s_l."""
+    rf, jump = 1, 1
+    for k, s in kernels_strides:
+        rf, jump = rf + (k - 1) * jump, jump * s
+    return rf, jump
+
+
+def test_an_11x11_stride_4_stem_has_the_published_arithmetic():
+    # AlexNet's first layer (Krizhevsky et al. 2012): 11×11, stride 4, so r = 11, j = 4; then
+    # each 3×3 conv adds 2·4 = 8 pixels at jump 4, a 2×2 pool adds 1·4 and doubles the jump.
+    net = tiny_network(stages=((4, 2, "none"), (8, 2, "maxpool")))
+    layout = tiny_layout({"stem": "11s4"}, net, in_shape=(3, 64, 64))
+    rows = static_cost(layout, 1).layers
+    path = [(layer.kernel[0], layer.stride[0]) for layer in layout.layers[:-2]]
+    assert path == [(11, 4), (3, 1), (3, 1), (2, 2), (3, 1), (3, 1)]
+    for n, row in enumerate(rows[: len(path)]):
+        assert (row.rf[0], row.jump[0]) == closed_form_rf(path[: n + 1]), row.layer.name
+    assert (rows[0].rf, rows[0].jump, rows[0].layer.out_hw) == ((11, 11), (4, 4), (16, 16))
+    assert (rows[len(path) - 1].rf[0], rows[len(path) - 1].jump[0]) == (11 + 16 + 4 + 32, 8)
+
+
+def test_a_plan_stride_overrides_the_networks_stem_stride():
+    net = tiny_network(stem_stride=2)
+    assert tiny_layout({}, net, in_shape=(1, 16, 16)).layers[0].stride == (2, 2)
+    assert tiny_layout({"stem": "5s1"}, net, in_shape=(1, 16, 16)).layers[0].stride == (1, 1)
+    assert tiny_layout({"stem": "5s4"}, net, in_shape=(1, 16, 16)).layers[0].out_hw == (4, 4)

@@ -346,3 +346,43 @@ def test_new_modules_take_the_replaced_convs_device_and_dtype():
         meta = torchvision.models.resnet18(num_classes=10)
     new, _ = rewritten(meta, {"every-3x3": "5:split"})
     assert {p.device.type for p in new.parameters()} == {"meta"}
+
+
+def test_a_new_stride_on_alexnets_first_conv_keeps_its_head_and_follows_the_arithmetic():
+    # torchvision's AlexNet: features.0 is 11×11, stride 4, padding 2 (Krizhevsky et al. 2012)
+    torch.manual_seed(0)
+    model = torchvision.models.alexnet(num_classes=10).eval()
+    sites = find_convs(model)
+    assert resolve_model_plan(sites, {"first-conv": "11s4"})["features.0"] == sites[0].spec
+    new, report = rewritten(model, {"first-conv": "7s2"})
+    conv = new.features[0]
+    assert (conv.kernel_size, conv.stride, conv.padding) == ((7, 7), (2, 2), (3, 3))
+    assert report.kernels == {"features.0": "7s2"}
+    seen, out = output_shapes(new, ["features.0", "features.12"], (224, 224))
+    # PyTorch's Conv2d output length, floor((224 + 6 − 7) / 2) + 1 = 112; its adaptive
+    # average pool still gives the classifier a 6×6 map, so the output keeps its shape
+    assert seen["features.0"] == (2, 64, 112, 112) and out == (2, 10)
+    cost = graph_cost(new, (3, 224, 224), batch_size=None)
+    row = next(r for r in cost.layers if r.layer.name == "features.12")
+    # Araujo, Norris & Sim 2019: r = 1 + Σ (k_l − 1)·Π s_i over 7/2, pool 3/2, 5/1, pool 3/2,
+    # three 3/1, pool 3/2 = 1 + 6 + 2·2 + 4·4 + 2·4 + 3·2·8 + 2·8 = 99, jump 2·2·2·2 = 16
+    assert (row.rf, row.jump) == ((99, 99), (16, 16))
+    counter = FlopCounterMode(display=False)
+    with counter:
+        new(torch.zeros(1, 3, 224, 224))
+    assert counter.get_total_flops() == 2 * cost.macs
+
+
+def test_a_stride_is_refused_for_any_conv_but_the_first():
+    sites = find_convs(resnet18())
+    with pytest.raises(GroupError, match=r'gives conv layer1.0.conv1 stride 2 \("3s2"\).*first'):
+        resolve_model_plan(sites, {"layer1.*.conv1": "3s2"})
+
+
+def test_a_model_that_cannot_take_the_new_stride_is_named_with_its_variant():
+    from kablate.costs.user_model import check_output
+
+    model = nn.Sequential(nn.Conv2d(3, 4, 3, stride=2, padding=1), nn.Flatten(), nn.Linear(256, 5))
+    rewrite_model(model, resolve_model_plan(find_convs(model), {"first-conv": "3s1"}))
+    with pytest.raises(PlanError, match=r"tiny:net, rewritten as variant s1 .*fails on"):
+        check_output(model, "tiny:net", (3, 16, 16), 5, "s1")

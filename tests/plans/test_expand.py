@@ -6,7 +6,7 @@ import pytest
 
 from kablate.costs.catalog import build_catalog
 from kablate.errors import SweepError
-from kablate.plans.expand import expand_plans, grid_cells
+from kablate.plans.expand import expand_plans, grid_cells, plan_text, read_plan_text
 from kablate.plans.groups import list_slots, resolve_kernels
 from kablate.spec import load_sweep
 from tests.conftest import write_sweep
@@ -57,6 +57,26 @@ def test_a_bad_spec_names_the_group_and_the_text(tmp_path):
     sweep = sweep_with(tmp_path, '[[plan]]\nname = "a"\nstem = "5:wide"\n')
     with pytest.raises(SweepError, match=r'plan\[0\]\.stem` names form `wide`.*"5:wide"'):
         expand_plans(sweep)
+
+
+def test_a_stride_is_the_stems_alone(tmp_path):
+    net = tiny_network(stages=((4, 2, "none"), (8, 1, "maxpool")))
+    for group in ("stem", "conv0"):
+        assert resolve_kernels(net, {group: "11s4"})["stem"].stride == 4
+    # a stage downsamples with its `down`; a stride inside it would break its shapes
+    for group in ("body", "stage1", "stage1.0", "conv2"):
+        sweep = sweep_with(tmp_path, f'[[plan]]\nname = "a"\n"{group}" = "3s2"\n')
+        with pytest.raises(SweepError, match=rf'plan\[0\]\.{group}` gives stride 2 \("3s2"\)'):
+            expand_plans(sweep)
+    grid = sweep_with(tmp_path, '[[grid]]\nstem = ["3", "7s2"]\nbody = ["3", "5s2"]\n')
+    with pytest.raises(SweepError, match=r"grid\[0\]\.body` gives stride 2.*only the stem"):
+        expand_plans(grid)
+
+
+def test_the_base_network_sets_strides_with_its_own_keys(tmp_path):
+    path = write_sweep(tmp_path, HEAD + '[network.stem]\nkernel = "7s2"\n', name="t")
+    with pytest.raises(SweepError, match=r"network\.stem\.kernel` gives a stride"):
+        load_sweep(path)
 
 
 def test_grid_is_the_cross_product_first_axis_slowest():
@@ -154,3 +174,10 @@ def test_an_unknown_baseline_is_an_error(tmp_path):
     )
     with pytest.raises(SweepError, match="did you mean `wide`"):
         build_catalog(load_sweep(path), in_shape=(1, 8, 8), n_classes=3)
+
+
+def test_a_plan_line_reads_back_as_the_plan():
+    # the card reads a stem stride back from the plan column of variants.csv
+    for plan in ({"stem": "11s4", "body": "3"}, {}, {"layer1.*.conv1": "5", "first-conv": "7s2"}):
+        assert read_plan_text(plan_text(plan)) == plan
+    assert read_plan_text("base") == {}  # a table that names the variant in place of a plan

@@ -23,6 +23,10 @@ from kablate.plans.grammar import KernelSpec, KernelSpecError, parse_kernel, sta
         ("3:bottleneck", KernelSpec(3, 3, 1, "bottleneck", 4)),
         ("3:bottleneck/2", KernelSpec(3, 3, 1, "bottleneck", 2)),
         ("1d3", KernelSpec(1, 1, 1)),  # dilation means nothing on a 1×1: one spelling
+        ("11s4", KernelSpec(11, 11, stride=4)),
+        ("7s2:stack", KernelSpec(7, 7, 1, "stack", stride=2)),
+        ("3d2s2", KernelSpec(3, 3, 2, stride=2)),
+        ("5x3s2:split", KernelSpec(5, 3, 1, "split", stride=2)),
     ],
 )
 def test_specs_parse(text, expected):
@@ -42,6 +46,9 @@ def test_specs_parse(text, expected):
         ("3/2", "must be a kernel spec"),
         ("3:depthwise/2", "only the bottleneck form"),
         ("3:bottleneck/0", "ratio ≥ 1"),
+        ("3s0", "stride is at least 1 and at most 64"),
+        ("3s65", "stride is at least 1 and at most 64"),
+        ("3s2d2", "must be a kernel spec"),  # one order: size, dilation, stride, form
     ],
 )
 def test_bad_specs_say_what_is_allowed(text, phrase):
@@ -81,6 +88,7 @@ specs = st.builds(
     dilation=st.integers(1, 3),
     form=st.sampled_from(["dense", "split", "depthwise", "bottleneck"]),
     ratio=st.just(4),
+    stride=st.sampled_from([0, 1, 2, 4, 64]),
 )
 
 
@@ -106,3 +114,9 @@ def test_sizes_and_dilations_past_the_cap_are_refused(text):
 def test_sizes_at_the_cap_and_leading_zeros_parse():
     assert parse_kernel("255d255") == KernelSpec(255, 255, 255)
     assert parse_kernel("0" * 50 + "3") == KernelSpec(3, 3)
+
+
+def test_a_stride_is_written_back_and_only_when_given():
+    assert str(parse_kernel("11s4")) == "11s4"
+    assert str(parse_kernel("11")) == "11"  # no stride given: the key of old plans is unchanged
+    assert not parse_kernel("3s2").is_plain_3x3 and parse_kernel("3").is_plain_3x3

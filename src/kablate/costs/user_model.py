@@ -43,7 +43,7 @@ class UserModel:
             "", sweep.model.factory, sweep.model.arguments, in_shape, n_classes, {}
         )
         model = unchanged.build_unchanged()
-        check_output(model, sweep, in_shape, n_classes)
+        check_output(model, sweep.model.factory, in_shape, n_classes)
         sites = find_convs(model)
         if not sites:
             raise PlanError(
@@ -69,25 +69,35 @@ class UserModel:
             variant.name, spec.factory, spec.arguments, self.in_shape, self.n_classes, changes
         )
         model, blueprint = blueprint.build_and_describe()
+        restrided = [path for path, k in changes.items() if k.stride]
+        if restrided:  # a new stride changes the shapes after it: the model must still answer
+            check_output(model, spec.factory, self.in_shape, self.n_classes, variant.name)
         return graph_cost(model, self.in_shape, batch_size), blueprint
 
 
-def check_output(model: torch.nn.Module, sweep: SweepSpec, in_shape, n_classes: int) -> None:
-    """The model must give one score per class of the data, for a batch of the data's input."""
-    assert sweep.model is not None
+def check_output(
+    model: torch.nn.Module, factory: str, in_shape, n_classes: int, variant: str = ""
+) -> None:
+    """The model must give one score per class of the data, for a batch of the data's input.
+    ``variant``: the name of a variant whose new stem stride changed the shapes after it."""
     c, h, w = in_shape
+    who = factory
+    if variant:
+        who += (
+            f", rewritten as variant {variant} (its new stem stride changes every feature-map "
+            "size after it),"
+        )
     try:
         with torch.no_grad():
             out = model.eval()(torch.zeros(2, c, h, w))
     except Exception as exc:  # the user's code: say where it failed, without a traceback
         raise PlanError(
-            f"{sweep.model.factory} fails on the data's {c}x{h}x{w} input: "
-            f"{type(exc).__name__}: {exc}"
+            f"{who} fails on the data's {c}x{h}x{w} input: {type(exc).__name__}: {exc}"
         ) from None
     shape = tuple(out.shape) if isinstance(out, torch.Tensor) else None
     if shape != (2, n_classes):
         raise PlanError(
-            f"{sweep.model.factory} answers {shape if shape else type(out).__name__} for a batch "
+            f"{who} answers {shape if shape else type(out).__name__} for a batch "
             f"of 2, but the data has {n_classes} classes, so it must answer (2, {n_classes}): "
             f"set the factory's class count in `{ARGUMENTS_KEY}` (e.g. num_classes = "
             f"{n_classes})"

@@ -241,15 +241,10 @@ def layout_network(
     """
     cur = _Cursor(variant.name, network, in_shape)
     slots = {slot.name: slot for slot in list_slots(network)}
+    stem = variant.kernels["stem"]
+    stem_stride = stem.stride or network.stem.stride  # a plan's "11s4" overrides the network's
     blocks = [
-        Block(
-            "stem",
-            tuple(
-                unit_layers(
-                    cur, "stem", variant.kernels["stem"], network.stem.out_ch, network.stem.stride
-                )
-            ),
-        )
+        Block("stem", tuple(unit_layers(cur, "stem", stem, network.stem.out_ch, stem_stride)))
     ]
     for stage, stage_name in zip(network.stages, stage_names(network), strict=True):
         if stage.n_convs == 0 and stage.down not in ("maxpool", "avgpool"):

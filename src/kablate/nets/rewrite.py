@@ -1,4 +1,5 @@
-"""Rewrite the convs of a user's model in place under a kernel plan, keeping every shape.
+"""Rewrite the convs of a user's model in place under a kernel plan, keeping every shape
+(except after a conv whose stride the plan changes).
 
 Read `kablate.nets.sites` first (which convs a plan addresses); this module decides what each
 addressed conv becomes. The rules (sweeps/README.md, "Rewriting a user's model", says the same):
@@ -22,6 +23,11 @@ addressed conv becomes. The rules (sweeps/README.md, "Rewriting a user's model",
   nonlinearity between its stacked 3×3 convs (Simonyan & Zisserman 2014): without one a stack
   would be a single, low-rank k×k conv. The last conv feeds the model's own norm and
   activation, as the replaced conv did; inner convs have no bias, the last keeps the original's.
+- **A new stride** (``"7s2"``, the model's first conv only, `kablate.nets.sites`) cannot keep
+  the output shape: the conv that carries it gets same padding (total d·(k−1), as our own
+  networks pad), so its output is ⌈size / s⌉, and every shape after it changes. The model
+  must still answer its classes (an adaptive pool before its head, as torchvision's AlexNet
+  and ResNets have); `kablate.costs.user_model` checks it when the variant is costed.
 - **Groups**: every new conv keeps the original's groups, except the depthwise conv of the
   depthwise form (groups = its channels). A count the groups do not divide (a bottleneck's
   middle width, say) is refused, naming the module path.
@@ -121,7 +127,9 @@ def _new_conv(
     for axis in (0, 1):
         if not carries[axis]:
             continue
-        stride[axis] = site.stride[axis]
+        stride[axis] = spec.stride or site.stride[axis]
+        if stride[axis] != site.stride[axis]:
+            continue  # a new stride cannot keep the shape: same padding, d·(k−1) in total
         old_extent = site.dilation[axis] * (site.kernel[axis] - 1) + 1
         old_total = _old_total(site, axis)
         totals[axis] = old_total + (totals[axis] + 1) - old_extent  # P_old + E_new − E_old

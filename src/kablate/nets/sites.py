@@ -20,7 +20,7 @@ from __future__ import annotations
 
 import re
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 from torch import nn
 
@@ -150,16 +150,19 @@ def resolve_model_plan(sites: list[ConvSite], plan: dict[str, str]) -> dict[str,
 
     Raises:
         GroupError: naming the plan key, for an unknown role or path, a pattern or role that
-            matches no conv, a spec that does not parse, or two keys of the same specificity
+            matches no conv, a spec that does not parse, a stride for a conv other than the
+            first (`first_conv_stride`), or two keys of the same specificity
             that give one conv different specs.
     """
     chosen: dict[str, tuple[int, KernelSpec, str]] = {
         site.path: (-1, site.spec, "") for site in sites
     }
+    by_path = {site.path: site for site in sites}
     for key, text in plan.items():
         level, members = key_members(sites, key)
         spec = parse_group_spec(text, key)
         for path in members:
+            spec = first_conv_stride(by_path[path], spec, key, text)
             held_level, held_spec, held_key = chosen[path]
             if level == held_level and spec != held_spec:
                 raise GroupError(
@@ -170,3 +173,21 @@ def resolve_model_plan(sites: list[ConvSite], plan: dict[str, str]) -> dict[str,
             if level >= held_level:
                 chosen[path] = (level, spec, key)
     return {path: spec for path, (_, spec, _) in chosen.items()}
+
+
+def first_conv_stride(site: ConvSite, spec: KernelSpec, key: str, text: str) -> KernelSpec:
+    """``spec`` for ``site``, its stride dropped when it is the conv's own (one spelling per
+    network). A stride is the stem's setting, so only the model's first conv takes one.
+
+    Raises:
+        GroupError: a stride for any other conv, naming the plan key.
+    """
+    if not spec.stride:
+        return spec
+    if site.index != 0:
+        raise GroupError(
+            key,
+            f'gives conv {site.path} stride {spec.stride} ("{text}"), but only the model\'s '
+            "first conv (the `first-conv` role or its path) takes a stride",
+        )
+    return replace(spec, stride=0) if site.stride == (spec.stride,) * 2 else spec

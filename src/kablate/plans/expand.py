@@ -58,6 +58,12 @@ def plan_text(plan: dict[str, str]) -> str:
     return ";".join(f"{group}={spec}" for group, spec in plan.items()) or "as built"
 
 
+def read_plan_text(text: str) -> dict[str, str]:
+    """The plan that `plan_text` wrote: ``stem=5;body=3`` → ``{"stem": "5", "body": "3"}``;
+    parts without ``=`` (a table that names the variant in place of its plan) are skipped."""
+    return dict(part.rpartition("=")[::2] for part in text.split(";") if "=" in part)
+
+
 def grid_cells(grid: dict[str, tuple[str, ...]]) -> list[dict[str, str]]:
     """The cross product of a grid's axes, first axis slowest."""
     groups = list(grid)

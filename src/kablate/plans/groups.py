@@ -8,7 +8,8 @@ addresses slots through groups, from least to most specific:
     stem, conv<N>, <stage>.<i>
                     one conv: the stem, the N-th conv overall (stem = conv0), or conv i of a stage
 
-A more specific group wins over a less specific one, whatever their order in the file.
+A more specific group wins over a less specific one, whatever their order in the file. Only
+the stem takes a spec with a stride (``stem = "11s4"``, `stride_refusal` says why).
 """
 
 from __future__ import annotations
@@ -86,10 +87,21 @@ def resolve_kernels(network: NetworkSpec, plan: dict[str, str]) -> dict[str, Ker
             )
         level, members = groups[group]
         spec = parse_group_spec(text, group)
+        if spec.stride and members != ["stem"]:
+            raise GroupError(group, stride_refusal(spec, text))
         for slot_name in members:
             if level >= chosen[slot_name][0]:
                 chosen[slot_name] = (level, spec)
     return {name: spec for name, (_, spec) in chosen.items()}
+
+
+def stride_refusal(spec: KernelSpec, text: str) -> str:
+    """Why a spec with a stride is refused for a group other than the stem: a stage's stride is
+    its ``down``, and a stride inside a stage would change shapes its residual adds rely on."""
+    return (
+        f'gives stride {spec.stride} ("{text}"), which only the stem takes (as `stem` or '
+        "`conv0`); a stage downsamples with its `down` setting"
+    )
 
 
 def parse_group_spec(text: str, group: str) -> KernelSpec:

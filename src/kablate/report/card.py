@@ -14,6 +14,8 @@ from datetime import UTC, datetime
 
 from kablate.analysis.summary import Analysis
 from kablate.costs.export import human
+from kablate.plans.expand import read_plan_text
+from kablate.plans.grammar import KernelSpecError, parse_kernel
 from kablate.report.race import race_section
 from kablate.report.stem_card import stem_section
 from kablate.report.tables import (
@@ -150,15 +152,31 @@ def render_card(a: Analysis, ctx: CardContext, now: datetime | None = None) -> s
     return "\n".join(out)
 
 
-def _network_line(resolved: dict, n_variants: int) -> str:
-    """What the plans rewrite: kablate's own compact CNN, or the user's model."""
+def _sets_stem_stride(plans) -> bool:
+    """Whether a plan (as `plan_text` wrote it) gives the stem its own stride ("11s4")."""
+    specs = [spec for text in plans for spec in read_plan_text(str(text)).values()]
+    try:
+        return any(parse_kernel(spec).stride for spec in specs)
+    except KernelSpecError:  # not a plan kablate wrote: say nothing about strides
+        return False
+
+
+def _network_line(resolved: dict, n_variants: int, strided: bool = False) -> str:
+    """What the plans rewrite: kablate's own compact CNN, or the user's model; ``strided``:
+    some plan also sets the stem's (or the first conv's) stride."""
+    differ = "kernel sizes and the stem's stride" if strided else "kernel sizes"
     model = resolved.get("model")
     if model is not None:
         arguments = ", ".join(f"{k} = {v!r}" for k, v in model.get("arguments", {}).items())
         return (
             f"- Your model, built by `{model['factory']}({arguments})` without pretrained "
             f"weights, in {n_variants} kernel plans that rewrite some of its Conv2d layers "
-            "(shapes kept; see `kablate plan` for each rewrite and its initialisation)."
+            + (
+                "(shapes kept, except after a first conv given a new stride"
+                if strided
+                else "(shapes kept"
+            )
+            + "; see `kablate plan` for each rewrite and its initialisation)."
         )
     network = resolved.get("network", {})
     stages = network.get("stages", [])
@@ -168,7 +186,7 @@ def _network_line(resolved: dict, n_variants: int) -> str:
         f"{', '.join(str(s.get('out_ch')) for s in stages) or 'no'} channels, "
         f"{network.get('norm', 'batch')} norm, {network.get('act', 'relu')}; a global average "
         "pool and a linear head), in "
-        f"{n_variants} kernel plans that differ only in their kernel sizes."
+        f"{n_variants} kernel plans that differ only in their {differ}."
     )
 
 
@@ -178,7 +196,7 @@ def _details(a: Analysis, ctx: CardContext) -> list[str]:
     out = [
         "### Model details",
         "",
-        _network_line(meta["resolved"], len(a.variants)),
+        _network_line(meta["resolved"], len(a.variants), _sets_stem_stride(a.variants["plan"])),
         f"- Sweep `{meta['name']}` from `{meta['source']}`, definition fingerprint "
         f"`{meta['fingerprint']}` (a hash of the resolved network or model, recipe and data "
         "settings; see Reproducing for the whole sweep's).",

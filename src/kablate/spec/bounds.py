@@ -23,7 +23,7 @@ MAX_STAGES = 64  # [[network.stages]] tables
 MAX_CONVS = 64  # n_convs of one stage
 MAX_GRID_CELLS = 10_000  # cells of all [[grid]] tables of a sweep together
 MAX_DEPTH = 16  # nesting of tables and arrays in a sweep or config file
-MAX_STRIDE = 64  # the stem's stride
+MAX_STRIDE = 64  # the stem's stride: [network.stem] stride, or a plan's "s" part ("11s4")
 MAX_THREADS = 1024  # target.threads
 MAX_SIDE = 4096  # target.input: the height and width latency is measured at
 

@@ -42,9 +42,14 @@ def kernel_spec(allow_empty: bool = False) -> Check:
         if allow_empty and value == "":
             return None
         try:
-            parse_kernel(value)
+            spec = parse_kernel(value)
         except KernelSpecError as exc:
             return str(exc)
+        if spec.stride:
+            return (
+                f'gives a stride ("{value}"), which only a plan may: the base network sets the '
+                "stem's stride with `[network.stem] stride` and a stage's with its `down`"
+            )
         return None
 
     return check_spec
