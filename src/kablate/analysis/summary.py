@@ -39,10 +39,10 @@ from kablate.analysis.tables import (
 )
 from kablate.errors import UsageError
 from kablate.plans.expand import cell_name, grid_cells
+from kablate.results.columns import CURVE_COLUMNS
 from kablate.spec.costs import COSTS
 from kablate.spec.fields import Where, read_table
 from kablate.spec.schema import PickSpec
-from kablate.trials.export import CURVE_COLUMNS
 
 
 @dataclass
@@ -112,7 +112,7 @@ def analyze(
     """Tables, fronts, the recommended plan and the baseline comparisons.
 
     Args:
-        rows, curves: `kablate.trials.export.collect_trials` output.
+        rows, curves: `ResultsFolder.rows` output.
         plan: the content of ``plan.json``.
         grids: the sweep's grids (``sweep.json``'s ``grids``).
         data: the content of ``data.json`` (labels of the scored images, class names).

@@ -14,6 +14,7 @@ from datetime import UTC, datetime
 
 from kablate.analysis.summary import Analysis
 from kablate.costs.export import human
+from kablate.lifecycle import RETIRED
 from kablate.report.race import race_section
 from kablate.report.stem_card import stem_section
 from kablate.report.tables import (
@@ -33,7 +34,6 @@ from kablate.report.verdict import (
 )
 from kablate.spec.fields import Where, read_table
 from kablate.spec.schema import RecipeSpec
-from kablate.trials.queue import RETIRED
 
 STAMP_PREFIX = "Generated "
 CAUTION = (

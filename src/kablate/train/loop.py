@@ -36,14 +36,14 @@ from kablate.data.prepare import PreparedData, Split
 from kablate.nets.build import build_network
 from kablate.nets.layout import Layout
 from kablate.nets.model_variant import ModelVariant
+from kablate.results.evidence import encode_predictions
+from kablate.results.paths import CHECKPOINT
 from kablate.spec.schema import RecipeSpec
 from kablate.train.checkpoint import read_or_set_aside, resume_problem, save_checkpoint, set_aside
-from kablate.train.evidence import encode_predictions
 from kablate.train.record import EpochRecord, TrialRecord, shown_epoch
 from kablate.train.schedule import get_lr_factor
 
 EVAL_BATCH = 512
-CHECKPOINT = "checkpoint.pt"
 
 
 class TrialInterrupted(Exception):
@@ -215,8 +215,8 @@ def restore(
 def checkpoint_state(
     identity: str, model: nn.Module, optimizer: torch.optim.Optimizer, progress: Progress
 ) -> dict[str, Any]:
-    """What `restore` reads back. The file stays after the trial ends: `scored_state` gives the
-    weights the trial was scored with."""
+    """What `restore` reads back. The file stays after the trial ends:
+    `kablate.results.checkpoint.scored_state` gives the weights the trial was scored with."""
     return {
         "identity": identity,
         "model": model.state_dict(),
@@ -229,12 +229,6 @@ def checkpoint_state(
         "eval_seconds": progress.eval_seconds,
         "record": progress.record.to_dict(),
     }
-
-
-def scored_state(saved: dict[str, Any]) -> dict[str, torch.Tensor]:
-    """The weights a finished trial's checkpoint was scored with: the chosen epoch's when it
-    kept one (``test_from = "best"``), else the last epoch's."""
-    return saved["best_state"] or saved["model"]
 
 
 def train_trial(

@@ -28,6 +28,7 @@ from kablate.console import LOG_DATE_FORMAT, LOG_FORMAT, Steps, console_handler
 from kablate.costs.catalog import build_catalog
 from kablate.data.prepare import prepare_data
 from kablate.errors import EXIT_DISK_FULL, EXIT_STOPPED, DiskFullError, is_disk_full
+from kablate.results.paths import RUN_LOG
 from kablate.spec.loader import load_sweep
 from kablate.trials.eta import eta_seconds
 from kablate.trials.export import collect_trials
@@ -58,7 +59,7 @@ def setup_logging(results_dir: Path, to_console: bool, steps_on_console: bool = 
     for handler in list(logger.handlers):
         logger.removeHandler(handler)
     results_dir.mkdir(parents=True, exist_ok=True)
-    file_handler = RunLogHandler(results_dir / "run.log")
+    file_handler = RunLogHandler(results_dir / RUN_LOG)
     file_handler.setFormatter(logging.Formatter(LOG_FORMAT, LOG_DATE_FORMAT))
     logger.addHandler(file_handler)
     if to_console or steps_on_console:

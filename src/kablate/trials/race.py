@@ -147,7 +147,7 @@ class Race:
         """The record of round ``r``, or None while a variant in the race lacks a seed."""
         from kablate.analysis.evidence import Evidence
         from kablate.analysis.race import retirements
-        from kablate.train.evidence import decode_predictions
+        from kablate.results.evidence import decode_predictions
 
         retired = retired_variants(rounds)
         seeds = self.seeds[: r + 1]

@@ -21,30 +21,25 @@ from kablate.costs.catalog import Catalog, build_catalog, measure_latencies
 from kablate.costs.export import variant_json
 from kablate.data.prepare import prepare_data
 from kablate.errors import UsageError
+from kablate.results.paths import DATA_FILE, JOURNAL, PLAN_FILE, SWEEP_FILE
+from kablate.results.redact import redact, sanitize, strip_password
+from kablate.results.tables import write_trial_tables
+from kablate.results.write import writable_folder, write_json
 from kablate.spec.loader import load_sweep
 from kablate.train.device import check_device
 from kablate.train.loop import warm_up
 from kablate.trials.budget import calibrate, format_plan, schedule
-from kablate.trials.environment import environment, sanitize
-from kablate.trials.export import CURVE_COLUMNS, TRIAL_COLUMNS, collect_trials, write_csv
+from kablate.trials.environment import environment
+from kablate.trials.export import collect_trials
 from kablate.trials.jobs import Job, sweep_jobs
 from kablate.trials.liveness import liveness_for
-from kablate.trials.meta import check_definition, definition, fingerprint, write_json
+from kablate.trials.meta import check_definition, definition, fingerprint
 from kablate.trials.outcome import FINISHED, failure_reasons, own_counts
 from kablate.trials.pool import Progress, detach_run_log, run_workers, setup_logging
-from kablate.trials.preflight import run_preflight, writable_folder
+from kablate.trials.preflight import run_preflight
 from kablate.trials.queue import enqueue_missing, job_status, tagged_trials
 from kablate.trials.race import start_race
-from kablate.trials.results import DATA_FILE, PLAN_FILE, SWEEP_FILE
-from kablate.trials.store import (
-    JOURNAL,
-    lock_dir,
-    open_study,
-    redact,
-    resolve_url,
-    storage_exists,
-    strip_password,
-)
+from kablate.trials.store import lock_dir, open_study, resolve_url, storage_exists
 
 log = logging.getLogger("kablate")
 
@@ -157,8 +152,7 @@ def write_manifest(
 
 def export_results(results_dir: Path, study, plan: dict) -> dict[str, int]:
     rows, curves = collect_trials(study, plan)
-    write_csv(results_dir / "trials.csv", rows, TRIAL_COLUMNS)
-    write_csv(results_dir / "curves.csv", curves, CURVE_COLUMNS)
+    write_trial_tables(results_dir, rows, curves)
     counts: dict[str, int] = {}
     for row in rows:
         counts[row["status"]] = counts.get(row["status"], 0) + 1

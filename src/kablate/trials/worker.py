@@ -21,6 +21,9 @@ from optuna.trial import TrialState
 from kablate.costs.catalog import Catalog
 from kablate.data.prepare import PreparedData
 from kablate.errors import DiskFullError, is_disk_full
+from kablate.lifecycle import JobKey
+from kablate.results.paths import RECORD_FILE, trial_dir
+from kablate.results.write import write_text
 from kablate.train.loop import TrialInterrupted, train_trial
 from kablate.train.record import TrialRecord
 from kablate.trials.eta import time_ratio
@@ -50,10 +53,6 @@ class WorkerContext:
     @property
     def worker_name(self) -> str:
         return f"{socket.gethostname()}:{os.getpid()}"
-
-
-def trial_dir(results_dir: Path, key: str) -> Path:
-    return results_dir / "trials" / key
 
 
 def record_attrs(record: TrialRecord) -> dict:
@@ -151,8 +150,7 @@ def _train_and_tell(ctx: WorkerContext, trial: optuna.Trial, key: str) -> str:
     values["trial_seconds"] = round(time.perf_counter() - started, 3)
     for name, value in values.items():
         trial.set_user_attr(name, value)
-    workdir.mkdir(parents=True, exist_ok=True)
-    (workdir / "record.json").write_text(json.dumps(record.to_dict(), indent=1, default=str))
+    write_text(workdir / RECORD_FILE, json.dumps(record.to_dict(), indent=1, default=str))
     if record.status == "diverged":
         trial.set_user_attr("outcome", "diverged")
         ctx.study.tell(trial, state=TrialState.FAIL)
@@ -169,10 +167,6 @@ def _train_and_tell(ctx: WorkerContext, trial: optuna.Trial, key: str) -> str:
     return record.status
 
 
-def variant_of(key: str) -> str:
-    return key.rsplit("-s", 1)[0]
-
-
 def fits_budget(ctx: WorkerContext, scale: float) -> bool:
     """Whether the next waiting trial is predicted to end before the deadline."""
     if not ctx.deadline:
@@ -180,7 +174,7 @@ def fits_budget(ctx: WorkerContext, scale: float) -> bool:
     key = next_waiting_key(ctx.study, ctx.order or {})
     if key is None:
         return True
-    predicted = (ctx.estimates or {}).get(variant_of(key), 0.0) * scale
+    predicted = (ctx.estimates or {}).get(JobKey.parse(key).variant_id, 0.0) * scale
     left = ctx.deadline - time.time()
     if predicted > left:
         log.info(
@@ -226,7 +220,7 @@ def work(ctx: WorkerContext, on_finish: Callable[[str, str], None] | None = None
             break
         started = time.time()
         status = run_one(ctx, claim)
-        predicted = (ctx.estimates or {}).get(variant_of(claim.key))
+        predicted = (ctx.estimates or {}).get(JobKey.parse(claim.key).variant_id)
         if predicted:
             took[claim.key], predictions[claim.key] = time.time() - started, predicted
         n += 1
