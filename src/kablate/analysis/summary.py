@@ -30,14 +30,13 @@ from kablate.analysis.power import Resolution, resolution_after
 from kablate.analysis.race import in_race, put_retired, retired_accuracies
 from kablate.analysis.stem import StemAtlas
 from kablate.analysis.tables import (
-    FINISHED,
-    SETTLED,
     add_fronts,
     balanced_seeds,
     trial_frame,
     variant_frame,
 )
 from kablate.errors import UsageError
+from kablate.lifecycle import FINISHED, SETTLED
 from kablate.plans.expand import cell_name, grid_cells
 from kablate.results.columns import CURVE_COLUMNS
 from kablate.spec.costs import COSTS

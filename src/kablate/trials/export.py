@@ -7,10 +7,10 @@ from __future__ import annotations
 
 import optuna
 
-from kablate.lifecycle import JobKey
+from kablate.lifecycle import RETIRED, JobKey
 from kablate.results.columns import CURVE_COLUMNS, TRIAL_COLUMNS
 from kablate.train.record import shown_epoch
-from kablate.trials.queue import RETIRED, job_status, tagged_trials
+from kablate.trials.queue import job_status, tagged_trials
 from kablate.trials.race import RULE_ATTR, read_rounds, retired_variants
 
 

@@ -15,7 +15,7 @@ Two implementations, one per kind of storage:
 - `HeartbeatLiveness` (PostgreSQL: several machines). Optuna's heartbeat: the worker records
   one every interval from a thread; `optuna.storages.fail_stale_trials` fails trials whose
   last heartbeat (server clock) is older than the grace period, and the storage's callback
-  requeues the job (store.requeue).
+  requeues the job (queue.requeue_lost). The states and moves are lifecycle.py's.
 """
 
 from __future__ import annotations
@@ -32,7 +32,7 @@ import optuna
 from optuna.exceptions import UpdateFinishedTrialError
 from optuna.trial import TrialState
 
-from kablate.trials.store import requeue
+from kablate.trials.queue import requeue_lost
 
 log = logging.getLogger("kablate")
 
@@ -107,7 +107,7 @@ class LocalLiveness:
                     storage.set_trial_state_values(trial._trial_id, TrialState.FAIL)
                 except UpdateFinishedTrialError:
                     continue
-                requeue(study, current)
+                requeue_lost(study, current)
                 recovered.append(current.user_attrs.get("job", ""))
             finally:
                 self.release(token)

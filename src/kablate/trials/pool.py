@@ -21,19 +21,21 @@ from dataclasses import dataclass, field
 from datetime import datetime
 from pathlib import Path
 
-from optuna.trial import FrozenTrial, TrialState
+from optuna.trial import FrozenTrial
 from tqdm import tqdm
 
 from kablate.console import LOG_DATE_FORMAT, LOG_FORMAT, Steps, console_handler
 from kablate.costs.catalog import build_catalog
 from kablate.data.prepare import prepare_data
 from kablate.errors import EXIT_DISK_FULL, EXIT_STOPPED, DiskFullError, is_disk_full
+from kablate.lifecycle import DONE, RUNNING, is_finished, n_finished
 from kablate.results.paths import RUN_LOG
 from kablate.spec.loader import load_sweep
 from kablate.trials.eta import eta_seconds
 from kablate.trials.export import collect_trials
 from kablate.trials.jobs import sweep_jobs
 from kablate.trials.liveness import liveness_for
+from kablate.trials.queue import trial_status
 from kablate.trials.status import duration
 from kablate.trials.store import lock_dir, open_study
 from kablate.trials.worker import WorkerContext, work
@@ -201,13 +203,13 @@ class Progress:
             key = t.user_attrs.get("job")
             if key is None:
                 continue
-            diverged = t.user_attrs.get("outcome") == "diverged"
-            if t.state == TrialState.COMPLETE or diverged:
+            status = trial_status(t)
+            if is_finished(status):
                 done.add(key)
                 # A diverged trial stops early: its time says nothing of the others'.
-                if not diverged and t.datetime_start and t.datetime_start >= self.since:
+                if status == DONE and t.datetime_start and t.datetime_start >= self.since:
                     measured[key] = (t.datetime_complete - t.datetime_start).total_seconds()
-            elif t.state == TrialState.RUNNING and t.datetime_start:
+            elif status == RUNNING and t.datetime_start:
                 started[key] = t.datetime_start
         with self.lock:
             self.measured, self.done, self.started = measured, done, started
@@ -308,9 +310,8 @@ def run_workers(sweep_path, results_dir, opts, url, layout, deadline, seconds, s
 
             def on_finish(key: str, status: str) -> None:
                 rows, _ = collect_trials(study, plan)
-                counts = [r["status"] for r in rows]
                 progress.observe(study.get_trials(deepcopy=False))
-                progress.update(counts.count("done") + counts.count("diverged"))
+                progress.update(n_finished(r["status"] for r in rows))
 
             outcome.worker_names.add(ctx.worker_name)
             warm_up(catalog.sweep.recipe)
@@ -381,8 +382,7 @@ def supervise(procs, args, workers, stop, state) -> None:
         if stop.stopped and stop.forward is not None:
             stop.forward(signal.SIGINT)  # reaches workers that were still starting (a no-op else)
         rows, _ = collect_trials(study, plan)
-        statuses = [r["status"] for r in rows]
-        finished = statuses.count("done") + statuses.count("diverged")
+        finished = n_finished(r["status"] for r in rows)
         if finished != progress.n:
             progress.observe(study.get_trials(deepcopy=False))
             progress.update(finished)

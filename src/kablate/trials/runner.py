@@ -21,6 +21,7 @@ from kablate.costs.catalog import Catalog, build_catalog, measure_latencies
 from kablate.costs.export import variant_json
 from kablate.data.prepare import prepare_data
 from kablate.errors import UsageError
+from kablate.lifecycle import FINISHED, is_finished
 from kablate.results.paths import DATA_FILE, JOURNAL, PLAN_FILE, SWEEP_FILE
 from kablate.results.redact import redact, sanitize, strip_password
 from kablate.results.tables import write_trial_tables
@@ -34,7 +35,7 @@ from kablate.trials.export import collect_trials
 from kablate.trials.jobs import Job, sweep_jobs
 from kablate.trials.liveness import liveness_for
 from kablate.trials.meta import check_definition, definition, fingerprint
-from kablate.trials.outcome import FINISHED, failure_reasons, own_counts
+from kablate.trials.outcome import failure_reasons, own_counts
 from kablate.trials.pool import Progress, detach_run_log, run_workers, setup_logging
 from kablate.trials.preflight import run_preflight
 from kablate.trials.queue import enqueue_missing, job_status, tagged_trials
@@ -161,11 +162,7 @@ def export_results(results_dir: Path, study, plan: dict) -> dict[str, int]:
 
 def finished_jobs(study, jobs: list[Job]) -> set[str]:
     by_job = tagged_trials(study)
-    return {
-        j.key
-        for j in jobs
-        if j.key in by_job and job_status(by_job[j.key])[0] in ("done", "diverged")
-    }
+    return {j.key for j in jobs if j.key in by_job and is_finished(job_status(by_job[j.key])[0])}
 
 
 def estimate(
@@ -303,7 +300,7 @@ def _run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
     with liveness.queue_lock():
         n_new = race.advance(study, liveness) if race else enqueue_missing(study, jobs)
     before = export_results(results_dir, study, plan)
-    n_finished = before.get("done", 0) + before.get("diverged", 0)
+    n_finished = sum(before.get(status, 0) for status in FINISHED)
     to_run = len(jobs) - n_finished
     log.info(
         "sweep %s: %d trials, %d already finished, %d to run on %d worker(s) x %d "

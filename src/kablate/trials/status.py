@@ -18,7 +18,8 @@ from datetime import datetime
 from optuna.trial import FrozenTrial, TrialState
 
 from kablate.errors import KablateError
-from kablate.trials.queue import RETIRED
+from kablate.lifecycle import RETIRED, is_finished
+from kablate.trials.queue import trial_status
 from kablate.trials.results import StoredResults
 
 STATES = ("done", "running", "waiting", "failed", "diverged", RETIRED)
@@ -69,11 +70,7 @@ def summarize(
         entry["n_trials"] += 1
         entry[row_state(row["status"])] += 1
     tagged = [t for t in trials if t.user_attrs.get("job")]
-    finished = [
-        t
-        for t in tagged
-        if t.state == TrialState.COMPLETE or t.user_attrs.get("outcome") == "diverged"
-    ]
+    finished = [t for t in tagged if is_finished(trial_status(t))]
     finished.sort(key=lambda t: t.datetime_complete)
     durations = [
         (t.datetime_complete - t.datetime_start).total_seconds()

@@ -16,7 +16,6 @@ Liveness of a running trial is checked in one of two ways (see liveness.py):
 from __future__ import annotations
 
 import importlib.util
-import logging
 import os
 import re
 import time
@@ -25,13 +24,12 @@ from pathlib import Path
 
 import optuna
 from optuna.storages import JournalStorage, RDBStorage
-from optuna.trial import FrozenTrial
 
 from kablate.errors import UsageError
 from kablate.results.paths import JOURNAL, LOCKS
 from kablate.results.redact import redact
-from kablate.trials.jobs import Job
 from kablate.trials.journal import GuardedJournal, ReadOnlyJournal
+from kablate.trials.queue import requeue_lost
 
 DIRECTIONS = ["maximize", "minimize"]  # validation accuracy ↑, MACs ↓
 HEARTBEAT_SECONDS = 30
@@ -67,17 +65,6 @@ def lock_dir(results_dir: Path, url: str | None) -> Path:
 def heartbeat_seconds() -> int:
     text = os.environ.get(HEARTBEAT_ENV, "")
     return int(text) if text.isdigit() and int(text) > 0 else HEARTBEAT_SECONDS
-
-
-def requeue(study: optuna.Study, trial: FrozenTrial) -> None:
-    """Put the job of a failed (abandoned or interrupted) trial back in the queue."""
-    if not trial.user_attrs.get("job"):
-        return
-    attrs = Job.from_attrs(trial.user_attrs).attrs()
-    study.enqueue_trial({}, user_attrs=attrs)
-    logging.getLogger("kablate").warning(
-        "trial %s had lost its worker: back in the queue", attrs["job"]
-    )
 
 
 def engine_url(url: str) -> str:
@@ -125,7 +112,7 @@ def _rdb_storage(url: str) -> RDBStorage:
         engine_url(url),
         heartbeat_interval=interval,
         grace_period=3 * interval,
-        heartbeat_stale_trial_callback=requeue,
+        heartbeat_stale_trial_callback=requeue_lost,
     )
 
 

@@ -28,7 +28,7 @@ from kablate.train.loop import TrialInterrupted, train_trial
 from kablate.train.record import TrialRecord
 from kablate.trials.eta import time_ratio
 from kablate.trials.jobs import Job
-from kablate.trials.queue import Claim, claim_next, clean, next_waiting_key
+from kablate.trials.queue import Claim, claim_next, clean, next_waiting_key, requeue
 from kablate.trials.race import race_of_study
 
 log = logging.getLogger("kablate")
@@ -103,7 +103,7 @@ def put_back(ctx: WorkerContext, trial: optuna.Trial, outcome: str) -> None:
     try:
         trial.set_user_attr("outcome", outcome)
         ctx.study.tell(trial, state=TrialState.FAIL)
-        ctx.study.enqueue_trial({}, user_attrs=Job.from_attrs(trial.user_attrs).attrs())
+        requeue(ctx.study, Job.from_attrs(trial.user_attrs))
     except (DiskFullError, OSError) as exc:
         if not isinstance(exc, DiskFullError) and not is_disk_full(exc):
             raise
