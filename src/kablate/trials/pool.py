@@ -20,25 +20,31 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 from datetime import datetime
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from optuna.trial import FrozenTrial
 from tqdm import tqdm
 
 from kablate.console import LOG_DATE_FORMAT, LOG_FORMAT, Steps, console_handler
-from kablate.costs.catalog import build_catalog
-from kablate.data.prepare import prepare_data
+from kablate.costs.catalog import Catalog, build_catalog
+from kablate.data.prepare import PreparedData, prepare_data
 from kablate.errors import EXIT_DISK_FULL, EXIT_STOPPED, DiskFullError, is_disk_full
 from kablate.lifecycle import DONE, RUNNING, is_finished, n_finished
 from kablate.results.paths import RUN_LOG
 from kablate.spec.loader import load_sweep
 from kablate.trials.eta import eta_seconds
 from kablate.trials.export import collect_trials
-from kablate.trials.jobs import sweep_jobs
-from kablate.trials.liveness import liveness_for
+from kablate.trials.jobs import Job, sweep_jobs
+from kablate.trials.liveness import Liveness, liveness_for
 from kablate.trials.queue import trial_status
 from kablate.trials.status import duration
 from kablate.trials.store import lock_dir, open_study
 from kablate.trials.worker import WorkerContext, work
+
+if TYPE_CHECKING:  # the runner imports this module
+    import optuna
+
+    from kablate.trials.runner import RunOptions
 
 log = logging.getLogger("kablate")
 
@@ -159,7 +165,7 @@ def _worker_main(
 BAR_FORMAT = "{desc}: {percentage:3.0f}%|{bar}| {n_fmt}/{total_fmt} [{elapsed} elapsed{postfix}]"
 
 
-class Progress:
+class SweepProgress:
     """The sweep's progress: a tqdm bar on a terminal, otherwise a timestamped log line whenever
     a trial finishes and after every silence (`console.Steps`); one ETA (eta.py) in both.
 
@@ -266,6 +272,26 @@ class Progress:
 
 
 @dataclass
+class RunContext:
+    """What the runner hands its workers: the sweep, where it runs, and how."""
+
+    sweep_path: Path
+    results_dir: Path
+    opts: RunOptions
+    url: str | None  # the storage; None: the folder's journal file
+    layout: tuple[int, int]  # (workers, threads per worker)
+    deadline: float  # time.time() by which every started trial should end; 0: none
+    estimates: dict[str, float]  # variant id → predicted trial seconds
+    catalog: Catalog
+    data: PreparedData
+    study: optuna.Study
+    liveness: Liveness
+    plan: dict  # the variants and seeds whose rows count (`collect_trials`)
+    jobs: list[Job]
+    progress: SweepProgress
+
+
+@dataclass
 class PoolOutcome:
     """What the workers of one run did."""
 
@@ -274,12 +300,12 @@ class PoolOutcome:
     disk_full: str = ""  # the message, when a worker ran out of disk space
 
 
-def run_workers(sweep_path, results_dir, opts, url, layout, deadline, seconds, state, progress):
+def run_workers(run: RunContext) -> PoolOutcome:
     """Run the workers (in this process when there is one); a `PoolOutcome`."""
     from kablate.train.loop import TrialInterrupted, warm_up
 
-    catalog, data, study, liveness, plan, jobs = state
-    workers, threads = layout
+    catalog, study, plan, progress = run.catalog, run.study, run.plan, run.progress
+    workers, threads = run.layout
     procs: list = []
     outcome = PoolOutcome()
 
@@ -296,16 +322,16 @@ def run_workers(sweep_path, results_dir, opts, url, layout, deadline, seconds, s
         if workers == 1:
             ctx = WorkerContext(
                 catalog,
-                data,
+                run.data,
                 study,
-                results_dir,
+                run.results_dir,
                 threads,
-                opts.device,
+                run.opts.device,
                 should_stop=stop,
-                deadline=deadline,
-                liveness=liveness,
-                order={job.key: i for i, job in enumerate(jobs)},
-                estimates=seconds,
+                deadline=run.deadline,
+                liveness=run.liveness,
+                order={job.key: i for i, job in enumerate(run.jobs)},
+                estimates=run.estimates,
             )
 
             def on_finish(key: str, status: str) -> None:
@@ -319,15 +345,15 @@ def run_workers(sweep_path, results_dir, opts, url, layout, deadline, seconds, s
                 work(ctx, on_finish=on_finish)
         else:
             args = (
-                str(sweep_path),
-                str(opts.results_root),
-                url,
+                str(run.sweep_path),
+                str(run.opts.results_root),
+                run.url,
                 threads,
-                opts.device,
-                deadline,
-                seconds,
+                run.opts.device,
+                run.deadline,
+                run.estimates,
             )
-            supervise(procs, args, workers, stop, (study, plan, progress, outcome, results_dir))
+            supervise(procs, args, stop, run, outcome)
     except DiskFullError as exc:
         log.error("%s", exc)
         outcome.disk_full = str(exc)
@@ -351,13 +377,13 @@ def run_workers(sweep_path, results_dir, opts, url, layout, deadline, seconds, s
 POLL_SECONDS = 2.0
 
 
-def supervise(procs, args, workers, stop, state) -> None:
+def supervise(procs, args, stop: StopFlag, run: RunContext, outcome: PoolOutcome) -> None:
     """Start the worker processes, follow their progress, and replace one that dies.
 
     A worker that ran out of disk space (exit code 4) stops the others: each puts its trial
     back in the queue, and `outcome.disk_full` says so.
     """
-    study, plan, progress, outcome, results_dir = state
+    study, plan, progress, workers = run.study, run.plan, run.progress, run.layout[0]
     ctx = mp.get_context("spawn")
     host = socket.gethostname()
 
@@ -390,7 +416,7 @@ def supervise(procs, args, workers, stop, state) -> None:
             procs.remove(proc)
             proc.join()
             if proc.exitcode == EXIT_DISK_FULL and not outcome.disk_full:
-                outcome.disk_full = str(DiskFullError(results_dir, "run.log names the file"))
+                outcome.disk_full = str(DiskFullError(run.results_dir, "run.log names the file"))
                 stop.stopped = True
                 stop.forward(signal.SIGINT)
             if stop.stopped or n_restarts >= 2 * workers:

@@ -36,7 +36,13 @@ from kablate.trials.jobs import Job, sweep_jobs
 from kablate.trials.liveness import liveness_for
 from kablate.trials.meta import check_definition, definition, fingerprint
 from kablate.trials.outcome import failure_reasons, own_counts
-from kablate.trials.pool import Progress, detach_run_log, run_workers, setup_logging
+from kablate.trials.pool import (
+    RunContext,
+    SweepProgress,
+    detach_run_log,
+    run_workers,
+    setup_logging,
+)
 from kablate.trials.preflight import run_preflight
 from kablate.trials.queue import enqueue_missing, job_status, tagged_trials
 from kablate.trials.race import start_race
@@ -327,23 +333,31 @@ def _run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
     if to_run:
         deadline = started + opts.budget_seconds if opts.budget_seconds else 0.0
         step("sweep", f"training {to_run} trials on {layout[0]} worker(s)")
+        progress = SweepProgress(
+            len(jobs),
+            n_finished,
+            interactive,
+            predicted={j.key: seconds.get(j.variant_id, 0.0) for j in jobs},
+            n_workers=layout[0],
+            since=started_at,
+        )
         pool = run_workers(
-            sweep_path,
-            results_dir,
-            opts,
-            url,
-            layout,
-            deadline,
-            seconds,
-            (catalog, data, study, liveness, plan, jobs),
-            Progress(
-                len(jobs),
-                n_finished,
-                interactive,
-                predicted={j.key: seconds.get(j.variant_id, 0.0) for j in jobs},
-                n_workers=layout[0],
-                since=started_at,
-            ),
+            RunContext(
+                sweep_path=sweep_path,
+                results_dir=results_dir,
+                opts=opts,
+                url=url,
+                layout=layout,
+                deadline=deadline,
+                estimates=seconds,
+                catalog=catalog,
+                data=data,
+                study=study,
+                liveness=liveness,
+                plan=plan,
+                jobs=jobs,
+                progress=progress,
+            )
         )
         own = own_counts(study, pool.worker_names, started_at)
         summary.n_ran = sum(own[s] for s in FINISHED)

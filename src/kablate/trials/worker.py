@@ -28,6 +28,7 @@ from kablate.train.loop import TrialInterrupted, train_trial
 from kablate.train.record import TrialRecord
 from kablate.trials.eta import time_ratio
 from kablate.trials.jobs import Job
+from kablate.trials.liveness import Liveness
 from kablate.trials.queue import Claim, claim_next, clean, next_waiting_key, requeue
 from kablate.trials.race import race_of_study
 
@@ -46,7 +47,7 @@ class WorkerContext:
     should_stop: Callable[[], bool] | None = None
     max_trials: int = 0  # 0: until the queue is empty
     deadline: float = 0.0  # time.time() by which every started trial should end; 0: none
-    liveness: object = None  # liveness.LocalLiveness or HeartbeatLiveness
+    liveness: Liveness | None = None  # liveness.LocalLiveness or HeartbeatLiveness
     order: dict[str, int] | None = None  # job key → position in the sweep's order
     estimates: dict[str, float] | None = None  # variant id → predicted trial seconds
 
