@@ -41,10 +41,8 @@ from kablate.trials.status import duration
 from kablate.trials.store import lock_dir, open_study
 from kablate.trials.worker import WorkerContext, work
 
-if TYPE_CHECKING:  # the runner imports this module
+if TYPE_CHECKING:
     import optuna
-
-    from kablate.trials.runner import RunOptions
 
 log = logging.getLogger("kablate")
 
@@ -276,8 +274,9 @@ class RunContext:
     """What the runner hands its workers: the sweep, where it runs, and how."""
 
     sweep_path: Path
+    results_root: Path  # the workers' --results; the sweep's own folder is results_dir
     results_dir: Path
-    opts: RunOptions
+    device: str
     url: str | None  # the storage; None: the folder's journal file
     layout: tuple[int, int]  # (workers, threads per worker)
     deadline: float  # time.time() by which every started trial should end; 0: none
@@ -326,7 +325,7 @@ def run_workers(run: RunContext) -> PoolOutcome:
                 study,
                 run.results_dir,
                 threads,
-                run.opts.device,
+                run.device,
                 should_stop=stop,
                 deadline=run.deadline,
                 liveness=run.liveness,
@@ -346,10 +345,10 @@ def run_workers(run: RunContext) -> PoolOutcome:
         else:
             args = (
                 str(run.sweep_path),
-                str(run.opts.results_root),
+                str(run.results_root),
                 run.url,
                 threads,
-                run.opts.device,
+                run.device,
                 run.deadline,
                 run.estimates,
             )

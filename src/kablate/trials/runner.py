@@ -344,8 +344,9 @@ def _run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
         pool = run_workers(
             RunContext(
                 sweep_path=sweep_path,
+                results_root=opts.results_root,
                 results_dir=results_dir,
-                opts=opts,
+                device=opts.device,
                 url=url,
                 layout=layout,
                 deadline=deadline,
