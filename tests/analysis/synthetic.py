@@ -11,7 +11,7 @@ import zlib
 
 import numpy as np
 
-from kablate.train.evidence import encode_predictions
+from kablate.results.evidence import encode_predictions
 
 N_IMAGES = 100
 N_CLASSES = 10

@@ -20,10 +20,11 @@ from kablate.errors import SweepError
 from kablate.nets.build import build_network
 from kablate.nets.handoff import build_handoff
 from kablate.report import write_report
+from kablate.results.checkpoint import scored_state
+from kablate.results.columns import PREDICTION_COLUMNS
+from kablate.results.paths import CHECKPOINT
 from kablate.spec import load_sweep
-from kablate.train.loop import CHECKPOINT, scored_state
 from kablate.trials import RunOptions, open_results, run_sweep
-from kablate.trials.export import PREDICTION_COLUMNS
 from tests.conftest import TINY_SWEEP, write_sweep
 
 
@@ -246,7 +247,7 @@ def test_without_a_finished_baseline_there_is_no_verdict_and_no_map(results):
     from kablate.analysis.summary import analyze
     from kablate.report.card import render_card
     from kablate.report.trained import erf_maps
-    from kablate.trials.meta import read_json
+    from kablate.results.folder import read_json
     from tests.report.test_plots import card_context
 
     folder = open_results(results)
@@ -315,7 +316,7 @@ def test_the_report_describes_what_each_stem_learned(results):
 def test_export_onnx_carries_fresh_weights_or_a_chosen_seeds_scored_weights(results, tmp_path):
     ort = pytest.importorskip("onnxruntime")
     from kablate.report.handoff import find_variant
-    from kablate.report.trained import scored_states
+    from kablate.results.checkpoint import scored_states
 
     runner = CliRunner()
     args = ["export", str(results), "--variant", "all-3", "--onnx"]

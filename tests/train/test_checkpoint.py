@@ -15,9 +15,9 @@ import kablate.train.checkpoint as checkpoint
 from kablate.costs.catalog import build_catalog
 from kablate.data import prepare_data
 from kablate.errors import DiskFullError
+from kablate.results.paths import CHECKPOINT
 from kablate.spec import load_sweep
 from kablate.train import train_trial
-from kablate.train.loop import CHECKPOINT
 from tests.train.test_loop import SWEEP
 
 

@@ -12,11 +12,13 @@ import kablate.train.loop as loop
 from kablate.costs.catalog import build_catalog
 from kablate.data import prepare_data
 from kablate.errors import SweepError
+from kablate.results.checkpoint import scored_state
+from kablate.results.evidence import decode_predictions
+from kablate.results.paths import CHECKPOINT
 from kablate.spec import load_sweep
 from kablate.spec.schema import AugmentSpec
 from kablate.train import TrialInterrupted, train_trial
 from kablate.train.checkpoint import load_checkpoint, save_checkpoint
-from kablate.train.evidence import decode_predictions
 from tests.conftest import REPO
 
 SWEEP = """
@@ -121,9 +123,9 @@ def test_the_record_holds_the_curve_and_the_final_numbers(tiny, tmp_path):
         assert len(predicted) == len(labels)
         assert (predicted == labels).mean() == acc
     # The checkpoint stays, loads with weights_only=True, and holds the scored (last) weights.
-    saved = torch.load(tmp_path / loop.CHECKPOINT, weights_only=True)
+    saved = torch.load(tmp_path / CHECKPOINT, weights_only=True)
     assert saved["epoch"] == 2 and saved["best_state"] is None
-    assert loop.scored_state(saved) is saved["model"]
+    assert scored_state(saved) is saved["model"]
 
 
 @pytest.mark.slow
@@ -142,8 +144,8 @@ def test_best_epoch_is_chosen_on_the_early_stopping_fold_never_on_validation(tin
     # is that epoch's validation accuracy, whatever the other epochs scored on validation.
     assert record.score_epoch == record.best_epoch
     assert record.val_acc == record.curve[record.best_epoch].val_acc
-    saved = torch.load(tmp_path / loop.CHECKPOINT, weights_only=True)
-    assert loop.scored_state(saved) is saved["best_state"]
+    saved = torch.load(tmp_path / CHECKPOINT, weights_only=True)
+    assert scored_state(saved) is saved["best_state"]
 
 
 def test_best_without_an_early_stopping_fold_is_refused(tmp_path):
@@ -283,7 +285,7 @@ def test_an_interrupted_trial_resumes_to_the_numbers_of_an_uninterrupted_one(tin
         train_trial(
             layouts["all-3"], recipe, data, 3, workdir=workdir, should_stop=stop_in_epoch_two
         )
-    assert load_checkpoint(workdir / loop.CHECKPOINT)["epoch"] == 1  # epochs 0 and 1 are safe
+    assert load_checkpoint(workdir / CHECKPOINT)["epoch"] == 1  # epochs 0 and 1 are safe
     resumed = train_trial(layouts["all-3"], recipe, data, seed=3, workdir=workdir)
     assert resumed.note == "resumed at epoch 3"
     assert curve_values(resumed) == curve_values(whole)

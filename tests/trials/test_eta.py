@@ -11,7 +11,7 @@ from datetime import datetime, timedelta
 import pytest
 
 from kablate.trials.eta import eta_seconds, time_ratio
-from kablate.trials.pool import Progress
+from kablate.trials.pool import SweepProgress
 
 PREDICTED = {"a-s0": 10.0, "b-s0": 20.0, "c-s0": 30.0, "d-s0": 40.0}
 
@@ -50,7 +50,7 @@ def test_a_trial_past_its_prediction_counts_as_nothing_left_and_old_trials_as_do
 
 
 def test_the_bar_shows_kablates_eta_and_not_its_own(capsys):
-    progress = Progress(4, 0, interactive=True, predicted=PREDICTED, n_workers=2)
+    progress = SweepProgress(4, 0, interactive=True, predicted=PREDICTED, n_workers=2)
     now = datetime.now()
     # a took 15 s (r = 1.5); b has run 100 s, past 1.5·20 = 30: nothing left of it.
     # c and d wait: (45 + 60) / 2 = 52.5 < 60, so the ETA is 60 s = 1m00s.
@@ -66,6 +66,6 @@ def test_the_bar_shows_kablates_eta_and_not_its_own(capsys):
 
 
 def test_before_a_trial_is_claimed_the_line_says_the_workers_are_starting():
-    progress = Progress(4, 0, interactive=False, predicted=PREDICTED, n_workers=2)
+    progress = SweepProgress(4, 0, interactive=False, predicted=PREDICTED, n_workers=2)
     assert progress.line() == "progress: 0/4 trials finished; the workers are starting"
     progress.close()

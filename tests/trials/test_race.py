@@ -13,10 +13,11 @@ import csv
 
 import pytest
 
+from kablate.lifecycle import RETIRED
 from kablate.report import write_report
 from kablate.trials import RunOptions, open_results, run_sweep
 from kablate.trials.jobs import order_jobs
-from kablate.trials.queue import RETIRED, enqueue_missing, job_status, tagged_trials
+from kablate.trials.queue import enqueue_missing, job_status, tagged_trials
 from kablate.trials.race import read_rounds
 from kablate.trials.store import open_study
 from tests.conftest import write_sweep

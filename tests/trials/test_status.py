@@ -14,9 +14,9 @@ from optuna.trial import TrialState, create_trial
 
 from kablate.analysis.standing import stand
 from kablate.analysis.summary import analyze
+from kablate.results.paths import DATA_FILE
 from kablate.spec.schema import PickSpec
 from kablate.trials import RunOptions, open_results, run_sweep
-from kablate.trials.results import DATA_FILE
 from kablate.trials.status import format_status, summarize
 from tests.conftest import TINY_SWEEP, write_sweep
 

@@ -1,6 +1,6 @@
 """Per-image evidence: which validation (or test) images each trial classified correctly.
 
-Built from the predictions every trial stores (`kablate.train.evidence`) and the labels in
+Built from the predictions every trial stores (`kablate.results.evidence`) and the labels in
 ``data.json``, on the seeds every compared variant has finished, so that every variant is
 scored on the same (seed, image) pairs and differences are paired on both.
 """
@@ -13,7 +13,7 @@ import numpy as np
 import pandas as pd
 
 from kablate.errors import KablateError
-from kablate.train.evidence import decode_predictions
+from kablate.results.evidence import decode_predictions
 
 
 @dataclass(frozen=True)

@@ -45,7 +45,7 @@ from statsmodels.stats.multitest import multipletests
 from kablate.analysis.bootstrap import N_RESAMPLES, resample_accuracies
 from kablate.analysis.decide import ALPHA, Accuracy, accuracies
 from kablate.analysis.evidence import Evidence, gather_evidence
-from kablate.trials.queue import RETIRED
+from kablate.lifecycle import RETIRED
 
 # variants.csv: the seed after which racing retired a variant, the variant that dominated it,
 # their difference and its one-sided 95% upper bound (fractions), and the Holm-adjusted p-value

@@ -30,19 +30,18 @@ from kablate.analysis.power import Resolution, resolution_after
 from kablate.analysis.race import in_race, put_retired, retired_accuracies
 from kablate.analysis.stem import StemAtlas
 from kablate.analysis.tables import (
-    FINISHED,
-    SETTLED,
     add_fronts,
     balanced_seeds,
     trial_frame,
     variant_frame,
 )
 from kablate.errors import UsageError
+from kablate.lifecycle import FINISHED, SETTLED
 from kablate.plans.expand import cell_name, grid_cells
+from kablate.results.columns import CURVE_COLUMNS
 from kablate.spec.costs import COSTS
 from kablate.spec.fields import Where, read_table
 from kablate.spec.schema import PickSpec
-from kablate.trials.export import CURVE_COLUMNS
 
 
 @dataclass
@@ -112,7 +111,7 @@ def analyze(
     """Tables, fronts, the recommended plan and the baseline comparisons.
 
     Args:
-        rows, curves: `kablate.trials.export.collect_trials` output.
+        rows, curves: `ResultsFolder.rows` output.
         plan: the content of ``plan.json``.
         grids: the sweep's grids (``sweep.json``'s ``grids``).
         data: the content of ``data.json`` (labels of the scored images, class names).

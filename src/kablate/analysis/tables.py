@@ -10,16 +10,12 @@ from kablate.analysis.pareto import pareto_front
 from kablate.analysis.stats import t_interval
 from kablate.costs.export import LATENCY_FIELDS, ORT_FIELDS
 from kablate.costs.memory import weight_bytes
+from kablate.lifecycle import FINISHED, SETTLED
 from kablate.plans.expand import plan_text
 from kablate.spec.costs import COSTS
-from kablate.trials.queue import RETIRED
 
 # Latency fields that hold a mapping or a list, not one figure per variant
 LISTS = ("conv_backends", "latency_input")
-# A trial in one of these states has a result (diverged: trained, but its loss blew up).
-FINISHED = ("done", "diverged")
-# A trial in one of these needs nothing more: racing gave a retired variant no more seeds.
-SETTLED = (*FINISHED, RETIRED)
 
 
 def trial_frame(rows: list[dict]) -> pd.DataFrame:

@@ -24,21 +24,14 @@ from kablate.report.plots import (
 )
 from kablate.report.stem_card import STEM_FILTERS, STEM_SEEDS_TABLE, STEM_TABLE
 from kablate.report.stem_plots import plot_stem_atlas, plot_stem_spectrum
+from kablate.results.columns import TRIAL_COLUMNS
+from kablate.results.folder import ResultsFolder
+from kablate.results.paths import CARD_FILE, REPORT_DIR, TRIALS_JSON, VARIANTS_FILE, VARIANTS_JSON
+from kablate.results.redact import scrub
+from kablate.results.tables import write_predictions, write_trial_tables
+from kablate.results.write import writable_folder, write_csv, write_json, write_text
 from kablate.spec.costs import COSTS
 from kablate.spec.schema import PickSpec
-from kablate.trials.environment import sanitize
-from kablate.trials.export import (
-    CURVE_COLUMNS,
-    PREDICTIONS_FILE,
-    TRIAL_COLUMNS,
-    write_csv,
-    write_predictions,
-)
-from kablate.trials.meta import read_json, write_json
-from kablate.trials.preflight import writable_folder
-from kablate.trials.race import race_summary
-from kablate.trials.results import DATA_FILE, ResultsFolder
-from kablate.trials.store import redact
 
 VARIANT_COLUMNS = (
     "variant",
@@ -110,14 +103,14 @@ def subtitle(meta: dict, data: dict) -> str:
 
 def write_tables(out: Path, analysis: Analysis, data: dict) -> None:
     """trials.csv/json, variants.csv/json, curves.csv and predictions.csv.gz in ``out``."""
-    write_predictions(out / PREDICTIONS_FILE, analysis.trials.to_dict("records"), data)
-    write_csv(out / "trials.csv", analysis.trials.to_dict("records"), TRIAL_COLUMNS)
-    write_csv(out / "curves.csv", analysis.curves.to_dict("records"), CURVE_COLUMNS)
+    rows = analysis.trials.to_dict("records")
+    write_predictions(out, rows, data)
+    write_trial_tables(out, rows, analysis.curves.to_dict("records"))
     table = analysis.variants.reindex(columns=list(VARIANT_COLUMNS))
-    write_csv(out / "variants.csv", table.to_dict("records"), VARIANT_COLUMNS)
-    write_json(out / "variants.json", json.loads(table.to_json(orient="records")))
+    write_csv(out / VARIANTS_FILE, table.to_dict("records"), VARIANT_COLUMNS)
+    write_json(out / VARIANTS_JSON, json.loads(table.to_json(orient="records")))
     trials = analysis.trials.reindex(columns=list(TRIAL_COLUMNS))
-    write_json(out / "trials.json", json.loads(trials.to_json(orient="records")))
+    write_json(out / TRIALS_JSON, json.loads(trials.to_json(orient="records")))
 
 
 def draw_plots(analysis: Analysis, out: Path, sub: str) -> list[Path]:
@@ -176,11 +169,6 @@ def write_stem_tables(tables: Path, out: Path, analysis: Analysis) -> None:
         np.savez_compressed(f, **weights)
 
 
-def scrub(text: str) -> str:
-    """No storage password and no absolute home or working path in what we write."""
-    return sanitize(redact(text))
-
-
 def write_report(
     folder: ResultsFolder,
     out: Path | None = None,
@@ -202,15 +190,15 @@ def write_report(
     pick = pick or pick_settings(folder.meta)
     step("report", f"reading the trials of {folder.name}")
     rows, curves = folder.rows()
-    data = read_json(folder.path / DATA_FILE)
+    data = folder.data()
     step("report", "analysing the finished trials (paired bootstrap over seeds and images)")
     analysis = analyze(rows, curves, folder.plan, folder.meta.get("grids", []), data, pick)
-    analysis.race = race_summary(folder.study)
+    analysis.race = folder.race()
     step("report", "writing the tables (trials, variants, curves, predictions)")
     if out is None:
         hint = "; give --out DIR to write the report elsewhere"
         tables = writable_folder(folder.path, "results folder", hint)
-        out = writable_folder(folder.path / "report", "report folder", hint)
+        out = writable_folder(folder.path / REPORT_DIR, "report folder", hint)
     else:
         tables = writable_folder(out, "--out folder")
     write_tables(tables, analysis, data)
@@ -236,8 +224,6 @@ def write_report(
         tuple(p.name for p in plots if p.suffix == ".png"),
         COSTS[pick.cost].label,
     )
-    path = out / "model_card.md"
-    tmp = path.with_suffix(".md.tmp")
-    tmp.write_text(scrub(render_card(analysis, ctx)))
-    tmp.replace(path)
+    path = out / CARD_FILE
+    write_text(path, scrub(render_card(analysis, ctx)))
     return path

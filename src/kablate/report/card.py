@@ -14,6 +14,7 @@ from datetime import UTC, datetime
 
 from kablate.analysis.summary import Analysis
 from kablate.costs.export import human
+from kablate.lifecycle import RETIRED
 from kablate.plans.expand import read_plan_text
 from kablate.plans.grammar import KernelSpecError, parse_kernel
 from kablate.report.race import race_section
@@ -35,7 +36,6 @@ from kablate.report.verdict import (
 )
 from kablate.spec.fields import Where, read_table
 from kablate.spec.schema import RecipeSpec
-from kablate.trials.queue import RETIRED
 
 STAMP_PREFIX = "Generated "
 CAUTION = (

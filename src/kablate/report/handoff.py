@@ -15,11 +15,11 @@ import json
 from pathlib import Path
 
 from kablate.errors import KablateError, UsageError, did_you_mean
+from kablate.lifecycle import JobKey
 from kablate.nets.handoff import HANDOFF_DIR, handoff_dict
-from kablate.trials.meta import write_json
-from kablate.trials.results import ResultsFolder
-
-VARIANTS_FILE = "variants.json"  # written by the report: which variant it recommends
+from kablate.results.folder import ResultsFolder
+from kablate.results.paths import VARIANTS_JSON, checkpoint_path
+from kablate.results.write import write_json
 
 
 def recommended_variant(folder: ResultsFolder) -> str:
@@ -28,7 +28,7 @@ def recommended_variant(folder: ResultsFolder) -> str:
     Raises:
         UsageError: there is no report yet, or it recommends nothing.
     """
-    path = folder.path / VARIANTS_FILE
+    path = folder.path / VARIANTS_JSON  # written by the report: which variant it recommends
     try:
         rows = json.loads(path.read_text(encoding="utf-8"))
     except (OSError, ValueError):
@@ -76,8 +76,7 @@ def write_onnx_handoff(
 
     from kablate.nets.build import build_network
     from kablate.nets.onnx_file import onnx_missing, write_onnx
-    from kablate.report.trained import scored_states
-    from kablate.train.loop import CHECKPOINT
+    from kablate.results.checkpoint import scored_states
 
     missing = onnx_missing()
     if missing:
@@ -89,13 +88,13 @@ def write_onnx_handoff(
     if seed is not None:
         states = scored_states(folder.path, item.variant.id, [seed])
         if seed not in states:
-            where = folder.path / "trials" / f"{item.variant.id}-s{seed}" / CHECKPOINT
+            where = checkpoint_path(folder.path, JobKey(item.variant.id, seed))
             raise UsageError(
                 f"no readable checkpoint of {item.name} seed {seed} at {where}: name a seed "
                 "that finished on this machine, or drop --seed for fresh weights"
             )
         model.load_state_dict(states[seed])
-        weights = f"the weights trial {item.variant.id}-s{seed} was scored with"
+        weights = f"the weights trial {JobKey(item.variant.id, seed)} was scored with"
     path = out or folder.path / HANDOFF_DIR / f"{item.name}.onnx"
     return write_onnx(model, catalog.in_shape, path), weights
 
@@ -108,11 +107,10 @@ def find_variant(folder: ResultsFolder, variant: str | None):
         UsageError: an unknown variant, or a sweep that cannot be rebuilt here.
     """
     from kablate.costs.catalog import build_catalog
-    from kablate.spec.loader import sweep_from_dict
 
     name = variant or recommended_variant(folder)
     try:
-        sweep = sweep_from_dict(folder.meta["resolved"], Path(folder.meta["source"]))
+        sweep = folder.sweep()
         in_shape = tuple(folder.plan["in_shape"])
         catalog = build_catalog(sweep, in_shape=in_shape, n_classes=folder.plan["n_classes"])
     except KablateError as exc:

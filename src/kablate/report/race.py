@@ -1,6 +1,6 @@
 """The card's account of a race over seeds: the rule, the rounds, who was retired and why.
 
-The numbers come from the study's race records (`kablate.trials.race`) and the variants
+The numbers come from the study's race records (`ResultsFolder.race`) and the variants
 table's ``retired_*`` columns (`kablate.analysis.race`); this module only words them.
 """
 

@@ -18,8 +18,8 @@ import numpy as np
 
 from kablate.analysis.stem import StemAtlas, summarize_stems
 from kablate.analysis.summary import Analysis
-from kablate.report.trained import scored_states
-from kablate.trials.results import ResultsFolder
+from kablate.results.checkpoint import scored_states
+from kablate.results.folder import ResultsFolder
 
 GROUPED = "its first conv is grouped (each filter sees only some input channels)"
 NOT_LINEAR = "its stem is {n} convs with a norm and an activation between them: no single filter"

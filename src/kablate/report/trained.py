@@ -4,15 +4,12 @@ reason to skip the maps (said in the card), never an error."""
 
 from __future__ import annotations
 
-from pathlib import Path
-
-import torch
-
 from kablate.analysis.erf import ErfMap, effective_rf
 from kablate.analysis.summary import Analysis
 from kablate.errors import KablateError
-from kablate.train.loop import CHECKPOINT, scored_state
-from kablate.trials.results import ResultsFolder
+from kablate.results.checkpoint import scored_states
+from kablate.results.folder import ResultsFolder
+from kablate.results.paths import TRIALS_DIR
 
 
 def erf_maps(folder: ResultsFolder, analysis: Analysis, data: dict) -> tuple[list[ErfMap], str]:
@@ -24,7 +21,6 @@ def erf_maps(folder: ResultsFolder, analysis: Analysis, data: dict) -> tuple[lis
     from kablate.costs.catalog import build_catalog
     from kablate.data.prepare import prepare_data
     from kablate.nets.build import build_network
-    from kablate.spec.loader import sweep_from_dict
 
     if analysis.decision is None:
         return [], "there is no recommended plan yet to map"
@@ -48,11 +44,11 @@ def erf_maps(folder: ResultsFolder, analysis: Analysis, data: dict) -> tuple[lis
     absent = [name for name, found in states.items() if not found]
     if absent:
         return [], (
-            f"no checkpoints in {folder.path.name}/trials/ for {', '.join(absent)} (the "
+            f"no checkpoints in {folder.path.name}/{TRIALS_DIR}/ for {', '.join(absent)} (the "
             "trials may have been trained on another machine)"
         )
     try:
-        sweep = sweep_from_dict(folder.meta["resolved"], Path(folder.meta["source"]))
+        sweep = folder.sweep()
         catalog = build_catalog(
             sweep, in_shape=tuple(folder.plan["in_shape"]), n_classes=folder.plan["n_classes"]
         )
@@ -69,19 +65,3 @@ def erf_maps(folder: ResultsFolder, analysis: Analysis, data: dict) -> tuple[lis
             return [], f"variant {name} is no longer part of the sweep file's plans"
         maps.append(effective_rf(name, layout, states[name], prepared.val.images, build_network))
     return maps, note
-
-
-def scored_states(results: Path, variant_id: str, seeds: list[int]) -> dict[int, dict]:
-    """seed → the scored weights of each given (finished) trial whose checkpoint exists."""
-    out = {}
-    for seed in seeds:
-        path = results / "trials" / f"{variant_id}-s{seed}" / CHECKPOINT
-        if not path.is_file():
-            continue
-        try:
-            saved = torch.load(path, map_location="cpu", weights_only=True)
-        except Exception:  # a torn or foreign file: skip it, the others still count
-            continue
-        if isinstance(saved, dict) and (saved.get("best_state") or saved.get("model")):
-            out[seed] = scored_state(saved)
-    return out

@@ -1,4 +1,4 @@
-"""Per-epoch checkpoints: written atomically, read with ``weights_only=True``.
+"""Per-epoch checkpoints: written atomically, read with ``weights_only=True`` (results/).
 
 A checkpoint that cannot be resumed (torn, garbage, or another trial's) is never deleted: it is
 renamed ``checkpoint.pt.<why>-<n>`` beside the original, and the trial starts from epoch 0.
@@ -17,7 +17,8 @@ from typing import Any
 import torch
 
 from kablate.errors import DiskFullError, is_disk_full
-from kablate.files import atomic_write
+from kablate.results.checkpoint import load_checkpoint
+from kablate.results.write import atomic_write
 
 log = logging.getLogger("kablate")
 
@@ -61,13 +62,6 @@ def save_checkpoint(path: Path, state: dict[str, Any]) -> None:
         if is_disk_full(exc):
             raise DiskFullError(path) from exc
         raise
-
-
-def load_checkpoint(path: Path) -> dict[str, Any] | None:
-    """The saved state, or None when there is no checkpoint (or only a torn temp file)."""
-    if not path.is_file():
-        return None
-    return torch.load(path, map_location="cpu", weights_only=True)
 
 
 def read_or_set_aside(path: Path) -> dict[str, Any] | None:

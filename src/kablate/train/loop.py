@@ -36,14 +36,14 @@ from kablate.data.prepare import PreparedData, Split
 from kablate.nets.build import build_network
 from kablate.nets.layout import Layout
 from kablate.nets.model_variant import ModelVariant
+from kablate.results.evidence import encode_predictions
+from kablate.results.paths import CHECKPOINT
 from kablate.spec.schema import RecipeSpec
 from kablate.train.checkpoint import read_or_set_aside, resume_problem, save_checkpoint, set_aside
-from kablate.train.evidence import encode_predictions
 from kablate.train.record import EpochRecord, TrialRecord, shown_epoch
 from kablate.train.schedule import get_lr_factor
 
 EVAL_BATCH = 512
-CHECKPOINT = "checkpoint.pt"
 
 
 class TrialInterrupted(Exception):
@@ -51,7 +51,7 @@ class TrialInterrupted(Exception):
 
 
 @dataclass
-class Progress:
+class TrialProgress:
     """Where a trial stands between epochs: everything a resume needs besides the weights."""
 
     record: TrialRecord
@@ -137,7 +137,7 @@ def train_epoch(
     train: Split,
     recipe: RecipeSpec,
     seed: int,
-    progress: Progress,
+    progress: TrialProgress,
     steps: tuple[int, int],
     should_stop: Callable[[], bool] | None,
 ) -> float:
@@ -184,7 +184,7 @@ def trial_identity(
 
 def restore(
     path: Path | None, identity: str, model: nn.Module, optimizer: torch.optim.Optimizer
-) -> Progress | None:
+) -> TrialProgress | None:
     """Load the checkpoint into ``model`` and ``optimizer``; None when there is none to resume.
 
     A checkpoint that cannot be read, belongs to another trial or does not fit the model is
@@ -200,7 +200,7 @@ def restore(
     model.load_state_dict(saved["model"])
     optimizer.load_state_dict(saved["optimizer"])
     torch.set_rng_state(saved["rng"])
-    progress = Progress(
+    progress = TrialProgress(
         record=TrialRecord.from_dict(saved["record"]),
         epoch=saved["epoch"] + 1,
         step=saved["step"],
@@ -213,10 +213,10 @@ def restore(
 
 
 def checkpoint_state(
-    identity: str, model: nn.Module, optimizer: torch.optim.Optimizer, progress: Progress
+    identity: str, model: nn.Module, optimizer: torch.optim.Optimizer, progress: TrialProgress
 ) -> dict[str, Any]:
-    """What `restore` reads back. The file stays after the trial ends: `scored_state` gives the
-    weights the trial was scored with."""
+    """What `restore` reads back. The file stays after the trial ends:
+    `kablate.results.checkpoint.scored_state` gives the weights the trial was scored with."""
     return {
         "identity": identity,
         "model": model.state_dict(),
@@ -229,12 +229,6 @@ def checkpoint_state(
         "eval_seconds": progress.eval_seconds,
         "record": progress.record.to_dict(),
     }
-
-
-def scored_state(saved: dict[str, Any]) -> dict[str, torch.Tensor]:
-    """The weights a finished trial's checkpoint was scored with: the chosen epoch's when it
-    kept one (``test_from = "best"``), else the last epoch's."""
-    return saved["best_state"] or saved["model"]
 
 
 def train_trial(
@@ -269,7 +263,7 @@ def train_trial(
     identity = trial_identity(blueprint, recipe, data, seed)
     progress = restore(ckpt_path, identity, model, optimizer)
     if progress is None:
-        progress = Progress(record=TrialRecord(threads=threads))
+        progress = TrialProgress(record=TrialRecord(threads=threads))
     record = progress.record
     clock = time.perf_counter() - record.train_seconds
 

@@ -1,7 +1,8 @@
 """Trials: the queue on an Optuna study, workers, resume, status and export."""
 
+from kablate.results.folder import ResultsFolder
 from kablate.trials.jobs import Job, order_jobs
-from kablate.trials.results import ResultsFolder, open_results
+from kablate.trials.results import StoredResults, open_results
 from kablate.trials.runner import RunOptions, RunSummary, run_sweep
 
 __all__ = [
@@ -9,6 +10,7 @@ __all__ = [
     "ResultsFolder",
     "RunOptions",
     "RunSummary",
+    "StoredResults",
     "open_results",
     "order_jobs",
     "run_sweep",

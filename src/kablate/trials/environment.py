@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import os
 import platform
-import re
 from importlib.metadata import PackageNotFoundError, version
 from pathlib import Path
 
@@ -44,15 +43,3 @@ def environment() -> dict:
         "platform": platform.platform(terse=True),
         "packages": packages,
     }
-
-
-def sanitize(text: str) -> str:
-    """Remove the home folder and the working folder from a path or command line."""
-    cwd, home = str(Path.cwd()), str(Path.home())
-    end = r"(?=[/\s'\"]|$)"  # a whole path component, not the prefix of a longer name
-    if cwd != "/":
-        text = re.sub(re.escape(cwd + os.sep), "", text)
-        text = re.sub(re.escape(cwd) + end, ".", text)
-    if home != "/":
-        text = re.sub(re.escape(home) + end, "~", text)
-    return text

@@ -8,6 +8,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+from kablate.lifecycle import JobKey
+
 
 @dataclass(frozen=True)
 class Job:
@@ -18,7 +20,7 @@ class Job:
     @property
     def key(self) -> str:
         """Stable across reruns; names the trial's artifact folder."""
-        return f"{self.variant_id}-s{self.seed}"
+        return str(JobKey(self.variant_id, self.seed))
 
     @classmethod
     def from_attrs(cls, attrs: dict) -> Job:

@@ -37,7 +37,7 @@ from typing import Any
 from optuna.storages.journal import BaseJournalBackend, JournalFileSymlinkLock
 
 from kablate.errors import DiskFullError, is_disk_full
-from kablate.files import atomic_write
+from kablate.results.write import atomic_write
 
 log = logging.getLogger("kablate")
 

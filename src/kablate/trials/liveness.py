@@ -15,7 +15,7 @@ Two implementations, one per kind of storage:
 - `HeartbeatLiveness` (PostgreSQL: several machines). Optuna's heartbeat: the worker records
   one every interval from a thread; `optuna.storages.fail_stale_trials` fails trials whose
   last heartbeat (server clock) is older than the grace period, and the storage's callback
-  requeues the job (store.requeue).
+  requeues the job (queue.requeue_lost). The states and moves are lifecycle.py's.
 """
 
 from __future__ import annotations
@@ -25,14 +25,15 @@ import logging
 import os
 import threading
 from collections.abc import Iterator
-from contextlib import contextmanager, nullcontext
+from contextlib import AbstractContextManager, contextmanager, nullcontext
 from pathlib import Path
+from typing import Protocol, runtime_checkable
 
 import optuna
 from optuna.exceptions import UpdateFinishedTrialError
 from optuna.trial import TrialState
 
-from kablate.trials.store import requeue
+from kablate.trials.queue import requeue_lost
 
 log = logging.getLogger("kablate")
 
@@ -50,8 +51,38 @@ def host_lock(path: Path) -> Iterator[None]:
         os.close(fd)
 
 
+@runtime_checkable
+class Liveness(Protocol):
+    """What a worker, the claim and the runner ask of a liveness check (lifecycle.py).
+
+    - `hold` before the compare-and-set of a claim: a token, or None when another live process
+      holds that trial (then the claim passes it by); `release` the token once the trial is
+      told, or when the claim lost.
+    - `started` once the claim won: from then on the trial counts as alive while its worker is.
+    - `recover` before every claim: fail each RUNNING trial whose worker is gone, as lost, and
+      requeue its job (`queue.requeue_lost`), once across all processes.
+    - `queue_lock` while enqueueing, recovering or deciding a race round.
+    - ``remote``: whether other machines share the study (an idle worker then waits, every
+      ``interval`` seconds, for trials running elsewhere).
+    """
+
+    remote: bool
+    interval: float
+
+    def hold(self, trial_id: int) -> int | None: ...
+
+    def started(self, study: optuna.Study, trial_id: int) -> None: ...
+
+    def release(self, token: int | None) -> None: ...
+
+    def recover(self, study: optuna.Study) -> object: ...
+
+    def queue_lock(self) -> AbstractContextManager: ...
+
+
 class LocalLiveness:
     remote = False
+    interval = 0.0  # not remote: nothing to wait for
 
     def __init__(self, folder: Path) -> None:
         self.folder = folder
@@ -107,7 +138,7 @@ class LocalLiveness:
                     storage.set_trial_state_values(trial._trial_id, TrialState.FAIL)
                 except UpdateFinishedTrialError:
                     continue
-                requeue(study, current)
+                requeue_lost(study, current)
                 recovered.append(current.user_attrs.get("job", ""))
             finally:
                 self.release(token)
@@ -161,7 +192,7 @@ class HeartbeatLiveness:
         optuna.storages.fail_stale_trials(study)
 
 
-def liveness_for(study: optuna.Study, lock_folder: Path):
+def liveness_for(study: optuna.Study, lock_folder: Path) -> Liveness:
     """The liveness check that fits the study's storage."""
     storage = study._storage  # noqa: SLF001
     interval = getattr(storage, "get_heartbeat_interval", lambda: None)()

@@ -9,7 +9,6 @@ from __future__ import annotations
 
 import hashlib
 import json
-from pathlib import Path
 from typing import Any
 
 import optuna
@@ -66,26 +65,3 @@ def check_definition(study: optuna.Study, sweep: SweepSpec) -> None:
             "Adding seeds or plans is fine; to change the network, recipe or data, give the "
             "sweep a new [sweep].name (or delete its results folder and storage)."
         )
-
-
-def write_json(path: Path, value: Any) -> None:
-    path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = path.with_suffix(path.suffix + ".tmp")
-    tmp.write_text(json.dumps(value, indent=1, sort_keys=False, default=str) + "\n")
-    tmp.replace(path)
-
-
-def read_json(path: Path) -> Any:
-    if not path.is_file():
-        raise UsageError(f"{path} is missing: is {path.parent} a kablate results folder?")
-    try:
-        value = json.loads(path.read_text(encoding="utf-8"))
-    except (json.JSONDecodeError, UnicodeDecodeError, RecursionError) as exc:
-        reason = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
-        raise UsageError(
-            f"{path} is damaged ({reason[:120]}); `kablate run` with the same sweep file "
-            "writes it again"
-        ) from None
-    if not isinstance(value, dict):
-        raise UsageError(f"{path} is damaged (not a JSON object); `kablate run` writes it again")
-    return value

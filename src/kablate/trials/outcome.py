@@ -17,9 +17,9 @@ from datetime import datetime
 import optuna
 
 from kablate.errors import EXIT_DISK_FULL, EXIT_OK, EXIT_STOPPED, EXIT_TRIALS
+from kablate.lifecycle import FAILED
 from kablate.trials.queue import job_status, tagged_trials, trial_status
 
-FINISHED = ("done", "diverged")
 REASON_CHARS = 100  # a reason is cut to this length, so that the summary stays one line
 
 
@@ -45,7 +45,7 @@ def failure_reasons(study: optuna.Study, keys: list[str]) -> Counter:
         if key not in by_job:
             continue
         status, trial = job_status(by_job[key])
-        if status == "failed":
+        if status == FAILED:
             reason = trial.user_attrs.get("error") or trial.user_attrs.get("outcome") or "unknown"
             reasons[reason.splitlines()[0][:REASON_CHARS]] += 1
     return reasons

@@ -20,22 +20,29 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 from datetime import datetime
 from pathlib import Path
+from typing import TYPE_CHECKING
 
-from optuna.trial import FrozenTrial, TrialState
+from optuna.trial import FrozenTrial
 from tqdm import tqdm
 
 from kablate.console import LOG_DATE_FORMAT, LOG_FORMAT, Steps, console_handler
-from kablate.costs.catalog import build_catalog
-from kablate.data.prepare import prepare_data
+from kablate.costs.catalog import Catalog, build_catalog
+from kablate.data.prepare import PreparedData, prepare_data
 from kablate.errors import EXIT_DISK_FULL, EXIT_STOPPED, DiskFullError, is_disk_full
+from kablate.lifecycle import DONE, RUNNING, is_finished, n_finished
+from kablate.results.paths import RUN_LOG
 from kablate.spec.loader import load_sweep
 from kablate.trials.eta import eta_seconds
 from kablate.trials.export import collect_trials
-from kablate.trials.jobs import sweep_jobs
-from kablate.trials.liveness import liveness_for
+from kablate.trials.jobs import Job, sweep_jobs
+from kablate.trials.liveness import Liveness, liveness_for
+from kablate.trials.queue import trial_status
 from kablate.trials.status import duration
 from kablate.trials.store import lock_dir, open_study
 from kablate.trials.worker import WorkerContext, work
+
+if TYPE_CHECKING:
+    import optuna
 
 log = logging.getLogger("kablate")
 
@@ -58,7 +65,7 @@ def setup_logging(results_dir: Path, to_console: bool, steps_on_console: bool = 
     for handler in list(logger.handlers):
         logger.removeHandler(handler)
     results_dir.mkdir(parents=True, exist_ok=True)
-    file_handler = RunLogHandler(results_dir / "run.log")
+    file_handler = RunLogHandler(results_dir / RUN_LOG)
     file_handler.setFormatter(logging.Formatter(LOG_FORMAT, LOG_DATE_FORMAT))
     logger.addHandler(file_handler)
     if to_console or steps_on_console:
@@ -156,7 +163,7 @@ def _worker_main(
 BAR_FORMAT = "{desc}: {percentage:3.0f}%|{bar}| {n_fmt}/{total_fmt} [{elapsed} elapsed{postfix}]"
 
 
-class Progress:
+class SweepProgress:
     """The sweep's progress: a tqdm bar on a terminal, otherwise a timestamped log line whenever
     a trial finishes and after every silence (`console.Steps`); one ETA (eta.py) in both.
 
@@ -200,13 +207,13 @@ class Progress:
             key = t.user_attrs.get("job")
             if key is None:
                 continue
-            diverged = t.user_attrs.get("outcome") == "diverged"
-            if t.state == TrialState.COMPLETE or diverged:
+            status = trial_status(t)
+            if is_finished(status):
                 done.add(key)
                 # A diverged trial stops early: its time says nothing of the others'.
-                if not diverged and t.datetime_start and t.datetime_start >= self.since:
+                if status == DONE and t.datetime_start and t.datetime_start >= self.since:
                     measured[key] = (t.datetime_complete - t.datetime_start).total_seconds()
-            elif t.state == TrialState.RUNNING and t.datetime_start:
+            elif status == RUNNING and t.datetime_start:
                 started[key] = t.datetime_start
         with self.lock:
             self.measured, self.done, self.started = measured, done, started
@@ -263,6 +270,27 @@ class Progress:
 
 
 @dataclass
+class RunContext:
+    """What the runner hands its workers: the sweep, where it runs, and how."""
+
+    sweep_path: Path
+    results_root: Path  # the workers' --results; the sweep's own folder is results_dir
+    results_dir: Path
+    device: str
+    url: str | None  # the storage; None: the folder's journal file
+    layout: tuple[int, int]  # (workers, threads per worker)
+    deadline: float  # time.time() by which every started trial should end; 0: none
+    estimates: dict[str, float]  # variant id → predicted trial seconds
+    catalog: Catalog
+    data: PreparedData
+    study: optuna.Study
+    liveness: Liveness
+    plan: dict  # the variants and seeds whose rows count (`collect_trials`)
+    jobs: list[Job]
+    progress: SweepProgress
+
+
+@dataclass
 class PoolOutcome:
     """What the workers of one run did."""
 
@@ -271,12 +299,12 @@ class PoolOutcome:
     disk_full: str = ""  # the message, when a worker ran out of disk space
 
 
-def run_workers(sweep_path, results_dir, opts, url, layout, deadline, seconds, state, progress):
+def run_workers(run: RunContext) -> PoolOutcome:
     """Run the workers (in this process when there is one); a `PoolOutcome`."""
     from kablate.train.loop import TrialInterrupted, warm_up
 
-    catalog, data, study, liveness, plan, jobs = state
-    workers, threads = layout
+    catalog, study, plan, progress = run.catalog, run.study, run.plan, run.progress
+    workers, threads = run.layout
     procs: list = []
     outcome = PoolOutcome()
 
@@ -293,23 +321,22 @@ def run_workers(sweep_path, results_dir, opts, url, layout, deadline, seconds, s
         if workers == 1:
             ctx = WorkerContext(
                 catalog,
-                data,
+                run.data,
                 study,
-                results_dir,
+                run.results_dir,
                 threads,
-                opts.device,
+                run.device,
                 should_stop=stop,
-                deadline=deadline,
-                liveness=liveness,
-                order={job.key: i for i, job in enumerate(jobs)},
-                estimates=seconds,
+                deadline=run.deadline,
+                liveness=run.liveness,
+                order={job.key: i for i, job in enumerate(run.jobs)},
+                estimates=run.estimates,
             )
 
             def on_finish(key: str, status: str) -> None:
                 rows, _ = collect_trials(study, plan)
-                counts = [r["status"] for r in rows]
                 progress.observe(study.get_trials(deepcopy=False))
-                progress.update(counts.count("done") + counts.count("diverged"))
+                progress.update(n_finished(r["status"] for r in rows))
 
             outcome.worker_names.add(ctx.worker_name)
             warm_up(catalog.sweep.recipe)
@@ -317,15 +344,15 @@ def run_workers(sweep_path, results_dir, opts, url, layout, deadline, seconds, s
                 work(ctx, on_finish=on_finish)
         else:
             args = (
-                str(sweep_path),
-                str(opts.results_root),
-                url,
+                str(run.sweep_path),
+                str(run.results_root),
+                run.url,
                 threads,
-                opts.device,
-                deadline,
-                seconds,
+                run.device,
+                run.deadline,
+                run.estimates,
             )
-            supervise(procs, args, workers, stop, (study, plan, progress, outcome, results_dir))
+            supervise(procs, args, stop, run, outcome)
     except DiskFullError as exc:
         log.error("%s", exc)
         outcome.disk_full = str(exc)
@@ -349,13 +376,13 @@ def run_workers(sweep_path, results_dir, opts, url, layout, deadline, seconds, s
 POLL_SECONDS = 2.0
 
 
-def supervise(procs, args, workers, stop, state) -> None:
+def supervise(procs, args, stop: StopFlag, run: RunContext, outcome: PoolOutcome) -> None:
     """Start the worker processes, follow their progress, and replace one that dies.
 
     A worker that ran out of disk space (exit code 4) stops the others: each puts its trial
     back in the queue, and `outcome.disk_full` says so.
     """
-    study, plan, progress, outcome, results_dir = state
+    study, plan, progress, workers = run.study, run.plan, run.progress, run.layout[0]
     ctx = mp.get_context("spawn")
     host = socket.gethostname()
 
@@ -380,8 +407,7 @@ def supervise(procs, args, workers, stop, state) -> None:
         if stop.stopped and stop.forward is not None:
             stop.forward(signal.SIGINT)  # reaches workers that were still starting (a no-op else)
         rows, _ = collect_trials(study, plan)
-        statuses = [r["status"] for r in rows]
-        finished = statuses.count("done") + statuses.count("diverged")
+        finished = n_finished(r["status"] for r in rows)
         if finished != progress.n:
             progress.observe(study.get_trials(deepcopy=False))
             progress.update(finished)
@@ -389,7 +415,7 @@ def supervise(procs, args, workers, stop, state) -> None:
             procs.remove(proc)
             proc.join()
             if proc.exitcode == EXIT_DISK_FULL and not outcome.disk_full:
-                outcome.disk_full = str(DiskFullError(results_dir, "run.log names the file"))
+                outcome.disk_full = str(DiskFullError(run.results_dir, "run.log names the file"))
                 stop.stopped = True
                 stop.forward(signal.SIGINT)
             if stop.stopped or n_restarts >= 2 * workers:

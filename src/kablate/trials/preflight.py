@@ -1,7 +1,7 @@
 """The preflight: what `kablate run` (and `kablate plan`) check in their first seconds, so that
 a run that cannot work stops before the night starts instead of at 2 a.m.
 
-1. The folders it will write can be written (`writable_folder`).
+1. The folders it will write can be written (`results.write.writable_folder`).
 2. One training step of the most expensive variant fits the machine's free memory
    (`check_memory`): an estimate from the variant's static costs, times the workers, against
    ``MemAvailable`` in /proc/meminfo. Nothing is allocated before this check passes.
@@ -15,7 +15,6 @@ Every failure is a `UsageError`: the CLI prints one line and exits with code 2.
 from __future__ import annotations
 
 import re
-import tempfile
 from pathlib import Path
 
 import torch
@@ -35,24 +34,6 @@ MEMINFO = Path("/proc/meminfo")
 ACT_FACTOR = 2
 # fp32 weights, their gradients and up to two optimiser buffers (AdamW's moments) per parameter
 STATE_BYTES_PER_PARAM = 4 * 4
-
-
-def writable_folder(path: Path, what: str, hint: str = "") -> Path:
-    """Create ``path`` if needed and check that a file can be written in it.
-
-    Raises:
-        UsageError: ``path`` is a file, or the folder cannot be created or written (read-only
-            file system, no permission); ``hint`` is added to the message.
-    """
-    if path.exists() and not path.is_dir():
-        raise UsageError(f"{what} {path} is a file, not a folder{hint}")
-    try:
-        path.mkdir(parents=True, exist_ok=True)
-        with tempfile.NamedTemporaryFile(dir=path, prefix=".kablate-write-check-"):
-            pass
-    except OSError as exc:
-        raise UsageError(f"{what} {path} cannot be written ({exc.strerror or exc}){hint}") from None
-    return path
 
 
 def available_memory(meminfo: Path | None = None) -> int | None:

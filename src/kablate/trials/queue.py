@@ -20,6 +20,7 @@ How Optuna 5.0 hands out enqueued trials, and what we add (checked by tests/tria
 
 from __future__ import annotations
 
+import logging
 import math
 import time
 from collections import defaultdict
@@ -28,26 +29,33 @@ from dataclasses import dataclass
 import optuna
 from optuna.trial import FrozenTrial, TrialState
 
+from kablate.lifecycle import (
+    DIVERGED,
+    DONE,
+    FAILED,
+    RANK,
+    RETIRED,
+    RUNNING,
+    WAITING,
+    is_finished,
+)
 from kablate.trials.jobs import Job
 
-# A job that racing withdrew: its variant was retired (trials/race.py); the trial is told FAIL
-# with this outcome, and the job's row in trials.csv reads it too.
-RETIRED = "retired"
-# How each trial state counts for its job; the best-ranked trial of a job speaks for it.
-RANK = {"done": 5, "diverged": 4, "running": 3, "waiting": 2, "failed": 1, RETIRED: 0}
+log = logging.getLogger("kablate")
 
 
 def trial_status(trial: FrozenTrial) -> str:
-    """done | diverged | running | waiting | failed | retired."""
+    """done | diverged | running | waiting | failed | retired (lifecycle.py: an interrupted or
+    lost trial shows as failed)."""
     if trial.state == TrialState.COMPLETE:
-        return "done"
+        return DONE
     if trial.state == TrialState.RUNNING:
-        return "running"
+        return RUNNING
     if trial.state == TrialState.WAITING:
-        return "waiting"
-    if trial.user_attrs.get("outcome") in ("diverged", RETIRED):
+        return WAITING
+    if trial.user_attrs.get("outcome") in (DIVERGED, RETIRED):
         return trial.user_attrs["outcome"]
-    return "failed"
+    return FAILED
 
 
 def tagged_trials(study: optuna.Study) -> dict[str, list[FrozenTrial]]:
@@ -77,11 +85,27 @@ def enqueue_missing(study: optuna.Study, jobs: list[Job]) -> int:
     n = 0
     for job in jobs:
         trials = existing.get(job.key)
-        if trials and job_status(trials)[0] not in ("failed", RETIRED):
+        if trials and job_status(trials)[0] not in (FAILED, RETIRED):
             continue
-        study.enqueue_trial({}, user_attrs=job.attrs())
+        requeue(study, job)
         n += 1
     return n
+
+
+def requeue(study: optuna.Study, job: Job) -> None:
+    """Put ``job`` in the queue as a new WAITING trial: the one way a job is (re)queued, by the
+    runner, by a worker that puts its trial back, and by the liveness check (lifecycle.py)."""
+    study.enqueue_trial({}, user_attrs=job.attrs())
+
+
+def requeue_lost(study: optuna.Study, trial: FrozenTrial) -> None:
+    """Requeue the job of a trial whose worker was lost (the liveness check; on PostgreSQL, the
+    storage's callback for a stale heartbeat)."""
+    if not trial.user_attrs.get("job"):
+        return
+    job = Job.from_attrs(trial.user_attrs)
+    requeue(study, job)
+    log.warning("trial %s had lost its worker: back in the queue", job.key)
 
 
 def has_waiting(study: optuna.Study) -> bool:
@@ -101,9 +125,9 @@ def is_first_live(trials: list[FrozenTrial], number: int) -> bool:
         if other.number == number:
             continue
         status = trial_status(other)
-        if status in ("done", "diverged"):
+        if is_finished(status):
             return False
-        if status in ("running", "waiting") and other.number < number:
+        if status in (RUNNING, WAITING) and other.number < number:
             return False
     return True
 

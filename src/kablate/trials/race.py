@@ -16,7 +16,7 @@ module runs it on the study, so that every worker and every machine sharing the 
   first undecided round. Seeds therefore still run in rounds, and a run cut short by its
   budget holds a complete comparison of the variants that remain. A retired variant's
   waiting trials (enqueued by an earlier run without racing) are withdrawn: claimed with the
-  storage's compare-and-set and told FAIL with ``outcome = "retired"`` (queue.RETIRED).
+  storage's compare-and-set and told FAIL with ``outcome = "retired"`` (lifecycle.RETIRED).
 - A variant added to the sweep after a round was decided joins the race at the first
   undecided round.
 """
@@ -32,8 +32,9 @@ import optuna
 from optuna.exceptions import UpdateFinishedTrialError
 from optuna.trial import FrozenTrial, TrialState
 
+from kablate.lifecycle import RETIRED, JobKey, is_finished
 from kablate.trials.jobs import Job
-from kablate.trials.queue import RETIRED, enqueue_missing, job_status, tagged_trials
+from kablate.trials.queue import enqueue_missing, job_status, tagged_trials
 
 log = logging.getLogger("kablate")
 
@@ -147,7 +148,7 @@ class Race:
         """The record of round ``r``, or None while a variant in the race lacks a seed."""
         from kablate.analysis.evidence import Evidence
         from kablate.analysis.race import retirements
-        from kablate.train.evidence import decode_predictions
+        from kablate.results.evidence import decode_predictions
 
         retired = retired_variants(rounds)
         seeds = self.seeds[: r + 1]
@@ -156,11 +157,9 @@ class Race:
         for vid, _, _ in self.variants:
             if vid in retired:
                 continue
-            found = [
-                job_status(by_job[f"{vid}-s{s}"]) if f"{vid}-s{s}" in by_job else None
-                for s in seeds
-            ]
-            if any(f is None or f[0] not in ("done", "diverged") for f in found):
+            keys = [str(JobKey(vid, s)) for s in seeds]
+            found = [job_status(by_job[key]) if key in by_job else None for key in keys]
+            if any(f is None or not is_finished(f[0]) for f in found):
                 return None
             encoded = [scored(trial) for _, trial in found]
             if all(encoded):  # a variant that diverged on a seed is left out of the round

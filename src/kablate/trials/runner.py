@@ -21,30 +21,32 @@ from kablate.costs.catalog import Catalog, build_catalog, measure_latencies
 from kablate.costs.export import variant_json
 from kablate.data.prepare import prepare_data
 from kablate.errors import UsageError
+from kablate.lifecycle import FINISHED, is_finished
+from kablate.results.paths import DATA_FILE, JOURNAL, PLAN_FILE, SWEEP_FILE
+from kablate.results.redact import redact, sanitize, strip_password
+from kablate.results.tables import write_trial_tables
+from kablate.results.write import writable_folder, write_json
 from kablate.spec.loader import load_sweep
 from kablate.train.device import check_device
 from kablate.train.loop import warm_up
 from kablate.trials.budget import calibrate, format_plan, schedule
-from kablate.trials.environment import environment, sanitize
-from kablate.trials.export import CURVE_COLUMNS, TRIAL_COLUMNS, collect_trials, write_csv
+from kablate.trials.environment import environment
+from kablate.trials.export import collect_trials
 from kablate.trials.jobs import Job, sweep_jobs
 from kablate.trials.liveness import liveness_for
-from kablate.trials.meta import check_definition, definition, fingerprint, write_json
-from kablate.trials.outcome import FINISHED, failure_reasons, own_counts
-from kablate.trials.pool import Progress, detach_run_log, run_workers, setup_logging
-from kablate.trials.preflight import run_preflight, writable_folder
+from kablate.trials.meta import check_definition, definition, fingerprint
+from kablate.trials.outcome import failure_reasons, own_counts
+from kablate.trials.pool import (
+    RunContext,
+    SweepProgress,
+    detach_run_log,
+    run_workers,
+    setup_logging,
+)
+from kablate.trials.preflight import run_preflight
 from kablate.trials.queue import enqueue_missing, job_status, tagged_trials
 from kablate.trials.race import start_race
-from kablate.trials.results import DATA_FILE, PLAN_FILE, SWEEP_FILE
-from kablate.trials.store import (
-    JOURNAL,
-    lock_dir,
-    open_study,
-    redact,
-    resolve_url,
-    storage_exists,
-    strip_password,
-)
+from kablate.trials.store import lock_dir, open_study, resolve_url, storage_exists
 
 log = logging.getLogger("kablate")
 
@@ -157,8 +159,7 @@ def write_manifest(
 
 def export_results(results_dir: Path, study, plan: dict) -> dict[str, int]:
     rows, curves = collect_trials(study, plan)
-    write_csv(results_dir / "trials.csv", rows, TRIAL_COLUMNS)
-    write_csv(results_dir / "curves.csv", curves, CURVE_COLUMNS)
+    write_trial_tables(results_dir, rows, curves)
     counts: dict[str, int] = {}
     for row in rows:
         counts[row["status"]] = counts.get(row["status"], 0) + 1
@@ -167,11 +168,7 @@ def export_results(results_dir: Path, study, plan: dict) -> dict[str, int]:
 
 def finished_jobs(study, jobs: list[Job]) -> set[str]:
     by_job = tagged_trials(study)
-    return {
-        j.key
-        for j in jobs
-        if j.key in by_job and job_status(by_job[j.key])[0] in ("done", "diverged")
-    }
+    return {j.key for j in jobs if j.key in by_job and is_finished(job_status(by_job[j.key])[0])}
 
 
 def estimate(
@@ -309,7 +306,7 @@ def _run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
     with liveness.queue_lock():
         n_new = race.advance(study, liveness) if race else enqueue_missing(study, jobs)
     before = export_results(results_dir, study, plan)
-    n_finished = before.get("done", 0) + before.get("diverged", 0)
+    n_finished = sum(before.get(status, 0) for status in FINISHED)
     to_run = len(jobs) - n_finished
     log.info(
         "sweep %s: %d trials, %d already finished, %d to run on %d worker(s) x %d "
@@ -336,23 +333,32 @@ def _run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
     if to_run:
         deadline = started + opts.budget_seconds if opts.budget_seconds else 0.0
         step("sweep", f"training {to_run} trials on {layout[0]} worker(s)")
+        progress = SweepProgress(
+            len(jobs),
+            n_finished,
+            interactive,
+            predicted={j.key: seconds.get(j.variant_id, 0.0) for j in jobs},
+            n_workers=layout[0],
+            since=started_at,
+        )
         pool = run_workers(
-            sweep_path,
-            results_dir,
-            opts,
-            url,
-            layout,
-            deadline,
-            seconds,
-            (catalog, data, study, liveness, plan, jobs),
-            Progress(
-                len(jobs),
-                n_finished,
-                interactive,
-                predicted={j.key: seconds.get(j.variant_id, 0.0) for j in jobs},
-                n_workers=layout[0],
-                since=started_at,
-            ),
+            RunContext(
+                sweep_path=sweep_path,
+                results_root=opts.results_root,
+                results_dir=results_dir,
+                device=opts.device,
+                url=url,
+                layout=layout,
+                deadline=deadline,
+                estimates=seconds,
+                catalog=catalog,
+                data=data,
+                study=study,
+                liveness=liveness,
+                plan=plan,
+                jobs=jobs,
+                progress=progress,
+            )
         )
         own = own_counts(study, pool.worker_names, started_at)
         summary.n_ran = sum(own[s] for s in FINISHED)

@@ -18,9 +18,9 @@ from datetime import datetime
 from optuna.trial import FrozenTrial, TrialState
 
 from kablate.errors import KablateError
-from kablate.trials.meta import read_json
-from kablate.trials.queue import RETIRED
-from kablate.trials.results import DATA_FILE, ResultsFolder
+from kablate.lifecycle import RETIRED, is_finished
+from kablate.trials.queue import trial_status
+from kablate.trials.results import StoredResults
 
 STATES = ("done", "running", "waiting", "failed", "diverged", RETIRED)
 RECENT = 20  # finished trials that set the expected trial time
@@ -70,11 +70,7 @@ def summarize(
         entry["n_trials"] += 1
         entry[row_state(row["status"])] += 1
     tagged = [t for t in trials if t.user_attrs.get("job")]
-    finished = [
-        t
-        for t in tagged
-        if t.state == TrialState.COMPLETE or t.user_attrs.get("outcome") == "diverged"
-    ]
+    finished = [t for t in tagged if is_finished(trial_status(t))]
     finished.sort(key=lambda t: t.datetime_complete)
     durations = [
         (t.datetime_complete - t.datetime_start).total_seconds()
@@ -240,7 +236,7 @@ def duration(seconds: float | None) -> str:
     return f"{m}m{s:02d}s" if m else f"{s}s"
 
 
-def read_status(folder: ResultsFolder) -> SweepStatus:
+def read_status(folder: StoredResults) -> SweepStatus:
     """The status of a `ResultsFolder`, read from its storage now, with how its variants
     stand (or why that cannot be told: the progress is shown either way)."""
     # Imported here: the workers import this module for `summarize`, and the analysis (pandas,
@@ -253,7 +249,7 @@ def read_status(folder: ResultsFolder) -> SweepStatus:
     layout = {k: folder.meta.get(k) for k in ("workers", "threads")}
     status = summarize(folder.name, rows, trials, datetime.now(), layout)
     try:
-        data = read_json(folder.path / DATA_FILE)
+        data = folder.data()
         pick = pick_settings(folder.meta)
         grids = folder.meta.get("grids", [])
         status.standing = asdict(stand(rows, curves, folder.plan, grids, data, pick))

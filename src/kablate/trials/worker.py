@@ -21,11 +21,15 @@ from optuna.trial import TrialState
 from kablate.costs.catalog import Catalog
 from kablate.data.prepare import PreparedData
 from kablate.errors import DiskFullError, is_disk_full
+from kablate.lifecycle import JobKey
+from kablate.results.paths import RECORD_FILE, trial_dir
+from kablate.results.write import write_text
 from kablate.train.loop import TrialInterrupted, train_trial
 from kablate.train.record import TrialRecord
 from kablate.trials.eta import time_ratio
 from kablate.trials.jobs import Job
-from kablate.trials.queue import Claim, claim_next, clean, next_waiting_key
+from kablate.trials.liveness import Liveness
+from kablate.trials.queue import Claim, claim_next, clean, next_waiting_key, requeue
 from kablate.trials.race import race_of_study
 
 log = logging.getLogger("kablate")
@@ -43,17 +47,13 @@ class WorkerContext:
     should_stop: Callable[[], bool] | None = None
     max_trials: int = 0  # 0: until the queue is empty
     deadline: float = 0.0  # time.time() by which every started trial should end; 0: none
-    liveness: object = None  # liveness.LocalLiveness or HeartbeatLiveness
+    liveness: Liveness | None = None  # liveness.LocalLiveness or HeartbeatLiveness
     order: dict[str, int] | None = None  # job key → position in the sweep's order
     estimates: dict[str, float] | None = None  # variant id → predicted trial seconds
 
     @property
     def worker_name(self) -> str:
         return f"{socket.gethostname()}:{os.getpid()}"
-
-
-def trial_dir(results_dir: Path, key: str) -> Path:
-    return results_dir / "trials" / key
 
 
 def record_attrs(record: TrialRecord) -> dict:
@@ -104,7 +104,7 @@ def put_back(ctx: WorkerContext, trial: optuna.Trial, outcome: str) -> None:
     try:
         trial.set_user_attr("outcome", outcome)
         ctx.study.tell(trial, state=TrialState.FAIL)
-        ctx.study.enqueue_trial({}, user_attrs=Job.from_attrs(trial.user_attrs).attrs())
+        requeue(ctx.study, Job.from_attrs(trial.user_attrs))
     except (DiskFullError, OSError) as exc:
         if not isinstance(exc, DiskFullError) and not is_disk_full(exc):
             raise
@@ -151,8 +151,7 @@ def _train_and_tell(ctx: WorkerContext, trial: optuna.Trial, key: str) -> str:
     values["trial_seconds"] = round(time.perf_counter() - started, 3)
     for name, value in values.items():
         trial.set_user_attr(name, value)
-    workdir.mkdir(parents=True, exist_ok=True)
-    (workdir / "record.json").write_text(json.dumps(record.to_dict(), indent=1, default=str))
+    write_text(workdir / RECORD_FILE, json.dumps(record.to_dict(), indent=1, default=str))
     if record.status == "diverged":
         trial.set_user_attr("outcome", "diverged")
         ctx.study.tell(trial, state=TrialState.FAIL)
@@ -169,10 +168,6 @@ def _train_and_tell(ctx: WorkerContext, trial: optuna.Trial, key: str) -> str:
     return record.status
 
 
-def variant_of(key: str) -> str:
-    return key.rsplit("-s", 1)[0]
-
-
 def fits_budget(ctx: WorkerContext, scale: float) -> bool:
     """Whether the next waiting trial is predicted to end before the deadline."""
     if not ctx.deadline:
@@ -180,7 +175,7 @@ def fits_budget(ctx: WorkerContext, scale: float) -> bool:
     key = next_waiting_key(ctx.study, ctx.order or {})
     if key is None:
         return True
-    predicted = (ctx.estimates or {}).get(variant_of(key), 0.0) * scale
+    predicted = (ctx.estimates or {}).get(JobKey.parse(key).variant_id, 0.0) * scale
     left = ctx.deadline - time.time()
     if predicted > left:
         log.info(
@@ -226,7 +221,7 @@ def work(ctx: WorkerContext, on_finish: Callable[[str, str], None] | None = None
             break
         started = time.time()
         status = run_one(ctx, claim)
-        predicted = (ctx.estimates or {}).get(variant_of(claim.key))
+        predicted = (ctx.estimates or {}).get(JobKey.parse(claim.key).variant_id)
         if predicted:
             took[claim.key], predictions[claim.key] = time.time() - started, predicted
         n += 1
