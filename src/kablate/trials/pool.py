@@ -31,7 +31,7 @@ from kablate.errors import EXIT_DISK_FULL, EXIT_STOPPED, DiskFullError, is_disk_
 from kablate.spec.loader import load_sweep
 from kablate.trials.eta import eta_seconds
 from kablate.trials.export import collect_trials
-from kablate.trials.jobs import sweep_jobs
+from kablate.trials.jobs import claim_order, sweep_jobs
 from kablate.trials.liveness import liveness_for
 from kablate.trials.status import duration
 from kablate.trials.store import lock_dir, open_study
@@ -139,7 +139,7 @@ def _worker_main(
         should_stop=stop,
         deadline=deadline,
         liveness=liveness_for(study, lock_dir(results_dir, url)),
-        order={job.key: i for i, job in enumerate(sweep_jobs(catalog))},
+        order=claim_order(sweep_jobs(catalog), estimates),
         estimates=estimates,
     )
     warm_up(sweep.recipe)
@@ -301,7 +301,7 @@ def run_workers(sweep_path, results_dir, opts, url, layout, deadline, seconds, s
                 should_stop=stop,
                 deadline=deadline,
                 liveness=liveness,
-                order={job.key: i for i, job in enumerate(jobs)},
+                order=claim_order(jobs, seconds),
                 estimates=seconds,
             )
 
