@@ -19,7 +19,7 @@ from kablate.trials import RunOptions, open_results, run_sweep
 from kablate.trials.jobs import order_jobs
 from kablate.trials.queue import enqueue_missing, job_status, tagged_trials
 from kablate.trials.race import read_rounds
-from kablate.trials.store import open_study
+from kablate.trials.store import JOURNAL, open_study
 from tests.conftest import write_sweep
 
 RACE_SWEEP = """
@@ -114,3 +114,29 @@ def test_a_resumed_race_never_trains_a_retired_variant(tmp_path):
         else:
             assert status == "done"
     assert second.n_ran == len(names) - len(retired)
+
+
+@pytest.mark.slow
+@pytest.mark.postgres
+@pytest.mark.timeout(900)  # two sweeps, each on two worker processes: minutes when busy
+def test_a_race_of_two_workers_on_postgresql_retires_what_it_retires_on_the_journal(
+    tmp_path, postgres_url
+):
+    found = {}
+    for label, url in (("journal", None), ("postgres", postgres_url)):
+        opts = RunOptions(
+            results_root=tmp_path / label, storage=url, workers=2, show_progress=False
+        )
+        summary = run_sweep(sweep_file(tmp_path, "shared", "on"), opts)
+        folder = open_results(summary.results_dir)
+        assert folder.meta["storage"] == (url or JOURNAL)
+        names = {v["id"]: v["name"] for v in folder.plan["variants"]}
+        rounds = read_rounds(folder.study)
+        found[label] = (
+            {seed: sorted(names[v] for v in r["retired"]) for seed, r in rounds.items()},
+            summary.counts,
+        )
+    assert found["postgres"] == found["journal"]
+    retired, counts = found["postgres"]
+    assert "blind" in retired[0]  # decided after seed 0, by the workers on the server
+    assert counts == {"done": 6 - len(retired[0]), RETIRED: len(retired[0])}

@@ -6,8 +6,9 @@ the thread count the workers will use. A trial's time is then predicted as
     steps × step time + epochs × (validation pass + checkpoint write) + test pass
 
 and the sweep's time by replaying the job order on the workers, each taking the next job when
-it is free (the way the queue hands them out). Because the order is seed-major, the jobs that
-fit a budget are a complete comparison at fewer seeds, plus part of the next seed.
+it is free (the way the queue hands them out: seed-major, the longest first within a seed,
+`jobs.longest_first`). Because the order is seed-major, the jobs that fit a budget are a
+complete comparison at fewer seeds, plus part of the next seed.
 """
 
 from __future__ import annotations

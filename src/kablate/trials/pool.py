@@ -34,7 +34,7 @@ from kablate.results.paths import RUN_LOG
 from kablate.spec.loader import load_sweep
 from kablate.trials.eta import eta_seconds
 from kablate.trials.export import collect_trials
-from kablate.trials.jobs import Job, sweep_jobs
+from kablate.trials.jobs import Job, claim_order, sweep_jobs
 from kablate.trials.liveness import Liveness, liveness_for
 from kablate.trials.queue import trial_status
 from kablate.trials.status import duration
@@ -146,7 +146,7 @@ def _worker_main(
         should_stop=stop,
         deadline=deadline,
         liveness=liveness_for(study, lock_dir(results_dir, url)),
-        order={job.key: i for i, job in enumerate(sweep_jobs(catalog))},
+        order=claim_order(sweep_jobs(catalog), estimates),
         estimates=estimates,
     )
     warm_up(sweep.recipe)
@@ -329,7 +329,7 @@ def run_workers(run: RunContext) -> PoolOutcome:
                 should_stop=stop,
                 deadline=run.deadline,
                 liveness=run.liveness,
-                order={job.key: i for i, job in enumerate(run.jobs)},
+                order=claim_order(run.jobs, run.estimates),
                 estimates=run.estimates,
             )
 

@@ -32,7 +32,7 @@ from kablate.train.loop import warm_up
 from kablate.trials.budget import calibrate, format_plan, schedule
 from kablate.trials.environment import environment
 from kablate.trials.export import collect_trials
-from kablate.trials.jobs import Job, sweep_jobs
+from kablate.trials.jobs import Job, longest_first, sweep_jobs
 from kablate.trials.liveness import liveness_for
 from kablate.trials.meta import check_definition, definition, fingerprint
 from kablate.trials.outcome import failure_reasons, own_counts
@@ -190,7 +190,7 @@ def estimate(
     spent = time.time() - started if started is not None else before + time.perf_counter() - clock
     offset = spent + (startup if layout[0] > 1 else 0.0)
     seconds = {vid: c.trial_seconds for vid, c in calibration.items()}
-    remaining = [j for j in jobs if j.key not in done]
+    remaining = longest_first([j for j in jobs if j.key not in done], seconds)
     plan = schedule(remaining, seconds, layout[0], budget, start=offset)
     text = format_plan(
         plan,

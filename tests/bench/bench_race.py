@@ -1,0 +1,192 @@
+"""Benchmark: racing over seeds against the full sweep, side by side in one run.
+
+Targets (issue: racing over seeds, and search when the plan space is too big for a grid):
+- the training seconds spent to reach the decision with racing, against training every
+  trial: ≤ 0.5×;
+- the recommended plan with racing is the full sweep's, or one that the full sweep's decision
+  rule also accepts: for the margin rule, a plan in the full sweep's qualifying set (cheaper
+  than the baseline and non-inferior by its lower bound), computed from the full sweep's own
+  analysis (`analysis.decide`), not by eye.
+
+Both runs train the same sweep file (default: sweeps/scarce-labels.toml, 12 variants × 3 seeds
+on digits) into fresh results folders, at the default layout, one after the other; only
+``[sweep] racing`` differs ("on" against "off"). Training seconds are each trial's
+``trial_seconds`` (the whole `train_trial` call) summed over the finished trials. The machine
+is shared, so the load moves the seconds of one run against the other's; a second ratio takes
+each trial's time from the full run's mean for its variant, which the load cannot tilt, and
+the load average (1 min, sampled every 5 s) is printed beside both.
+Run: python tests/bench/bench_race.py [sweeps/scarce-labels.toml]
+(over an hour at load 12 on 2 cores)
+"""
+
+from __future__ import annotations
+
+import re
+import statistics
+import subprocess
+import sys
+import tempfile
+import threading
+import time
+from collections import Counter, defaultdict
+from pathlib import Path
+
+from optuna.trial import TrialState
+
+from kablate.analysis.summary import analyze, pick_settings
+from kablate.trials import open_results
+from kablate.trials.meta import read_json
+from kablate.trials.results import DATA_FILE
+
+REPO = Path(__file__).resolve().parents[2]
+
+
+class LoadSampler:
+    """The 1-minute load average from /proc/loadavg, sampled every few seconds."""
+
+    def __init__(self, every: float = 5.0) -> None:
+        self.samples: list[float] = []
+        self.every, self.stop = every, threading.Event()
+        self.thread = threading.Thread(target=self.loop, daemon=True)
+
+    def loop(self) -> None:
+        while not self.stop.is_set():
+            self.samples.append(float(Path("/proc/loadavg").read_text().split()[0]))
+            self.stop.wait(self.every)
+
+    def __enter__(self) -> LoadSampler:
+        self.thread.start()
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.stop.set()
+        self.thread.join()
+
+    def text(self) -> str:
+        s = self.samples or [float("nan")]
+        return f"load {statistics.mean(s):.1f} (min {min(s):.1f}, max {max(s):.1f})"
+
+
+def with_racing(sweep: Path, racing: str, folder: Path) -> Path:
+    """A copy of ``sweep`` whose ``[sweep]`` table says ``racing = "<racing>"``."""
+    text = re.sub(r"(?m)^\s*racing\s*=.*\n", "", sweep.read_text())
+    text, n = re.subn(r"(?m)^\[sweep\]\s*$", f'[sweep]\nracing = "{racing}"', text, count=1)
+    if n != 1:
+        raise SystemExit(f"{sweep} has no [sweep] table")
+    path = folder / f"{racing}-{sweep.name}"
+    path.write_text(text)
+    return path
+
+
+def run(sweep: Path, racing: str, root: Path) -> dict:
+    """Train ``sweep`` with racing on or off into ``root``; its trials and its decision."""
+    root.mkdir(parents=True)
+    copy = with_racing(sweep, racing, root)
+    with LoadSampler() as load:
+        start = time.perf_counter()
+        out = subprocess.run(
+            [sys.executable, "-m", "kablate", "run", str(copy), "--results", str(root),
+             "--no-report"],
+            cwd=REPO, capture_output=True, text=True,
+        )  # fmt: skip
+        wall = time.perf_counter() - start
+    if out.returncode != 0:
+        raise SystemExit(f"kablate run ({racing}) ended with {out.returncode}:\n{out.stderr}")
+    return read_run(next(p for p in root.iterdir() if p.is_dir()), wall, load.text())
+
+
+def read_run(path: Path, wall: float, load: str) -> dict:
+    """A finished run's trial seconds, statuses and decision, from its results folder."""
+    folder = open_results(path)
+    done = [t for t in folder.study.get_trials() if t.state == TrialState.COMPLETE]
+    rows, curves = folder.rows()
+    data = read_json(folder.path / DATA_FILE)
+    analysis = analyze(rows, curves, folder.plan, folder.meta.get("grids", []), data,
+                       pick_settings(folder.meta))  # fmt: skip
+    seconds = defaultdict(list)
+    for t in done:
+        seconds[t.user_attrs["variant"]].append(t.user_attrs["trial_seconds"])
+    statuses = Counter(r["status"] for r in rows)
+    return {
+        "wall": wall,
+        "load": load,
+        "seconds": seconds,
+        "total": sum(sum(s) for s in seconds.values()),
+        "statuses": statuses,
+        "decision": analysis.decision,
+        "variants": analysis.variants,
+    }
+
+
+def retired_lines(variants) -> list[str]:
+    out = []
+    for _, row in variants[variants["retired_after"].notna()].iterrows():
+        out.append(
+            f"  {row['variant']}: after seed {row['retired_after']}, by {row['retired_by']} "
+            f"(diff {100 * row['retired_diff']:+.2f} pp, upper bound "
+            f"{100 * row['retired_bound']:+.2f} pp, p_holm {row['retired_p_holm']:.4f})"
+        )
+    return out
+
+
+def main() -> None:
+    sweep = Path(sys.argv[1] if len(sys.argv) > 1 else "sweeps/scarce-labels.toml").resolve()
+    with tempfile.TemporaryDirectory() as tmp:
+        race = run(sweep, "on", Path(tmp) / "race")
+        full = run(sweep, "off", Path(tmp) / "full")
+    compare(sweep, race, full)
+
+
+def compare(sweep: Path, race: dict, full: dict) -> None:
+    """Print the figures of the two runs side by side."""
+    n_full = sum(len(s) for s in full["seconds"].values())
+    n_race = sum(len(s) for s in race["seconds"].values())
+    mean = {v: statistics.mean(s) for v, s in full["seconds"].items()}
+    # Each of the race's trials at the full run's mean time for its variant: load cannot tilt it.
+    steady = sum(mean[v] * len(s) for v, s in race["seconds"].items()) / full["total"]
+    print(f"sweep {sweep.name}: {len(mean)} variants, {n_full} trials without racing")
+    print(
+        f"training seconds to the decision: racing {race['total']:.0f}s ({race['load']}) vs "
+        f"full {full['total']:.0f}s ({full['load']}): {race['total'] / full['total']:.2f}x   "
+        f"(target <= 0.5x)"
+    )
+    print(
+        f"  the same with each trial at the full run's mean time for its variant: {steady:.2f}x; "
+        f"whole command {race['wall']:.0f}s vs {full['wall']:.0f}s"
+    )
+    print(
+        f"trials: {n_race} trained with racing, {n_full - n_race} skipped "
+        f"(statuses {dict(race['statuses'])})"
+    )
+    print("retired:")
+    print("\n".join(retired_lines(race["variants"])) or "  none")
+    theirs, ours = full["decision"], race["decision"]
+    accepted = ours.recommended == theirs.recommended or ours.recommended in theirs.qualifying
+    print(
+        f"recommended: racing {ours.recommended}, full {theirs.recommended} (full sweep's "
+        f"qualifying plans: {', '.join(theirs.qualifying) or 'none'}); the racing pick is "
+        f"{'the same' if ours.recommended == theirs.recommended else 'different'}, and the full "
+        f"sweep's rule {'accepts' if accepted else 'does NOT accept'} it"
+    )
+    n_seeds = max(len(s) for s in full["seconds"].values())
+    kept = race["variants"].loc[race["variants"]["retired_after"].isna(), "variant"]
+    kept_share = sum(sum(full["seconds"].get(v, [])) for v in kept) / full["total"]
+    print(
+        f"the variants never retired take {kept_share:.0%} of the full sweep's training "
+        f"seconds: with every retirement after the first seed round, racing spends at least "
+        f"(1 + {n_seeds - 1} x {kept_share:.2f}) / {n_seeds} = "
+        f"{(1 + (n_seeds - 1) * kept_share) / n_seeds:.2f}x"
+    )
+    table = full["variants"].set_index("variant")[theirs.cost]
+    costlier = table.index[table > table[theirs.baseline]]
+    print(
+        f"{len(costlier)} variants cost more {theirs.cost} than the baseline {theirs.baseline}: "
+        f"the margin rule never recommends them, but racing retires one only when it loses "
+        f"more than the margin to a variant that costs no more; they take "
+        f"{sum(sum(full['seconds'].get(v, [])) for v in costlier) / full['total']:.0%} of the "
+        f"full sweep's training seconds"
+    )
+
+
+if __name__ == "__main__":
+    main()
