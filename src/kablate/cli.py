@@ -212,7 +212,7 @@ def plan(
             raise UsageError("--latency is not available with --model yet; drop --latency")
         plan_one_model(factory, input_shape, factory_kwargs, batch_size, fmt)
         return
-    from kablate.costs.export import (
+    from kablate.costs.plan_output import (
         catalog_csv,
         catalog_json,
         catalog_table,
@@ -348,7 +348,7 @@ def run(
 ) -> None:
     """Train every (variant, seed) trial of a sweep, then write the report."""
     with speaking("torch, pandas and matplotlib"):
-        from kablate.report.build import write_report
+        from kablate.report.compose import write_report
         from kablate.trials.outcome import verdict
         from kablate.trials.results import open_results
         from kablate.trials.runner import RunOptions, run_sweep
@@ -478,7 +478,7 @@ def report(
     """Rebuild the tables, plots and model-card section of a results folder."""
     with speaking("pandas, statsmodels and matplotlib"):
         from kablate.analysis.summary import pick_settings
-        from kablate.report.build import write_report
+        from kablate.report.compose import write_report
         from kablate.trials.results import open_results
 
         started()

@@ -13,7 +13,7 @@ import time
 from pathlib import Path
 
 from kablate.costs.catalog import build_catalog
-from kablate.costs.export import catalog_json, catalog_table
+from kablate.costs.plan_output import catalog_json, catalog_table
 from kablate.spec import load_sweep
 
 SWEEP = """

@@ -6,8 +6,8 @@ from __future__ import annotations
 import pandas as pd
 
 from kablate.analysis.summary import analyze as analyze_rows
-from kablate.report.build import scrub
 from kablate.report.card import render_card
+from kablate.report.compose import scrub
 from kablate.spec.schema import PickSpec
 from tests.analysis.synthetic import data_json, with_predictions
 from tests.analysis.test_tables import plan, rows

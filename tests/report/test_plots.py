@@ -9,8 +9,8 @@ import pytest
 from kablate.analysis.erf import ErfMap, Geometry
 from kablate.analysis.summary import Analysis, analyze
 from kablate.report import plots
-from kablate.report.build import draw_plots
 from kablate.report.card import CardContext, render_card
+from kablate.report.compose import draw_plots
 from kablate.report.plot_style import PALETTE, rendering, style
 from kablate.report.plots import (
     heatmap_limits,

@@ -8,8 +8,8 @@ import pandas as pd
 
 from kablate.analysis.pareto import pareto_front
 from kablate.analysis.stats import t_interval
-from kablate.costs.export import LATENCY_FIELDS, ORT_FIELDS
 from kablate.costs.memory import weight_bytes
+from kablate.costs.plan_output import LATENCY_FIELDS, ORT_FIELDS
 from kablate.lifecycle import FINISHED, SETTLED
 from kablate.plans.expand import plan_text
 from kablate.spec.costs import COSTS

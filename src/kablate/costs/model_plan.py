@@ -1,7 +1,7 @@
 """The plan of one model, built by the user's factory (`kablate plan --model`).
 
 It is a sweep's plan with a single variant, the unchanged model: the JSON and CSV carry the
-same fields as `kablate.costs.export` gives each variant of a sweep, plus ``model`` (the
+same fields as `kablate.costs.plan_output` gives each variant of a sweep, plus ``model`` (the
 factory, its keyword arguments and the input) and ``notes`` (what could not be measured).
 """
 
@@ -12,7 +12,8 @@ import io
 import json
 from dataclasses import dataclass, field
 
-from kablate.costs.export import (
+from kablate.costs.graph import GraphCost, graph_cost
+from kablate.costs.plan_output import (
     CSV_COLUMNS,
     _cell,
     _wrap,
@@ -22,7 +23,6 @@ from kablate.costs.export import (
     latency_json,
     layer_json,
 )
-from kablate.costs.graph import GraphCost, graph_cost
 from kablate.nets.factory import build_model
 
 MODEL_ID = "model"  # the id of the one variant; its name is the factory

@@ -1,5 +1,5 @@
 """Report: plots and the model-card section."""
 
-from kablate.report.build import write_report
+from kablate.report.compose import write_report
 
 __all__ = ["write_report"]

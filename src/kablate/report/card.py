@@ -13,7 +13,7 @@ from dataclasses import dataclass
 from datetime import UTC, datetime
 
 from kablate.analysis.summary import Analysis
-from kablate.costs.export import human
+from kablate.costs.plan_output import human
 from kablate.lifecycle import RETIRED
 from kablate.plans.expand import read_plan_text
 from kablate.plans.grammar import KernelSpecError, parse_kernel

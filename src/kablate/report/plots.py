@@ -25,7 +25,7 @@ from matplotlib.ticker import (
 
 from kablate.analysis.classes import confusion
 from kablate.analysis.summary import Analysis
-from kablate.costs.export import human
+from kablate.costs.plan_output import human
 from kablate.report.plot_style import (
     dodge,
     legend_below,

@@ -9,8 +9,8 @@ import pandas as pd
 
 from kablate.analysis.classes import per_class_accuracy
 from kablate.analysis.summary import Analysis
-from kablate.costs.export import human
 from kablate.costs.latency import NOISY_IQR_RATIO, Timing
+from kablate.costs.plan_output import human
 from kablate.report.verdict import cost_ratio, pct, pp
 from kablate.spec.costs import COSTS
 

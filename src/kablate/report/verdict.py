@@ -7,7 +7,7 @@ import math
 
 from kablate.analysis.decide import STABLE_SHARE, Contrast, Decision
 from kablate.analysis.summary import Analysis
-from kablate.costs.export import human
+from kablate.costs.plan_output import human
 
 
 def pct(x: float | None) -> str:

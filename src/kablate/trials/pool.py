@@ -33,10 +33,10 @@ from kablate.lifecycle import DONE, RUNNING, is_finished, n_finished
 from kablate.results.paths import RUN_LOG
 from kablate.spec.loader import load_sweep
 from kablate.trials.eta import eta_seconds
-from kablate.trials.export import collect_trials
 from kablate.trials.jobs import Job, claim_order, sweep_jobs
 from kablate.trials.liveness import Liveness, liveness_for
 from kablate.trials.queue import trial_status
+from kablate.trials.rows import collect_trials
 from kablate.trials.status import duration
 from kablate.trials.store import lock_dir, open_study
 from kablate.trials.worker import WorkerContext, work

@@ -100,7 +100,7 @@ class Race:
 
     @classmethod
     def of(cls, catalog, labels, rule: dict) -> Race:
-        from kablate.costs.export import cost_json
+        from kablate.costs.plan_output import cost_json
         from kablate.spec.costs import COSTS
 
         column = COSTS[rule["cost"]].column

@@ -15,8 +15,8 @@ from kablate.errors import UsageError
 from kablate.results.folder import ResultsFolder, read_records
 from kablate.results.paths import SWEEP_FILE
 from kablate.results.redact import strip_password
-from kablate.trials.export import collect_trials
 from kablate.trials.race import race_summary
+from kablate.trials.rows import collect_trials
 from kablate.trials.store import STORAGE_ENV, open_study, resolve_url
 
 

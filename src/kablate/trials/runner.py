@@ -18,7 +18,7 @@ from pathlib import Path
 from kablate.analysis.power import plan_note
 from kablate.console import FILE_ONLY, step
 from kablate.costs.catalog import Catalog, build_catalog, measure_latencies
-from kablate.costs.export import variant_json
+from kablate.costs.plan_output import variant_json
 from kablate.data.prepare import prepare_data
 from kablate.errors import UsageError
 from kablate.lifecycle import FINISHED, is_finished
@@ -31,7 +31,6 @@ from kablate.train.device import check_device
 from kablate.train.loop import warm_up
 from kablate.trials.budget import calibrate, format_plan, schedule
 from kablate.trials.environment import environment
-from kablate.trials.export import collect_trials
 from kablate.trials.jobs import Job, longest_first, sweep_jobs
 from kablate.trials.liveness import liveness_for
 from kablate.trials.meta import check_definition, definition, fingerprint
@@ -46,6 +45,7 @@ from kablate.trials.pool import (
 from kablate.trials.preflight import run_preflight
 from kablate.trials.queue import enqueue_missing, job_status, tagged_trials
 from kablate.trials.race import start_race
+from kablate.trials.rows import collect_trials
 from kablate.trials.store import lock_dir, open_study, resolve_url, storage_exists
 
 log = logging.getLogger("kablate")

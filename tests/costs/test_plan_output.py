@@ -11,8 +11,8 @@ from dataclasses import replace
 import pytest
 
 from kablate.costs.catalog import build_catalog
-from kablate.costs.export import NAME_WIDTH, catalog_csv, catalog_json, catalog_table
 from kablate.costs.latency import NOISY_IQR_RATIO, Latency, RuntimeTiming, Timing
+from kablate.costs.plan_output import NAME_WIDTH, catalog_csv, catalog_json, catalog_table
 from kablate.spec import load_sweep
 from tests.conftest import write_sweep
 
