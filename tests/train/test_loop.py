@@ -365,3 +365,33 @@ def test_the_recipe_label_smoothing_reaches_the_loss(tiny, monkeypatch):
     )
     # Same seed, same first batch: only the smoothing differs, so the first losses differ.
     assert smoothed.curve[0].train_loss != plain.curve[0].train_loss
+
+
+def test_one_step_count_for_trainer_budget_and_preflight():
+    # 1,000 images at batch 64: ⌈1000/64⌉ = 16 steps per epoch, 160 over 10 epochs; a
+    # max_steps of 20 ends the trial in its second epoch.
+    recipe = load_sweep(REPO / "sweeps" / "quickstart.toml").recipe
+    ten = dataclasses.replace(recipe, epochs=10, batch_size=64, max_steps=0)
+    assert loop.step_count(ten, 1000) == loop.StepCount(per_epoch=16, total=160, epochs=10)
+    capped = dataclasses.replace(ten, max_steps=20)
+    assert loop.step_count(capped, 1000) == loop.StepCount(per_epoch=16, total=20, epochs=2)
+
+
+def test_the_budget_times_the_trainers_own_step(monkeypatch):
+    # The calibration must time what the trainer runs: its step (schedule included), not a
+    # copy of it. Counting the calls through loop.train_step shows which one it used.
+    from kablate.trials import budget
+
+    sweep = load_sweep(REPO / "sweeps" / "quickstart.toml")
+    data = prepare_data(sweep.data)
+    calls = []
+    real = loop.train_step
+    monkeypatch.setattr(budget, "train_step", lambda *a: calls.append(1) or real(*a))
+    model = torch.nn.Sequential(torch.nn.Flatten(), torch.nn.Linear(64, 10))
+    optimizer = loop.make_optimizer(model, sweep.recipe)
+    steps = loop.step_count(sweep.recipe, len(data.train.labels))
+    times = budget.time_steps(model, optimizer, data, sweep.recipe, steps, 3)
+    assert len(times) == 3 and len(calls) == 3
+    # The schedule's lr for the third step (index 2) is what the optimizer holds.
+    factor = loop.get_lr_factor(2, steps.total, steps.per_epoch, sweep.recipe)
+    assert optimizer.param_groups[0]["lr"] == pytest.approx(sweep.recipe.lr * factor)

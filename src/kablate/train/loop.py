@@ -89,11 +89,47 @@ def warm_up(recipe: RecipeSpec) -> None:
     optimizer.step()
 
 
-def budget_steps(recipe: RecipeSpec, n_train: int) -> tuple[int, int]:
-    """(steps per epoch, total steps): ``epochs`` full epochs, capped by ``max_steps``."""
-    steps_per_epoch = math.ceil(n_train / recipe.batch_size)
-    total = recipe.epochs * steps_per_epoch
-    return steps_per_epoch, min(total, recipe.max_steps) if recipe.max_steps else total
+@dataclass(frozen=True)
+class StepCount:
+    """How many optimizer steps a trial takes: ``epochs`` full epochs, capped by
+    ``max_steps``. The one count the trainer, the budget's timing and the preflight share."""
+
+    per_epoch: int
+    total: int
+    epochs: int  # the epochs that take a step: fewer than recipe.epochs under max_steps
+
+
+def step_count(recipe: RecipeSpec, n_train: int) -> StepCount:
+    per_epoch = math.ceil(n_train / recipe.batch_size)
+    total = recipe.epochs * per_epoch
+    if recipe.max_steps:
+        total = min(total, recipe.max_steps)
+    return StepCount(per_epoch, total, min(recipe.epochs, math.ceil(total / per_epoch)))
+
+
+def set_lr(optimizer: torch.optim.Optimizer, recipe: RecipeSpec, step: int, steps: StepCount):
+    """The schedule's learning rate for optimizer step ``step`` (counted from 0)."""
+    lr = recipe.lr * get_lr_factor(step, steps.total, steps.per_epoch, recipe)
+    for group in optimizer.param_groups:
+        group["lr"] = lr
+
+
+def train_step(
+    model: nn.Module,
+    optimizer: torch.optim.Optimizer,
+    x: torch.Tensor,
+    y: torch.Tensor,
+    recipe: RecipeSpec,
+) -> tuple[torch.Tensor, bool]:
+    """One training step on one batch: (the loss, whether it was finite). A non-finite loss
+    makes no update. The trainer, the budget's timing and the preflight all step through here."""
+    loss = F.cross_entropy(model(x), y, label_smoothing=recipe.label_smoothing)
+    finite = bool(torch.isfinite(loss))
+    if finite:
+        optimizer.zero_grad(set_to_none=True)
+        loss.backward()
+        optimizer.step()
+    return loss, finite
 
 
 @torch.no_grad()
@@ -138,7 +174,7 @@ def train_epoch(
     recipe: RecipeSpec,
     seed: int,
     progress: TrialProgress,
-    steps: tuple[int, int],
+    steps: StepCount,
     should_stop: Callable[[], bool] | None,
 ) -> float:
     """One pass over the training subset (or up to the step budget); the mean train loss.
@@ -146,7 +182,6 @@ def train_epoch(
     A non-finite loss marks the trial ``diverged`` and ends the epoch before that step's
     update. The loss sum stays a tensor, so the loop never waits for a value it only logs.
     """
-    steps_per_epoch, total_steps = steps
     model.train()
     loss_sum, seen = torch.zeros((), device=train.images.device), 0
     batches = train_batches(
@@ -155,19 +190,14 @@ def train_epoch(
     for x, y in batches:
         if should_stop is not None and should_stop():
             raise TrialInterrupted(f"stopped in epoch {shown_epoch(progress.epoch)}")
-        if progress.step >= total_steps:
+        if progress.step >= steps.total:
             break
-        lr = recipe.lr * get_lr_factor(progress.step, total_steps, steps_per_epoch, recipe)
-        for group in optimizer.param_groups:
-            group["lr"] = lr
-        loss = F.cross_entropy(model(x), y, label_smoothing=recipe.label_smoothing)
-        if not torch.isfinite(loss):
+        set_lr(optimizer, recipe, progress.step, steps)
+        loss, finite = train_step(model, optimizer, x, y, recipe)
+        if not finite:
             progress.record.status = "diverged"
             progress.record.note = f"loss was {float(loss.detach())} at step {progress.step}"
             break
-        optimizer.zero_grad(set_to_none=True)
-        loss.backward()
-        optimizer.step()
         progress.step += 1
         loss_sum += loss.detach() * len(y)
         seen += len(y)
@@ -258,7 +288,7 @@ def train_trial(
     torch.manual_seed(seed)  # initialisation; data order and augmentation have their own
     model = build_network(blueprint).to(dev, memory_format=torch.channels_last)
     optimizer = make_optimizer(model, recipe)
-    steps = budget_steps(recipe, len(train.labels))
+    steps = step_count(recipe, len(train.labels))
     ckpt_path = workdir / CHECKPOINT if workdir is not None else None
     identity = trial_identity(blueprint, recipe, data, seed)
     progress = restore(ckpt_path, identity, model, optimizer)
@@ -267,7 +297,7 @@ def train_trial(
     record = progress.record
     clock = time.perf_counter() - record.train_seconds
 
-    while progress.epoch < recipe.epochs and progress.step < steps[1]:
+    while progress.epoch < recipe.epochs and progress.step < steps.total:
         epoch_start = time.perf_counter()
         train_loss = train_epoch(
             model, optimizer, train, recipe, seed, progress, steps, should_stop

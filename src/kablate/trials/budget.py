@@ -13,7 +13,6 @@ complete comparison at fewer seeds, plus part of the next seed.
 
 from __future__ import annotations
 
-import math
 import statistics
 import tempfile
 import time
@@ -21,7 +20,6 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import torch
-import torch.nn.functional as F
 
 from kablate.console import step
 from kablate.costs.catalog import Catalog
@@ -29,7 +27,7 @@ from kablate.data.batches import train_batches
 from kablate.data.prepare import PreparedData
 from kablate.nets.build import build_network
 from kablate.train.checkpoint import save_checkpoint
-from kablate.train.loop import evaluate, make_optimizer
+from kablate.train.loop import StepCount, evaluate, make_optimizer, set_lr, step_count, train_step
 from kablate.trials.jobs import Job
 
 N_WARMUP, N_TIMED = 2, 5
@@ -44,17 +42,11 @@ class Calibration:
     trial_seconds: float
 
 
-def trial_steps(n_train: int, recipe) -> tuple[int, int]:
-    """(optimizer steps, epochs) of one trial, as train_trial counts them."""
-    steps_per_epoch = math.ceil(n_train / recipe.batch_size)
-    total = recipe.epochs * steps_per_epoch
-    if recipe.max_steps:
-        total = min(total, recipe.max_steps)
-    return total, min(recipe.epochs, math.ceil(total / steps_per_epoch))
-
-
-def time_steps(model, optimizer, data: PreparedData, recipe, n: int) -> list[float]:
-    """Seconds of ``n`` training steps, each timed from fetching its batch to the update."""
+def time_steps(
+    model, optimizer, data: PreparedData, recipe, steps: StepCount, n: int
+) -> list[float]:
+    """Seconds of ``n`` training steps, each timed from fetching its batch to the update, by
+    the trainer's own step (its schedule and finiteness check included)."""
     model.train()
     times: list[float] = []
     epoch = 0
@@ -64,10 +56,8 @@ def time_steps(model, optimizer, data: PreparedData, recipe, n: int) -> list[flo
         )
         start = time.perf_counter()
         for x, y in batches:
-            loss = F.cross_entropy(model(x), y, label_smoothing=recipe.label_smoothing)
-            optimizer.zero_grad(set_to_none=True)
-            loss.backward()
-            optimizer.step()
+            set_lr(optimizer, recipe, len(times), steps)
+            train_step(model, optimizer, x, y, recipe)
             now = time.perf_counter()
             times.append(now - start)
             start = now
@@ -81,7 +71,7 @@ def calibrate(catalog: Catalog, data: PreparedData, threads: int) -> dict[str, C
     """Time every variant's steps; return predicted trial seconds by variant id."""
     torch.set_num_threads(threads)
     recipe = catalog.sweep.recipe
-    n_steps, n_epochs = trial_steps(len(data.train.labels), recipe)
+    steps = step_count(recipe, len(data.train.labels))
     out = {}
     # The first model a process trains pays one-off set-up costs: time it once, unrecorded.
     n = len(catalog.variants)
@@ -97,7 +87,7 @@ def calibrate(catalog: Catalog, data: PreparedData, threads: int) -> dict[str, C
             torch.manual_seed(0)
             model = build_network(item.blueprint).to(memory_format=torch.channels_last)
             optimizer = make_optimizer(model, recipe)
-            times = time_steps(model, optimizer, data, recipe, N_WARMUP + N_TIMED)
+            times = time_steps(model, optimizer, data, recipe, steps, N_WARMUP + N_TIMED)
             step_seconds = statistics.median(times[N_WARMUP:])
             start = time.perf_counter()
             evaluate(model, data.val)
@@ -107,7 +97,11 @@ def calibrate(catalog: Catalog, data: PreparedData, threads: int) -> dict[str, C
             save_checkpoint(Path(tmp) / "c.pt", dict(state, best_state=model.state_dict()))
             ckpt_seconds = time.perf_counter() - start
             test_seconds = val_seconds * len(data.test.labels) / max(1, len(data.val.labels))
-            trial = n_steps * step_seconds + n_epochs * (val_seconds + ckpt_seconds) + test_seconds
+            trial = (
+                steps.total * step_seconds
+                + steps.epochs * (val_seconds + ckpt_seconds)
+                + test_seconds
+            )
             out[item.variant.id] = Calibration(
                 item.variant.id, step_seconds, val_seconds, ckpt_seconds, trial
             )

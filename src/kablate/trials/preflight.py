@@ -18,15 +18,13 @@ import re
 from pathlib import Path
 
 import torch
-import torch.nn.functional as F
 
 from kablate.costs.catalog import Catalog, CostedVariant
 from kablate.data.batches import augment, train_batches
 from kablate.data.prepare import PreparedData
 from kablate.errors import UsageError
 from kablate.nets.build import build_network
-from kablate.train.loop import EVAL_BATCH, budget_steps, make_optimizer
-from kablate.train.schedule import get_lr_factor
+from kablate.train.loop import EVAL_BATCH, make_optimizer, set_lr, step_count, train_step
 
 MEMINFO = Path("/proc/meminfo")
 # The backward pass holds gradients of the saved activations while it frees them, about as
@@ -104,16 +102,9 @@ def try_one_step(catalog: Catalog, data: PreparedData | None = None, device: str
         model = build_network(item.blueprint).to(device, memory_format=torch.channels_last)
         optimizer = make_optimizer(model, recipe)
         x, y, n_train, eval_x = sample_batch(catalog, data, seed)
-        steps_per_epoch, total = budget_steps(recipe, n_train)
-        for group in optimizer.param_groups:
-            group["lr"] = recipe.lr * get_lr_factor(0, total, steps_per_epoch, recipe)
+        set_lr(optimizer, recipe, 0, step_count(recipe, n_train))
         model.train()
-        loss = F.cross_entropy(
-            model(x.to(device)), y.to(device), label_smoothing=recipe.label_smoothing
-        )
-        optimizer.zero_grad(set_to_none=True)
-        loss.backward()
-        optimizer.step()
+        train_step(model, optimizer, x.to(device), y.to(device), recipe)
         model.eval()
         with torch.no_grad():
             model(eval_x.to(device))
