@@ -17,6 +17,7 @@ import numpy as np
 import torch
 from torch import nn
 
+from kablate.costs.static import reach
 from kablate.nets.layout import Layout
 
 MAX_IMAGES = 512  # validation images per network: plenty for a stable average, fast on a CPU
@@ -43,12 +44,13 @@ class ErfMap:
 
 
 def centre_geometry(layout: Layout) -> Geometry:
-    """Receptive-field arithmetic (Araujo, Norris & Sim 2019) up to the head's global pool:
-    rf grows by (k_eff − 1)·jump and the centre of output 0 moves by ((k_eff − 1)/2 − pad)·jump
-    per layer, with k_eff = d·(k − 1) + 1 and ``pad`` the padding before the first pixel."""
-    rf, jump, start = [1, 1], [1, 1], [0.0, 0.0]
+    """Where the centre output of the head's input sits: the receptive field and jumps come
+    from the static costs' recurrence (`costs.static.reach`); the centre of output 0 moves by
+    ((k_eff − 1)/2 − pad)·jump per layer (Araujo, Norris & Sim 2019), with k_eff = d·(k − 1) + 1,
+    ``pad`` the padding before the first pixel and ``jump`` the one before the layer."""
+    rf, jump, start = (1, 1), (1, 1), [0.0, 0.0]
     hw = layout.in_shape[1:]
-    for layer in layout.layers:
+    for layer, rf_after, jump_after in reach(layout):
         if layer.kind == "global_pool":
             hw = layer.in_hw
             break
@@ -56,11 +58,10 @@ def centre_geometry(layout: Layout) -> Geometry:
             extent = layer.dilation[axis] * (layer.kernel[axis] - 1) + 1
             before = layer.padding[2 * axis]  # top for rows, left for columns
             start[axis] += ((extent - 1) / 2 - before) * jump[axis]
-            rf[axis] += (extent - 1) * jump[axis]
-            jump[axis] *= layer.stride[axis]
+        rf, jump = rf_after, jump_after
     idx = ((hw[0] - 1) // 2, (hw[1] - 1) // 2)
     centre = (start[0] + idx[0] * jump[0], start[1] + idx[1] * jump[1])
-    return Geometry(centre, (rf[0], rf[1]), idx)
+    return Geometry(centre, rf, idx)
 
 
 def input_gradient(features: nn.Module, images: torch.Tensor, at: tuple[int, int]) -> np.ndarray:

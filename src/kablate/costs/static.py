@@ -66,27 +66,33 @@ def count_macs(layer: Layer) -> int:
     return 0
 
 
-def static_cost(layout: Layout, batch_size: int) -> StaticCost:
-    """Params, MACs, receptive field, shapes and activation memory of ``layout``."""
+def reach(layout: Layout) -> list[tuple[Layer, tuple[int, int], tuple[int, int]]]:
+    """Receptive-field arithmetic (Araujo, Norris & Sim 2019), layer by layer: each layer with
+    the receptive field and jump of one of its outputs. A conv or pool layer grows the field
+    by (k_eff − 1)·jump, k_eff = d·(k − 1) + 1, and multiplies the jump by its stride; other
+    layers leave both as they are. The one home of this recurrence: the effective receptive
+    field's geometry reads it from here."""
     rf, jump = [1, 1], [1, 1]
-    rows, head_rf, head_jump, head_hw = [], (1, 1), (1, 1), layout.in_shape[1:]
+    out = []
     for layer in layout.layers:
-        if layer.kind == "global_pool":
-            head_rf, head_jump, head_hw = (rf[0], rf[1]), (jump[0], jump[1]), layer.in_hw
         if layer.kind in ("conv", "pool"):
             for axis in (0, 1):
                 extent = layer.dilation[axis] * (layer.kernel[axis] - 1) + 1
                 rf[axis] += (extent - 1) * jump[axis]
                 jump[axis] *= layer.stride[axis]
-        rows.append(
-            LayerCost(
-                layer,
-                count_params(layer, layout.norm),
-                count_macs(layer),
-                (rf[0], rf[1]),
-                (jump[0], jump[1]),
-            )
-        )
+        out.append((layer, (rf[0], rf[1]), (jump[0], jump[1])))
+    return out
+
+
+def static_cost(layout: Layout, batch_size: int) -> StaticCost:
+    """Params, MACs, receptive field, shapes and activation memory of ``layout``."""
+    rows, head_rf, head_jump, head_hw = [], (1, 1), (1, 1), layout.in_shape[1:]
+    before_rf, before_jump = (1, 1), (1, 1)
+    for layer, rf, jump in reach(layout):
+        if layer.kind == "global_pool":
+            head_rf, head_jump, head_hw = before_rf, before_jump, layer.in_hw
+        before_rf, before_jump = rf, jump
+        rows.append(LayerCost(layer, count_params(layer, layout.norm), count_macs(layer), rf, jump))
     return StaticCost(
         layout=layout,
         layers=tuple(rows),
