@@ -162,3 +162,19 @@ def test_a_bare_stage_needs_a_pool():
     net = tiny_network(stages=((4, 0, "stride"),))
     with pytest.raises(PlanError, match='n_convs = 0.*"maxpool" or "avgpool", but got "stride"'):
         tiny_layout({}, net)
+
+
+def test_a_kernel_far_larger_than_its_input_is_refused_before_anything_is_built():
+    # Under same padding an output of an n-pixel map reaches at most 2n − 1 inputs (the
+    # padding arithmetic of Dumoulin & Visin 2016, §2.2 — from memory); kablate refuses an
+    # extent beyond 4n. The tiny network's stage2 runs at 4×4 after the pool (tests/nets/tiny).
+    with pytest.raises(PlanError) as exc:
+        tiny_layout({"body": "255"}, name="slip")
+    message = str(exc.value)
+    for part in ("variant slip", "layer stage1.0", "255×255 kernel", "8×8 input", "32 here"):
+        assert part in message
+    assert tiny_layout({"stage2": "15"}).layers  # 15 ≤ 4·4: a pointless but allowed size
+    with pytest.raises(PlanError, match="layer stage2.0 .* 17×17 kernel .* 4×4 input"):
+        tiny_layout({"stage2": "17"})
+    with pytest.raises(PlanError, match="extent 41×41"):  # dilation counts: 3d20 → 41
+        tiny_layout({"stem": "3d20"})

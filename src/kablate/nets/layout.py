@@ -18,6 +18,13 @@ from kablate.plans.grammar import KernelSpec, stack_depth
 from kablate.plans.groups import list_slots, stage_names
 from kablate.spec.schema import NetworkSpec
 
+# A kernel's extent is refused beyond this many times its layer's input side. Under "same"
+# padding an output of an n-pixel map reaches at most 2n − 1 input positions, so taps past that
+# only multiply padding; 4× leaves room for a plan that keeps one kernel size across stages
+# at lower resolutions, and stops a slip such as "255" on an 8×8 input from building a network
+# whose one training step takes minutes (our own bound, documented in sweeps/README.md).
+EXTENT_PER_SIDE = 4
+
 
 @dataclass(frozen=True)
 class Layer:
@@ -99,6 +106,16 @@ class _Cursor:
                 f"(extent {extent[0]}×{extent[1]}) but its input is only "
                 f"{self.hw[0]}×{self.hw[1]} under valid padding"
             )
+        for axis in (0, 1):
+            if extent[axis] > EXTENT_PER_SIDE * self.hw[axis]:
+                raise PlanError(
+                    f"variant {self.variant}: layer {name} has a {kernel[0]}×{kernel[1]} "
+                    f"kernel (extent {extent[0]}×{extent[1]}) on a {self.hw[0]}×{self.hw[1]} "
+                    f"input; kablate allows an extent of at most {EXTENT_PER_SIDE}× the input "
+                    f"side ({EXTENT_PER_SIDE * self.hw[axis]} here): past 2·"
+                    f"{self.hw[axis]} − 1 = {2 * self.hw[axis] - 1} its taps only ever "
+                    "multiply padding, and the cost still grows with k²"
+                )
         if not is_symmetric(padding):
             self.warnings.append(
                 f"variant {self.variant}: layer {name}: the even {kernel[0]}×{kernel[1]} kernel "
