@@ -280,10 +280,11 @@ def _run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
     layout = choose_layout(opts.workers, opts.threads, len(jobs))
     step("start-up", f"preparing the data ({sweep.data.source})")
     data = prepare_data(sweep.data)
+    n_variants = len(catalog.variants)
     step(
         "start-up",
-        f"preflight: the memory of {len(catalog.variants)} variants, and one training step of "
-        "the most expensive",
+        f"preflight: the memory of {n_variants} variants, and one training step of the most "
+        "expensive",
     )
     # Before the definition is recorded: a sweep refused here can be fixed and rerun as is.
     run_preflight(catalog, data, layout[0], opts.device)
