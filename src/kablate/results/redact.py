@@ -21,14 +21,19 @@ def password_spans(text: str) -> list[tuple[int, int]]:
 
     A password may hold any character, a raw ``@`` included: it runs from the first ``:`` after
     the user name to the last ``@`` of the URL, which ends at whitespace, or at its closing
-    quote when it is quoted (a command line). So a raw ``@`` in a query would hide more than
-    the password; nothing is ever shown that belongs to it.
+    quote when it is quoted (a command line); a text that is one URL ends with the text, so a
+    raw space in its password is hidden too. Callers remove ``password=`` parameters first,
+    so an ``@`` inside one is never taken for the end of the user part. Any other raw ``@``
+    in a query would hide more than the password; nothing is ever shown that belongs to it.
     """
     spans = []
+    whole = SCHEME.match(text) is not None  # the text is one URL: a raw space is its own
     for match in SCHEME.finditer(text):
         start = match.end()
         before = text[match.start() - 1] if match.start() else ""
-        if before and before in QUOTES:
+        if whole:
+            end = len(text)
+        elif before and before in QUOTES:
             end = text.find(before, start)
             end = len(text) if end == -1 else end
         else:
@@ -44,9 +49,10 @@ def password_spans(text: str) -> list[tuple[int, int]]:
 def redact(text: str) -> str:
     """``text`` (a URL, a command line, an error) with every storage password shown as ``***``:
     the ``user:password@`` form and libpq's ``password=`` parameter or keyword."""
+    text = PASSWORD_PARAM.sub(r"\1***", text)
     for begin, end in reversed(password_spans(text)):
         text = text[:begin] + "***" + text[end:]
-    return PASSWORD_PARAM.sub(r"\1***", text)
+    return text
 
 
 def strip_password(url: str) -> str:
@@ -55,11 +61,12 @@ def strip_password(url: str) -> str:
     What the results folder records: ``status`` and ``report`` then connect with libpq's own
     ``PGPASSWORD`` or ``~/.pgpass``, or with the full URL in ``$KABLATE_STORAGE``.
     """
-    for begin, end in reversed(password_spans(url)):
-        url = url[: begin - 1] + url[end:]  # the ':' before the password goes too
     base, _, query = url.partition("?")
     kept = [p for p in query.split("&") if p and not p.lower().startswith("password=")]
-    return base + ("?" + "&".join(kept) if kept else "")
+    url = base + ("?" + "&".join(kept) if kept else "")
+    for begin, end in reversed(password_spans(url)):
+        url = url[: begin - 1] + url[end:]  # the ':' before the password goes too
+    return url
 
 
 def sanitize(text: str) -> str:
