@@ -123,10 +123,17 @@ class Interrupt:
 
 sys.meta_path.insert(0, Interrupt())
 sys.argv = ["kablate", *{args!r}]
-runpy.run_module("kablate", run_name="__main__")
+{run}
 """
+# ``python -m kablate``, and the installed `kablate` script (its entry point in pyproject.toml)
+BY_MODULE = 'runpy.run_module("kablate", run_name="__main__")'
+BY_SCRIPT = (
+    "from importlib.metadata import entry_points; "
+    'entry_points(group="console_scripts")["kablate"].load()()'
+)
 
 
+@pytest.mark.parametrize("run", [BY_MODULE, BY_SCRIPT], ids=["module", "script"])
 @pytest.mark.parametrize(
     ("module", "args", "said"),
     [
@@ -143,8 +150,8 @@ runpy.run_module("kablate", run_name="__main__")
         ),
     ],
 )
-def test_ctrl_c_while_importing_exits_130_in_one_line(module, args, said):
-    code = textwrap.dedent(INTERRUPT_AT.format(module=module, args=args))
+def test_ctrl_c_while_importing_exits_130_in_one_line(module, args, said, run):
+    code = textwrap.dedent(INTERRUPT_AT.format(module=module, args=args, run=run))
     out = subprocess.run(
         [sys.executable, "-c", code], cwd=REPO, capture_output=True, text=True, timeout=300
     )
