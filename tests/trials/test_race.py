@@ -1,10 +1,11 @@
 """Racing over seeds end to end (trials/race.py): a plan that cannot see retires after seed 0,
 the decision equals the full sweep's, and a resumed race never trains a retired variant.
 
-The "blind" plan is our own construction: every 3×3 kernel dilated by 8 on 8×8 digits, so each
-off-centre tap of every conv lands in the zero padding (PyTorch's Conv2d output formula with
-padding 8: the taps sit at offsets ±8) and the network sees one pixel at a time before the
-global pool. It costs the MACs of all-3 (its taps are counted) and stays near chance.
+The "blind" plan is our own construction: every 3×3 kernel dilated by the side of its input
+(8 on the 8×8 digits, 4 on stage2's 4×4 map), so each off-centre tap of every conv lands in
+the zero padding (PyTorch's Conv2d output formula with padding d: the taps sit at offsets ±d)
+and the network sees one pixel at a time before the global pool. It costs the MACs of all-3
+(its taps are counted) and stays near chance.
 """
 
 from __future__ import annotations
@@ -52,7 +53,8 @@ stem = "5"
 [[plan]]
 name = "blind"
 stem = "3d8"
-body = "3d8"
+stage1 = "3d8"
+stage2 = "3d4"
 """
 
 
