@@ -122,7 +122,8 @@ def retired_lines(variants) -> list[str]:
     out = []
     for _, row in variants[variants["retired_after"].notna()].iterrows():
         out.append(
-            f"  {row['variant']}: after seed {row['retired_after']}, by {row['retired_by']} "
+            f"  {row['variant']}: after seed {row['retired_after']}, {row['retired_why']}, "
+            f"against {row['retired_by']} "
             f"(diff {100 * row['retired_diff']:+.2f} pp, upper bound "
             f"{100 * row['retired_bound']:+.2f} pp, p_holm {row['retired_p_holm']:.4f})"
         )

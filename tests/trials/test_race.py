@@ -14,6 +14,7 @@ import csv
 
 import pytest
 
+from kablate.analysis.race import RETIRED_COLUMNS
 from kablate.lifecycle import RETIRED
 from kablate.report import write_report
 from kablate.trials import RunOptions, open_results, run_sweep
@@ -79,8 +80,10 @@ def test_race_retires_the_blind_plan_and_decides_as_the_full_sweep(tmp_path):
     assert ours["blind"]["retired_after"] == "0"
     assert ours["blind"]["n_seeds"] == "1"
     assert ours["blind"]["retired_by"] in ("all-3", "stem-5")
+    assert ours["blind"]["retired_why"] == "dominated"
     assert float(ours["blind"]["retired_bound"]) < -0.01  # its upper bound lies below −margin
-    assert ours["all-3"]["retired_after"] == ""  # the baseline is never retired
+    # the baseline is never retired; a variant in the race has every retired_* cell empty
+    assert all(ours["all-3"][c] == "" for c in RETIRED_COLUMNS)
     assert not any(r["retired_after"] for r in theirs.values())
     pick = {name for name, r in ours.items() if r["recommended"] == "True"}
     assert pick == {name for name, r in theirs.items() if r["recommended"] == "True"}
