@@ -34,9 +34,9 @@ from pathlib import Path
 from optuna.trial import TrialState
 
 from kablate.analysis.summary import analyze, pick_settings
+from kablate.results.folder import read_json
+from kablate.results.paths import DATA_FILE
 from kablate.trials import open_results
-from kablate.trials.meta import read_json
-from kablate.trials.results import DATA_FILE
 
 REPO = Path(__file__).resolve().parents[2]
 
