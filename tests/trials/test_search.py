@@ -8,16 +8,15 @@ import itertools
 import pytest
 
 from kablate.analysis.hypervolume import hypervolume, reference_point
+from kablate.costs.screen import Screen
+from kablate.plans.space import space_plans, space_size, uniform_plans
 from kablate.trials.search import (
     EVALUATED,
     FILTERED,
     REPEAT,
-    Screen,
     plan_key,
     search_front,
     search_study,
-    space_size,
-    uniform_plans,
 )
 
 GROUPS = ("stem", "stage1.0", "stage2.0", "stage3.0")
@@ -37,6 +36,12 @@ def accuracy_of(plan):
 
 def every_plan():
     return [dict(zip(GROUPS, combo, strict=True)) for combo in itertools.product(*CHOICES.values())]
+
+
+def test_the_space_lists_every_combination_once():
+    assert list(space_plans(CHOICES)) == every_plan()
+    assert uniform_plans(CHOICES) == [dict.fromkeys(GROUPS, s) for s in ("3", "5", "7")]
+    assert uniform_plans({"stem": ("3", "5"), "body": ("5", "7")}) == [{"stem": "5", "body": "5"}]
 
 
 def brute_force_front(plans):

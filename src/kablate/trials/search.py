@@ -24,9 +24,10 @@ than the budget would never end, so at most ``max_proposals`` proposals are made
 
 With a small budget NSGA-II's first generation, drawn at random, is most of the search, and a
 random draw of a fifth of a space seldom holds its cheapest corner, whose box is a large share
-of the hypervolume. So the search starts from given plans (``first``: `uniform_plans`, every
-group at one spec, among them the all-3×3 baseline), which join the first generation as the
-seeded initial population of an evolutionary algorithm does (common practice).
+of the hypervolume. So the search starts from given plans (``first``; the runner gives
+`kablate.plans.space.uniform_plans`, every group at one spec, among them the all-3×3
+baseline), which join the first generation as the seeded initial population of an
+evolutionary algorithm does (common practice).
 
 A study that already holds trials (a resumed run) continues where it stopped: its evaluated
 networks count against the budget and are never evaluated again.
@@ -35,7 +36,6 @@ networks count against the budget and are never evaluated again.
 from __future__ import annotations
 
 import json
-import math
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 
@@ -44,20 +44,14 @@ from optuna.distributions import CategoricalDistribution
 from optuna.trial import FrozenTrial, TrialState
 
 from kablate.analysis.pareto import pareto_front
+from kablate.costs.screen import Screen
+from kablate.errors import SweepError
+from kablate.plans.space import Choices, space_size
 
 optuna.logging.set_verbosity(optuna.logging.WARNING)
 
 EVALUATED, FILTERED, REPEAT = "evaluated", "filtered", "repeat"  # a proposal's outcome
 PROPOSALS_PER_EVALUATION = 20  # the default cap on proposals, per evaluation of the budget
-
-
-@dataclass(frozen=True)
-class Screen:
-    """What is known of a plan before it trains."""
-
-    key: str  # equal keys build the same network
-    cost: float  # the static cost that is minimised
-    reason: str | None = None  # why a static filter rules it out; None when allowed
 
 
 @dataclass(frozen=True)
@@ -96,11 +90,6 @@ class SearchResult:
         return sorted((c for c, f in zip(done, on, strict=True) if f), key=lambda c: c.cost)
 
 
-def space_size(choices: Mapping[str, tuple[str, ...]]) -> int:
-    """The number of plans of a choice space: the product of its lists' lengths."""
-    return math.prod(len(specs) for specs in choices.values())
-
-
 def default_population(budget: int) -> int:
     """NSGA-II's population per generation: a quarter of the budget, from 4 to 50, so that a
     small budget still runs several generations (our choice; Optuna's default is 50)."""
@@ -115,7 +104,7 @@ def search_study(seed: int, population: int, **create) -> optuna.Study:
 
 
 def search_front(
-    choices: Mapping[str, tuple[str, ...]],
+    choices: Choices,
     screen: Callable[[dict[str, str]], Screen],
     score: Callable[[dict[str, str]], float],
     budget: int,
@@ -190,10 +179,21 @@ def read_candidate(trial: FrozenTrial) -> Candidate | None:
     )
 
 
-def uniform_plans(choices: Mapping[str, tuple[str, ...]]) -> list[dict[str, str]]:
-    """For every spec that all groups may take, the plan that gives it to all of them."""
-    common = [s for s in next(iter(choices.values())) if all(s in v for v in choices.values())]
-    return [dict.fromkeys(choices, spec) for spec in common]
+def refuse_search_run(sweep) -> None:
+    """`kablate run` does not search yet: refuse a ``[search]`` sweep rather than train only the
+    plans its search would start from.
+
+    Raises:
+        SweepError: naming the ``search`` key of the sweep file.
+    """
+    if sweep.search is not None:
+        raise SweepError(
+            sweep.source,
+            "search",
+            "declares a space to search, which `kablate run` cannot train yet: `kablate plan` "
+            "shows its size and what the budget covers; to train every plan, write the same "
+            "choices as a [[grid]]",
+        )
 
 
 def plan_key(plan: Mapping[str, str]) -> str:
