@@ -6,6 +6,7 @@ from __future__ import annotations
 import itertools
 
 import pytest
+from optuna.trial import TrialState
 
 from kablate.analysis.hypervolume import hypervolume, reference_point
 from kablate.costs.screen import Screen
@@ -13,6 +14,7 @@ from kablate.plans.space import space_plans, space_size, uniform_plans
 from kablate.trials.search import (
     EVALUATED,
     FILTERED,
+    INTERRUPTED,
     REPEAT,
     plan_key,
     search_front,
@@ -151,3 +153,29 @@ def test_a_resumed_search_continues_and_trains_nothing_twice(tmp_path):
     assert len(first.keys) == 10 and len(again.keys) == 10
     assert not set(first.keys) & set(again.keys)
     assert {c.key for c in result.evaluated} == set(first.keys) | set(again.keys)
+
+
+def test_a_search_killed_mid_training_resumes_to_its_budget(tmp_path):
+    # A kill while the 6th plan trains leaves its trial RUNNING in the storage (a
+    # KeyboardInterrupt out of `score` stands for the kill: nothing is told).
+    storage = f"sqlite:///{tmp_path / 'search.db'}"
+    trained = []
+
+    def killed_at_sixth(plan):
+        if len(trained) == 5:
+            raise KeyboardInterrupt
+        trained.append(plan_key(plan))
+        return accuracy_of(plan)
+
+    study = search_study(0, 5, storage=storage, study_name="s")
+    with pytest.raises(KeyboardInterrupt):
+        search_front(CHOICES, screen, killed_at_sixth, budget=12, seed=0, study=study)
+    stale = study.get_trials(states=(TrialState.RUNNING,))
+    assert len(stale) == 1
+    again = Counter()
+    study = search_study(0, 5, storage=storage, study_name="s", load_if_exists=True)
+    result = search_front(CHOICES, screen, again, budget=12, seed=0, study=study)
+    assert len(result.evaluated) == 12 and len(again.keys) == 7
+    assert not set(trained) & set(again.keys)  # the 5 finished plans never train again
+    assert study.get_trials(states=(TrialState.RUNNING,)) == []
+    assert study.trials[stale[0].number].user_attrs["outcome"] == INTERRUPTED

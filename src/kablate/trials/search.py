@@ -30,7 +30,9 @@ baseline), which join the first generation as the seeded initial population of a
 evolutionary algorithm does (common practice).
 
 A study that already holds trials (a resumed run) continues where it stopped: its evaluated
-networks count against the budget and are never evaluated again.
+networks count against the budget and are never evaluated again; a trial that a kill left
+RUNNING is told FAIL (``outcome = "interrupted"``) and its plan may be proposed again. One
+process at a time owns a search study (several workers sharing one are not supported yet).
 """
 
 from __future__ import annotations
@@ -51,6 +53,7 @@ from kablate.plans.space import Choices, space_size
 optuna.logging.set_verbosity(optuna.logging.WARNING)
 
 EVALUATED, FILTERED, REPEAT = "evaluated", "filtered", "repeat"  # a proposal's outcome
+INTERRUPTED = "interrupted"  # a proposal whose training was cut short by a kill
 PROPOSALS_PER_EVALUATION = 20  # the default cap on proposals, per evaluation of the budget
 
 
@@ -126,6 +129,7 @@ def search_front(
         first: plans of the space proposed before the sampler's own (a new study only).
     """
     study = study or search_study(seed, default_population(budget))
+    fail_interrupted(study)
     if not study.get_trials(deepcopy=False):
         for plan in first:
             study.enqueue_trial(dict(plan))
@@ -147,6 +151,17 @@ def search_front(
         if outcome == EVALUATED:
             seen.add(found.key)
     return SearchResult(candidates, space_size(choices), budget)
+
+
+def fail_interrupted(study: optuna.Study) -> int:
+    """Tell FAIL every trial left RUNNING (its process was killed mid-training), with
+    ``outcome = "interrupted"``, so that the search continues from its finished trials and the
+    plan may be proposed again; return how many. One process owns a search study at a time."""
+    stale = study.get_trials(deepcopy=False, states=(TrialState.RUNNING,))
+    for trial in stale:
+        study._storage.set_trial_user_attr(trial._trial_id, "outcome", INTERRUPTED)
+        study.tell(trial.number, state=TrialState.FAIL)
+    return len(stale)
 
 
 def record_candidate(study: optuna.Study, trial: optuna.Trial, candidate: Candidate) -> None:
