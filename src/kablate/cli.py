@@ -219,6 +219,7 @@ def plan(
         catalogs_csv,
         catalogs_json,
     )
+    from kablate.costs.search_plan import search_lines
 
     several = len(sweeps) > 1
     planned = [(path, plan_one_sweep(path, latency, threads, several)) for path in sweeps]
@@ -229,6 +230,9 @@ def plan(
         render = {"table": catalog_table, "json": catalog_json, "csv": catalog_csv}[fmt]
         heads = [f"{path}\n" if several else "" for path, _ in catalogs]
         echo_document("\n\n".join(h + render(c) for h, (_, c) in zip(heads, catalogs, strict=True)))
+    for path, catalog in catalogs:  # a [search] space: its size and what the budget covers
+        for line in search_lines(catalog):
+            click.echo(f"{path}: {line}" if several else line, err=fmt != "table")
     if fmt != "table":  # the table lists them; keep JSON and CSV parseable on stdout
         for path, catalog in catalogs:
             where = f"{path}: " if several else ""

@@ -28,6 +28,7 @@ from kablate.spec.schema import (
     SweepSpec,
     TargetSpec,
 )
+from kablate.spec.search import read_search
 
 NAME_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]*$")
 
@@ -69,6 +70,7 @@ TOP_LEVEL = (
     "filter",
     "pick",
     "target",
+    "search",
 )
 
 
@@ -106,8 +108,11 @@ def sweep_from_dict(raw: dict, path: Path) -> SweepSpec:
     model = read_model(raw, where)
     plans = read_plans(raw.get("plan", []), where.key("plan"))
     grids = read_grids(raw.get("grid", []), where.key("grid"))
-    if not plans and not grids:
-        raise SweepError(source, "plan", "is missing: give at least one [[plan]] or [[grid]]")
+    search = read_search(raw, where, pick)
+    if not plans and not grids and search is None:
+        raise SweepError(
+            source, "plan", "is missing: give at least one [[plan]], [[grid]] or a [search] space"
+        )
     if recipe.test_from == "best" and not data.stop_size:
         raise SweepError(
             source,
@@ -133,6 +138,7 @@ def sweep_from_dict(raw: dict, path: Path) -> SweepSpec:
         pick=pick,
         model=model,
         target=target,
+        search=search,
         raw=resolved,
     )
 
@@ -149,6 +155,7 @@ class _TopLevel:
     filter: Any = None
     pick: Any = None
     target: Any = None
+    search: Any = None
 
 
 def read_model(raw: dict, where: Where) -> ModelSpec | None:

@@ -210,6 +210,18 @@ class TargetSpec:
 
 
 @dataclass(frozen=True)
+class SearchSpec:
+    """A per-layer choice space that is searched instead of enumerated (`kablate.plans.space`,
+    `kablate.trials.search`): NSGA-II trains ``budget`` of its plans with the first seed,
+    maximising validation accuracy and minimising ``cost``; `kablate.spec.search` reads it."""
+
+    choices: dict[str, tuple[str, ...]]  # layer group → the kernel specs it may take
+    budget: int  # plans trained in the search (filtered and repeated proposals not counted)
+    cost: Literal["macs", "params"] = "macs"  # minimised beside validation accuracy
+    seed: int = 0  # the sampler's seed, not a training seed
+
+
+@dataclass(frozen=True)
 class PlanSpec:
     """One explicit kernel plan: a name and a kernel spec per layer group."""
 
@@ -237,4 +249,5 @@ class SweepSpec:
     racing: Literal["auto", "on", "off"] = "auto"  # retire dominated variants between seeds
     model: ModelSpec | None = None  # the user's own network; then `network` is unused
     target: TargetSpec = field(default_factory=TargetSpec)  # where latency is measured
+    search: SearchSpec | None = None  # a choice space to search instead of plans to enumerate
     raw: dict = field(default_factory=dict, compare=False, repr=False)  # resolved TOML
