@@ -182,8 +182,9 @@ def compare(sweep: Path, race: dict, full: dict) -> None:
     costlier = table.index[table > table[theirs.baseline]]
     print(
         f"{len(costlier)} variants cost more {theirs.cost} than the baseline {theirs.baseline}: "
-        f"the margin rule never recommends them, but racing retires one only when it loses "
-        f"more than the margin to a variant that costs no more; they take "
+        f"the margin rule never recommends them, and racing retires one when it loses more "
+        f"than the margin to a variant that costs no more or (futility) is shown to gain less "
+        f"than the margin over the baseline; they take "
         f"{sum(sum(full['seconds'].get(v, [])) for v in costlier) / full['total']:.0%} of the "
         f"full sweep's training seconds"
     )
