@@ -3,16 +3,17 @@
 This list is the single source of truth. `kablate.nets.build` turns it into a torch module and
 `kablate.costs` counts parameters, MACs and receptive fields from it, so the two cannot drift.
 Norm layers are not listed on their own: a conv with ``norm=True`` is followed by the network's
-norm, whose parameters are counted with that conv.
+norm, whose parameters are counted with that conv. An even kernel's lopsided "same" padding is
+recorded in its layer's ``padding``; `kablate.costs.catalog.padding_warnings` words the warning.
 """
 
 from __future__ import annotations
 
 import dataclasses
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 from kablate.errors import PlanError
-from kablate.nets.padding import Pair, Quad, conv_out_size, get_padding, is_symmetric
+from kablate.nets.padding import Pair, Quad, conv_out_size, get_padding
 from kablate.plans.expand import Variant
 from kablate.plans.grammar import KernelSpec, stack_depth
 from kablate.plans.groups import list_slots, stage_names
@@ -124,7 +125,6 @@ class Layout:
     norm_groups: int
     act: str
     dropout: float
-    warnings: tuple[str, ...] = field(default=(), compare=False)
 
     @property
     def layers(self) -> tuple[Layer, ...]:
@@ -146,7 +146,6 @@ class _Cursor:
     def __init__(self, variant: str, network: NetworkSpec, in_shape: tuple[int, int, int]):
         self.variant, self.network = variant, network
         self.ch, self.hw = in_shape[0], (in_shape[1], in_shape[2])
-        self.warnings: list[str] = []
 
     def conv(
         self,
@@ -176,12 +175,6 @@ class _Cursor:
                     f"{self.hw[axis]} − 1 = {2 * self.hw[axis] - 1} its taps only ever "
                     "multiply padding, and the cost still grows with k²"
                 )
-        if not is_symmetric(padding):
-            self.warnings.append(
-                f"variant {self.variant}: layer {name}: the even {kernel[0]}×{kernel[1]} kernel "
-                f"is padded asymmetrically {padding} (top, bottom, left, right) under same "
-                "padding; its feature map shifts by half a pixel"
-            )
         return self._emit(
             Layer.conv(
                 name,
@@ -304,5 +297,4 @@ def layout_network(
         norm_groups=network.norm_groups,
         act=network.act,
         dropout=network.dropout,
-        warnings=tuple(cur.warnings),
     )
