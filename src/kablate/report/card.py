@@ -14,7 +14,7 @@ from datetime import UTC, datetime
 
 from kablate.analysis.summary import Analysis
 from kablate.costs.plan_output import human
-from kablate.lifecycle import RETIRED
+from kablate.lifecycle import DIVERGED, DONE, RETIRED
 from kablate.plans.expand import read_plan_text
 from kablate.plans.grammar import KernelSpecError, parse_kernel
 from kablate.report.race import race_section
@@ -345,13 +345,13 @@ def _partial(a: Analysis) -> list[str]:
     """The planned trials the statistics do not use: not finished yet, diverged, or held back
     to compare every variant on the same seeds."""
     t, held = a.trials, a.held_back
-    waiting = t["status"].ne("done") & t["status"].ne(RETIRED)  # racing: its own section
+    waiting = t["status"].ne(DONE) & t["status"].ne(RETIRED)  # racing: its own section
     left_out = t.loc[waiting | held, ["variant", "seed", "status"]].copy()
     if not len(left_out):
         return []
     left_out.loc[held[held].index, "status"] = "done, held back"
     n_missing = len(a.missing)
-    n_diverged = int((left_out["status"] == "diverged").sum())
+    n_diverged = int((left_out["status"] == DIVERGED).sum())
     said = []
     if n_missing:
         said.append(
