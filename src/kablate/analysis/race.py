@@ -46,16 +46,7 @@ from kablate.analysis.bootstrap import N_RESAMPLES, resample_accuracies
 from kablate.analysis.decide import ALPHA, Accuracy, accuracies
 from kablate.analysis.evidence import Evidence, gather_evidence
 from kablate.lifecycle import RETIRED
-
-# variants.csv: the seed after which racing retired a variant, the variant that dominated it,
-# their difference and its one-sided 95% upper bound (fractions), and the Holm-adjusted p-value
-RETIRED_COLUMNS = {
-    "retired_after": "seed",
-    "retired_by": "by_name",
-    "retired_diff": "diff",
-    "retired_bound": "upper",
-    "retired_p_holm": "p_holm",
-}
+from kablate.results.columns import RETIRED_COLUMNS
 
 
 @dataclass(frozen=True)
