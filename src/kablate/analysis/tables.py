@@ -129,7 +129,7 @@ def add_fronts(frame: pd.DataFrame) -> None:
     acc = sub["val_acc_mean"].tolist()
     costs = measured_costs(frame)
     for cost in COSTS:
-        col = f"front_{cost}"
+        col = COSTS[cost].front
         if cost not in costs:
             frame[col] = None
             continue

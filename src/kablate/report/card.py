@@ -34,6 +34,7 @@ from kablate.report.verdict import (
     pct,
     rule_sentence,
 )
+from kablate.spec.costs import COSTS
 from kablate.spec.fields import Where, read_table
 from kablate.spec.schema import NetworkSpec, RecipeSpec
 
@@ -50,21 +51,12 @@ CAUTION = (
     "that apply to that use."
 )
 PLOT_CAPTIONS = {
-    "accuracy_vs_params": "Validation accuracy (95% bootstrap interval) against parameters; the "
-    "band runs from the baseline's accuracy down by the margin; hollow markers cannot be told "
-    "apart from the baseline",
-    "accuracy_vs_macs": "Validation accuracy (95% bootstrap interval) against MACs; the band "
-    "runs from the baseline's accuracy down by the margin; hollow markers cannot be told apart "
-    "from the baseline",
-    "accuracy_vs_latency": "Validation accuracy (95% bootstrap interval) against CPU latency; "
-    "the band runs from the baseline's accuracy down by the margin; hollow markers cannot be "
-    "told apart from the baseline",
-    "accuracy_vs_ort_latency": "Validation accuracy (95% bootstrap interval) against ONNX "
-    "Runtime latency on the CPU; the band runs from the baseline's accuracy down by the margin; "
-    "hollow markers cannot be told apart from the baseline",
-    "accuracy_vs_memory": "Validation accuracy (95% bootstrap interval) against the activation "
-    "memory of a training step; the band runs from the baseline's accuracy down by the margin; "
-    "hollow markers cannot be told apart from the baseline",
+    **{
+        cost.plot: f"Validation accuracy (95% bootstrap interval) against {cost.prose}; the band "
+        "runs from the baseline's accuracy down by the margin; hollow markers cannot be told "
+        "apart from the baseline"
+        for cost in COSTS.values()
+    },
     "rf_vs_accuracy": "Validation accuracy (95% bootstrap interval) against the theoretical "
     "receptive field; hollow markers cannot be told apart from the baseline",
     "learning_curves": "Validation accuracy per epoch (mean over seeds; band: min–max)",
