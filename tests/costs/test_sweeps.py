@@ -149,7 +149,7 @@ OWN_NETWORK = [p for p in SHIPPED if "model" not in tomllib.loads(p.read_text())
 
 @pytest.mark.parametrize("path", OWN_NETWORK, ids=lambda p: p.stem)
 def test_shipped_plans_agree_with_a_recomputation_from_layers(path: Path):
-    from tests.costs.test_plan_output import recompute
+    from tests.costs.recount import recompute
 
     for v in json.loads(plan(str(path), "--format", "json").stdout):
         again = recompute(v["layers"])

@@ -6,9 +6,10 @@ from __future__ import annotations
 
 import pandas as pd
 
-from kablate.analysis.race import DOMINATED, FUTILE, RETIRED_COLUMNS, put_retired
+from kablate.analysis.race import DOMINATED, FUTILE, put_retired
 from kablate.analysis.summary import Analysis
 from kablate.report.race import race_section
+from kablate.results.columns import RETIRED_COLUMNS
 from kablate.spec.schema import PickSpec
 
 ROUNDS = {0: {"seeds": [0], "compared": ["a", "b", "c", "d"], "retired": {}}}

@@ -14,9 +14,9 @@ import csv
 
 import pytest
 
-from kablate.analysis.race import RETIRED_COLUMNS
 from kablate.lifecycle import RETIRED
 from kablate.report import write_report
+from kablate.results.columns import RETIRED_COLUMNS
 from kablate.trials import RunOptions, open_results, run_sweep
 from kablate.trials.jobs import order_jobs
 from kablate.trials.queue import enqueue_missing, job_status, tagged_trials

@@ -56,22 +56,11 @@ from kablate.analysis.bootstrap import N_RESAMPLES, resample_accuracies
 from kablate.analysis.decide import ALPHA, Accuracy, accuracies
 from kablate.analysis.evidence import Evidence, gather_evidence
 from kablate.lifecycle import RETIRED
+from kablate.results.columns import RETIRED_COLUMNS
 
 # Why a variant was retired: it loses more than the margin to a variant that costs no more, or
 # (futility) it costs more than the baseline and gains less than the margin over it.
 DOMINATED, FUTILE = "dominated", "futile"
-
-# variants.csv: the seed after which racing retired a variant, why, the variant it was compared
-# with, their difference and its one-sided 95% upper bound (fractions), and the Holm-adjusted
-# p-value
-RETIRED_COLUMNS = {
-    "retired_after": "seed",
-    "retired_why": "why",
-    "retired_by": "by_name",
-    "retired_diff": "diff",
-    "retired_bound": "upper",
-    "retired_p_holm": "p_holm",
-}
 
 
 @dataclass(frozen=True)

@@ -81,7 +81,7 @@ def variant_table(a: Analysis, cost_label: str) -> list[str]:
         f"p (Holm) | {cost_label} (× baseline) | {accepted} | picked | front | warnings |",
         "|---|---|---|---|---:|---:|---:|---|---:|---|---|",
     ]
-    fronts = [(c.label, f"front_{c.name}") for c in COSTS.values()]
+    fronts = [(c.label, c.front) for c in COSTS.values()]
     for row in v.itertuples():
         marks = []
         if row.recommended:
