@@ -18,6 +18,7 @@ from kablate import __version__
 from kablate.console import Steps, show_steps, step
 from kablate.errors import EXIT_STOPPED, DiskFullError, KablateError, UsageError, is_disk_full
 from kablate.spec.costs import COST_NAMES
+from kablate.spec.schema import PICK_RULES
 
 EPILOG_PLAN = """\b
 Examples:
@@ -432,7 +433,7 @@ def status(results: Path, fmt: str, storage: str | None) -> None:
 )
 @click.option(
     "--rule",
-    type=click.Choice(["margin", "one-se"]),
+    type=click.Choice(PICK_RULES),
     default=None,
     help="How the plan is picked: the cheapest plan shown within the margin of the baseline "
     "(margin), or the one-standard-error rule (one-se). Default: the sweep's [pick] rule, "

@@ -11,16 +11,18 @@ and the network sees one pixel at a time before the global pool. It costs the MA
 from __future__ import annotations
 
 import csv
+from types import SimpleNamespace
 
 import pytest
 
 from kablate.lifecycle import RETIRED
 from kablate.report import write_report
 from kablate.results.columns import RETIRED_COLUMNS
+from kablate.spec.schema import PickSpec
 from kablate.trials import RunOptions, open_results, run_sweep
 from kablate.trials.jobs import order_jobs
 from kablate.trials.queue import enqueue_missing, job_status, tagged_trials
-from kablate.trials.race import read_rounds
+from kablate.trials.race import race_rule, read_rounds
 from kablate.trials.store import JOURNAL, open_study
 from tests.conftest import write_sweep
 
@@ -145,3 +147,18 @@ def test_a_race_of_two_workers_on_postgresql_retires_what_it_retires_on_the_jour
     retired, counts = found["postgres"]
     assert "blind" in retired[0]  # decided after seed 0, by the workers on the server
     assert counts == {"done": 6 - len(retired[0]), RETIRED: len(retired[0])}
+
+
+@pytest.mark.parametrize(
+    ("cost", "raced_by"),
+    [("macs", "macs"), ("params", "params"), ("memory", "memory"), ("latency", "macs"),
+     ("ort_latency", "macs")],
+)  # fmt: skip
+def test_a_race_on_a_timed_cost_compares_by_macs(cost, raced_by):
+    # Runners sharing a study must agree on who costs no more, and a timing differs between
+    # machines and runs (CPU and ONNX Runtime latency alike): the race falls back to MACs.
+    sweep = SimpleNamespace(pick=PickSpec(cost=cost))
+    rule = race_rule(sweep, "v0")
+    assert rule["cost"] == raced_by and rule["baseline"] == "v0"
+    assert rule["futility"] is True
+    assert race_rule(SimpleNamespace(pick=PickSpec(rule="one-se")), "v0")["futility"] is False

@@ -24,7 +24,6 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
-from typing import get_args, get_type_hints
 
 import numpy as np
 from scipy.stats import norm
@@ -40,10 +39,10 @@ from kablate.analysis.bootstrap import (
 )
 from kablate.analysis.evidence import Evidence
 from kablate.spec.costs import COSTS
+from kablate.spec.schema import PICK_RULES as RULES
 from kablate.spec.schema import PickSpec
 
 # The selection rules and their defaults have one home, the sweep file's [pick] table.
-RULES = get_args(get_type_hints(PickSpec)["rule"])
 DEFAULT_PICK = PickSpec()
 # The headline calls a pick unstable when the point rule, applied to the bootstrap resamples,
 # agrees with it in fewer than this share of them (documented in sweeps/README.md).

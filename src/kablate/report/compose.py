@@ -70,7 +70,7 @@ def draw_plots(analysis: Analysis, out: Path, sub: str) -> list[Path]:
         return plots
     with rendering():
         for cost in COSTS.values():  # a cost that was not measured has no front
-            if analysis.variants[f"front_{cost.name}"].notna().all():
+            if analysis.variants[cost.front].notna().all():
                 plots += plot_accuracy_vs_cost(analysis, cost.column, cost.axis, out, sub)
         plots += plot_rf_vs_accuracy(analysis, out, sub)
         if len(analysis.curves):

@@ -23,6 +23,7 @@ class Cost:
     prose: str  # in running text: "accuracy against <prose>" (the plot's caption)
     unit: str = ""  # appended to a figure in the card: "B" for bytes
     always: bool = True  # False: only present when measured
+    timed: bool = False  # True: a timing, which differs between machines and between runs
 
     @property
     def front(self) -> str:
@@ -40,7 +41,15 @@ COSTS: dict[str, Cost] = {
     for cost in (
         Cost("params", "params", "params", "parameters", "parameters"),
         Cost("macs", "macs", "MACs", "MACs", "MACs"),
-        Cost("latency", "latency_ms", "latency", "latency (ms)", "CPU latency", always=False),
+        Cost(
+            "latency",
+            "latency_ms",
+            "latency",
+            "latency (ms)",
+            "CPU latency",
+            always=False,
+            timed=True,
+        ),
         Cost(
             "ort_latency",
             "ort_latency_ms",
@@ -48,6 +57,7 @@ COSTS: dict[str, Cost] = {
             "ONNX Runtime latency (ms)",
             "ONNX Runtime latency on the CPU",
             always=False,
+            timed=True,
         ),
         Cost(
             "memory",

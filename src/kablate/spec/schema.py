@@ -171,6 +171,9 @@ class FilterSpec:
     equal_rf: bool = False  # keep only variants whose rf equals the baseline's
 
 
+PICK_RULES = ("margin", "one-se")  # [pick] rule, `kablate report --rule`
+
+
 @dataclass(frozen=True)
 class PickSpec:
     """How the report picks the recommended plan (see `kablate.analysis.decide`).
@@ -182,7 +185,7 @@ class PickSpec:
     --margin, --cost, --within-se`` override these.
     """
 
-    rule: Literal["margin", "one-se"] = "margin"
+    rule: Literal[PICK_RULES] = "margin"
     margin: float = check(between(0.0, 50.0), 1.0)  # percentage points
     cost: Literal[COST_NAMES] = "macs"  # see kablate.spec.costs
     within_se: float = check(between(0.0, 10.0), 1.0)

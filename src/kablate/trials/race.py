@@ -34,6 +34,7 @@ from optuna.exceptions import UpdateFinishedTrialError
 from optuna.trial import FrozenTrial, TrialState
 
 from kablate.lifecycle import RETIRED, JobKey, is_finished
+from kablate.spec.costs import COSTS
 from kablate.trials.jobs import Job
 from kablate.trials.queue import enqueue_missing, job_status, tagged_trials
 
@@ -41,9 +42,8 @@ log = logging.getLogger("kablate")
 
 RULE_ATTR = "race"
 ROUND_PREFIX = "race-seed-"
-# A measured cost differs from machine to machine and run to run, so runners sharing a study
-# could disagree on who costs no more: the race then compares by MACs.
-MEASURED_COSTS = ("latency",)
+# A timed cost (CPU or ONNX Runtime latency) differs from machine to machine and run to run, so
+# runners sharing a study could disagree on who costs no more: the race then compares by MACs.
 RACE_FALLBACK_COST = "macs"
 
 
@@ -58,7 +58,7 @@ def racing_wanted(setting: str, budget_seconds: float, study: optuna.Study) -> b
 def race_rule(sweep, baseline_id: str) -> dict:
     """The race's settings from the sweep's ``[pick]``: margin (pp), cost, baseline id, and
     futility (only the margin rule never recommends a plan costlier than the baseline)."""
-    cost = sweep.pick.cost if sweep.pick.cost not in MEASURED_COSTS else RACE_FALLBACK_COST
+    cost = RACE_FALLBACK_COST if COSTS[sweep.pick.cost].timed else sweep.pick.cost
     return {
         "margin_pp": float(sweep.pick.margin),
         "cost": cost,
@@ -109,7 +109,6 @@ class Race:
     @classmethod
     def of(cls, catalog, labels, rule: dict) -> Race:
         from kablate.costs.plan_output import cost_json
-        from kablate.spec.costs import COSTS
 
         column = COSTS[rule["cost"]].column
         variants = []
