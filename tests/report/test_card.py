@@ -156,6 +156,11 @@ def test_the_card_shows_activation_memory_and_the_weights_at_fp32_and_int8(card_
         "| base | 4.0kB (1.00×) | 400B | 100B |",
         "| cheap | 6.0kB (1.50×) | 200B | 50B |",
     ]
+    # The recipe leaves batch_size out: the card names the schema's default, which the run
+    # used, not a vague "the recipe's batch size".
+    assert "one training step at batch 64 keeps" in table
+    card_context.meta["resolved"]["recipe"]["batch_size"] = 32
+    assert "one training step at batch 32 keeps" in render_card(a, card_context)
 
 
 def test_the_memory_table_adds_inference_memory_where_it_was_measured(card_context):

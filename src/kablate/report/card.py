@@ -130,7 +130,7 @@ def render_card(a: Analysis, ctx: CardContext, now: datetime | None = None) -> s
         "",
         *_recommendation(a, ctx),
         *variant_table(a, ctx.cost_label),
-        *memory_table(a, meta["resolved"].get("recipe", {}).get("batch_size")),
+        *memory_table(a, recipe_of(meta).batch_size),
         *latency_table(a),
         *test_table(a),
         *class_table(a),
