@@ -108,9 +108,9 @@ def memory_table(a: Analysis, batch_size: int) -> list[str]:
     lines = [
         "#### Memory",
         "",
-        f"*Activations* are the bytes one training step at batch {batch_size} keeps from the forward pass "
-        "for backward (what PyTorch's autograd saves, counted before training; × baseline in "
-        "brackets). "
+        f"*Activations* are the bytes one training step at batch {batch_size} keeps from the "
+        "forward pass for backward (what PyTorch's autograd saves, counted before training; × "
+        "baseline in brackets). "
         + (
             "*At inference* is the peak of activation bytes alive at once in one eval-mode "
             "forward pass at batch 1, the input included (measured with the latency, on the "
