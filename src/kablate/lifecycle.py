@@ -18,8 +18,10 @@ failed        FAIL, outcome ``error`` or ``duplicate``   it raised, or another t
                                                          was already live
 interrupted   FAIL, outcome ``interrupted``/``disk-full``  stopped by Ctrl-C, SIGTERM or a full
                                                          disk; its job was put back at once
-lost          FAIL, outcome ``worker-lost``              its worker died; the liveness check
-                                                         put its job back
+lost          FAIL, outcome ``worker-lost`` (journal     its worker died; the liveness check
+              file); FAIL with no outcome (PostgreSQL:   put its job back
+              optuna's stale-heartbeat check fails it
+              and cannot add one)
 retired       FAIL, outcome ``retired``                  racing withdrew it (trials/race.py)
 ============  =========================================  ======================================
 
