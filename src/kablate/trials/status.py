@@ -18,11 +18,11 @@ from datetime import datetime
 from optuna.trial import FrozenTrial, TrialState
 
 from kablate.errors import KablateError
-from kablate.lifecycle import RETIRED, is_finished
+from kablate.lifecycle import RETIRED, STOPPED, is_finished
 from kablate.trials.queue import trial_status
 from kablate.trials.results import StoredResults
 
-STATES = ("done", "running", "waiting", "failed", "diverged", RETIRED)
+STATES = ("done", "running", "waiting", "failed", "diverged", RETIRED, STOPPED)
 RECENT = 20  # finished trials that set the expected trial time
 
 
@@ -139,7 +139,8 @@ def format_status(status: SweepStatus) -> str:
     lines = [
         f"sweep {status.sweep}: {c['done']}/{status.n_trials} done, {c['running']} running, "
         f"{c['waiting']} waiting, {c['failed']} failed, {c['diverged']} diverged"
-        + (f", {c[RETIRED]} not run (variant retired by racing)" if c[RETIRED] else ""),
+        + (f", {c[RETIRED]} not run (variant retired by racing)" if c[RETIRED] else "")
+        + (f", {c[STOPPED]} stopped early (successive halving)" if c[STOPPED] else ""),
     ]
     if status.finished and status.throughput_per_hour:
         lines.append(
@@ -171,20 +172,25 @@ def format_status(status: SweepStatus) -> str:
         acc = accuracy_text(accuracy.get(entry["variant"]))
         lines.append(f"  {entry['variant']:<{width}}  {cell:<{cell_width}}{acc}".rstrip())
     lines.append("")
-    lines.append("  # done  ~ running  x failed or diverged  . waiting  - retired (racing)")
+    lines.append(
+        "  # done  ~ running  x failed or diverged  . waiting  - retired (racing)  "
+        "/ stopped early (halving)"
+    )
     lines += standing_lines(status)
     return "\n".join(lines)
 
 
 def progress_bar(entry: dict) -> str:
     """One character per trial of a variant: '#' done, '~' running, 'x' failed or diverged,
-    '.' waiting, '-' not run because racing retired the variant."""
+    '.' waiting, '-' not run because racing retired the variant, '/' stopped early by
+    successive halving."""
     return (
         "#" * entry["done"]
         + "~" * entry["running"]
         + "x" * (entry["failed"] + entry["diverged"])
         + "." * entry["waiting"]
         + "-" * entry[RETIRED]
+        + "/" * entry[STOPPED]
     )
 
 
