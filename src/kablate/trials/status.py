@@ -170,6 +170,8 @@ def format_status(status: SweepStatus) -> str:
     lines.append("")
     for entry, cell in zip(status.variants, cells, strict=True):
         acc = accuracy_text(accuracy.get(entry["variant"]))
+        if entry[STOPPED] and not acc:  # its early scores are not compared (analysis/halving.py)
+            acc = "  stopped early by successive halving: not compared"
         lines.append(f"  {entry['variant']:<{width}}  {cell:<{cell_width}}{acc}".rstrip())
     lines.append("")
     lines.append(
