@@ -17,6 +17,7 @@ from kablate.analysis.halving import (
     rung_epochs,
     stopped_variants,
 )
+from tests.analysis.test_tables import VAL, analyze, plan, rows
 
 
 def test_rungs_lie_at_first_epoch_times_factor_powers_before_the_last_epoch():
@@ -105,3 +106,18 @@ def test_a_stopped_variant_is_set_apart_with_its_last_score():
     )
     assert account.n_done == 3 and account.stopped["variant"].tolist() == ["b"]
     assert halving_account(None, trials, pd.DataFrame()) is None
+
+
+def test_a_variant_with_a_stopped_trial_is_never_recommended_even_when_it_leads():
+    leading = dict(VAL, v1=[0.99, 0.99, 0.99], v2=[0.93, 0.94, 0.95])
+    assert analyze(rows(leading), [], plan(), []).recommended == "cheap"  # fully trained
+    halved = rows(leading)
+    (cut,) = [r for r in halved if r["variant"] == "cheap" and r["seed"] == 2]
+    cut.update(status="stopped", val_acc=0.3, test_acc=None, score_epoch=1)
+    a = analyze(halved, [], plan(), [])
+    assert a.recommended == "base"
+    v = a.variants.set_index("variant")
+    assert math.isnan(v.loc["cheap", "val_acc_mean"]) and not v.loc["cheap", "recommended"]
+    assert (v.loc["cheap", "n_stopped"], v.loc["cheap", "stopped_epoch"]) == (1, 1)
+    assert v.loc["cheap", "stopped_val_acc"] == pytest.approx(0.3)
+    assert a.seeds is None  # the others are compared on all three seeds

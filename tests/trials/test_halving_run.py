@@ -15,48 +15,23 @@ from kablate.report import write_report
 from kablate.trials import RunOptions, open_results, run_sweep
 from kablate.trials.status import format_status, read_status
 from tests.conftest import write_sweep
+from tests.trials.test_race import RACE_SWEEP
 
-HALVING_SWEEP = """
-[sweep]
-name = "halved"
-seeds = [0]
-
-[data]
-source = "digits"
-train_size = 400
-val_size = 200
-test_size = 100
-
-[network]
-from = "configs/tiny-net.toml"
-
-[recipe]
-from = "configs/tiny-recipe.toml"
-epochs = 4
-
-[halving]
-enabled = true
-first_epoch = 1
-factor = 2  # compared after epochs 1 and 2
-
-[[plan]]
-name = "all-3"
-body = "3"
-
-[[plan]]
-name = "stem-5"
-stem = "5"
-
+# The racing sweep's data, network, recipe (4 epochs) and plans, with the blind plan, which stays
+# near chance (tests/trials/test_race.py), and one more plan; compared after epochs 1 and 2.
+HALVING_SWEEP = (
+    RACE_SWEEP.format(name="halved", racing="off", seeds="[0]")
+    + """
 [[plan]]
 name = "body-5"
 body = "5"
 
-[[plan]]
-name = "blind"  # every off-centre tap in the padding (tests/trials/test_race.py): near chance
-stem = "3d8"
-stage1 = "3d8"
-stage2 = "3d4"
+[halving]
+enabled = true
+first_epoch = 1
+factor = 2
 """
+)
 
 
 def rows(path):
