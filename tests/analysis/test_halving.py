@@ -33,11 +33,13 @@ def test_promotion_keeps_the_best_third_as_they_arrive():
     # it is at least the (n // η)-th best of the n values so far, and, while n < η, when it is
     # the best (Li et al. 2020, ASHA: the top 1/η of the rung; Optuna 5.0's
     # _is_trial_promotable_to_next_rung for the first arrivals).
-    arrivals = [0.5, 0.7, 0.6, 0.9, 0.4, 0.8]
-    # n=1: alone; n=2: 0.7 ≥ best 0.7; n=3: 0.6 < best 0.7; n=4: 0.9 best; n=5: 0.4 < 0.9;
-    # n=6: 6 // 3 = 2, the 2nd best of [0.9, 0.8, 0.7, 0.6, 0.5, 0.4] is 0.8, and 0.8 ≥ 0.8.
+    arrivals = [0.5, 0.4, 0.7, 0.6, 0.9, 0.8]
+    # n=1: alone; n=2 < η: 0.4 is not the best (0.5); n=3: 3 // 3 = 1, 0.7 is the best;
+    # n=4: 0.6 < best 0.7; n=5: 0.9 is the best; n=6: 6 // 3 = 2, the 2nd best of
+    # [0.9, 0.8, 0.7, 0.6, 0.5, 0.4] is 0.8, and 0.8 ≥ 0.8.
     kept = [promoted(v, arrivals[:i], 3) for i, v in enumerate(arrivals)]
-    assert kept == [True, True, False, True, False, True]
+    assert kept == [True, False, True, False, True, True]
+    assert promoted(0.7, [0.7], 3)  # a tie with the cut goes on (Optuna compares with >=)
     assert not promoted(math.nan, [], 3)  # a NaN score never goes on
 
 
