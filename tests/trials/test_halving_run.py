@@ -1,13 +1,17 @@
 """Successive halving end to end on digits (trials/halving.py): stopped trials reach
 trials.csv, `status` and the card as stopped, with their last score, and are never
-recommended; with two workers on the journal file."""
+recommended (two workers, journal file); a run whose worker is SIGKILLed resumes and decides
+each job's rung once (journal file and PostgreSQL)."""
 
 from __future__ import annotations
 
 import csv
 import math
+import os
+import signal
 
 import pytest
+from optuna.trial import TrialState
 from scipy import stats
 
 from kablate.lifecycle import STOPPED
@@ -16,6 +20,16 @@ from kablate.trials import RunOptions, open_results, run_sweep
 from kablate.trials.status import format_status, read_status
 from tests.conftest import write_sweep
 from tests.trials.test_race import RACE_SWEEP
+from tests.trials.test_resume import (  # noqa: F401 (long_sweep is a fixture)
+    JOBS,
+    kablate,
+    long_sweep,
+    run_args,
+    study_of,
+    wait_for_checkpointed_trial,
+)
+
+STOPPED_STATE = TrialState.PRUNED  # how storage holds a stopped trial (lifecycle.py)
 
 # The racing sweep's data, network, recipe (4 epochs) and plans, with the blind plan, which stays
 # near chance (tests/trials/test_race.py), and one more plan; compared after epochs 1 and 2.
@@ -84,3 +98,53 @@ def test_stopped_trials_are_listed_as_stopped_and_never_recommended(tmp_path):
             [early[r["variant"]] for r in done], [float(r["val_acc"]) for r in done]
         )[0]
         assert f"| 1 | {len(done)} | {rho:.2f} |" in card
+
+
+@pytest.fixture
+def long_halving_sweep(long_sweep):  # noqa: F811 (pytest passes the imported fixture)
+    """The resume tests' long sweep (2 plans × 2 seeds, 40 epochs), compared after epochs 10
+    and 20."""
+    text = long_sweep.read_text() + "\n[halving]\nenabled = true\nfirst_epoch = 10\nfactor = 2\n"
+    long_sweep.write_text(text)
+    return long_sweep
+
+
+@pytest.mark.slow
+def test_a_sigkilled_halving_run_resumes_deciding_each_rung_once(
+    long_halving_sweep, tmp_path, storage
+):
+    results = tmp_path / "results"
+    proc = kablate(
+        *run_args(long_halving_sweep, results), storage=storage, cwd=tmp_path, wait=False
+    )
+    key, pid = wait_for_checkpointed_trial(results, storage, proc)
+    os.kill(pid, signal.SIGKILL)
+    out, err = proc.communicate(timeout=240)
+    assert proc.returncode == 0, err
+    trials = study_of(results, storage).get_trials()
+    assert not [t for t in trials if t.state in (TrialState.RUNNING, TrialState.WAITING)]
+    ended = [t.user_attrs["job"] for t in trials if t.state in (TrialState.COMPLETE, STOPPED_STATE)]
+    assert len(ended) == len(set(ended)) == JOBS  # each job done or stopped, once
+    assert [t for t in trials if t.user_attrs.get("job") == key and t.state == TrialState.FAIL]
+    for job in set(ended):
+        for rung in (0, 1):  # one decision per job and rung, whoever trained it
+            mine = [t for t in trials if t.user_attrs.get("job") == job]
+            assert sum(f"halving-rung-{rung}" in t.user_attrs for t in mine) <= 1
+    for t in trials:
+        if t.state == STOPPED_STATE:  # stopped at a rung, after its decision said so
+            decisions = [t.user_attrs.get(f"halving-rung-{k}") for k in (0, 1)]
+            assert any(d and not d["kept"] for d in decisions + earlier(trials, t))
+    again = kablate(*run_args(long_halving_sweep, results), storage=storage, cwd=tmp_path)
+    assert again.returncode == 0, again.stderr
+    assert "nothing new to train" in again.stdout
+
+
+def earlier(trials, trial) -> list:
+    """The rung decisions that the job's other trials recorded."""
+    job = trial.user_attrs["job"]
+    return [
+        t.user_attrs.get(f"halving-rung-{k}")
+        for t in trials
+        if t.user_attrs.get("job") == job and t.number != trial.number
+        for k in (0, 1)
+    ]
