@@ -9,6 +9,7 @@ import csv
 import math
 import os
 import signal
+import time
 
 import pytest
 from optuna.trial import TrialState
@@ -26,7 +27,7 @@ from tests.trials.test_resume import (  # noqa: F401 (long_sweep is a fixture)
     long_sweep,
     run_args,
     study_of,
-    wait_for_checkpointed_trial,
+    wait_for_study,
 )
 
 STOPPED_STATE = TrialState.PRUNED  # how storage holds a stopped trial (lifecycle.py)
@@ -117,7 +118,7 @@ def test_a_sigkilled_halving_run_resumes_deciding_each_rung_once(
     proc = kablate(
         *run_args(long_halving_sweep, results), storage=storage, cwd=tmp_path, wait=False
     )
-    key, pid = wait_for_checkpointed_trial(results, storage, proc)
+    key, pid = wait_for_kept_trial(results, storage, proc)
     os.kill(pid, signal.SIGKILL)
     out, err = proc.communicate(timeout=240)
     assert proc.returncode == 0, err
@@ -125,7 +126,12 @@ def test_a_sigkilled_halving_run_resumes_deciding_each_rung_once(
     assert not [t for t in trials if t.state in (TrialState.RUNNING, TrialState.WAITING)]
     ended = [t.user_attrs["job"] for t in trials if t.state in (TrialState.COMPLETE, STOPPED_STATE)]
     assert len(ended) == len(set(ended)) == JOBS  # each job done or stopped, once
-    assert [t for t in trials if t.user_attrs.get("job") == key and t.state == TrialState.FAIL]
+    killed = [t for t in trials if t.user_attrs.get("job") == key]
+    assert [t for t in killed if t.state == TrialState.FAIL]  # lost, then resumed
+    # The killed trial went on at the first rung; its resumed trial, from a later checkpoint,
+    # does not decide that rung again.
+    assert killed[0].user_attrs["halving-rung-0"]["kept"]
+    assert "halving-rung-0" not in killed[-1].user_attrs
     for job in set(ended):
         for rung in (0, 1):  # one decision per job and rung, whoever trained it
             mine = [t for t in trials if t.user_attrs.get("job") == job]
@@ -137,6 +143,20 @@ def test_a_sigkilled_halving_run_resumes_deciding_each_rung_once(
     again = kablate(*run_args(long_halving_sweep, results), storage=storage, cwd=tmp_path)
     assert again.returncode == 0, again.stderr
     assert "nothing new to train" in again.stdout
+
+
+def wait_for_kept_trial(results, storage, proc) -> tuple[str, int]:
+    """(job key, worker pid) of a running trial that went on at the first rung (epoch 10)."""
+    deadline = time.time() + 120
+    study = wait_for_study(results, storage, proc, deadline)
+    while time.time() < deadline:
+        assert proc.poll() is None, proc.communicate()
+        for t in study.get_trials(deepcopy=False, states=(TrialState.RUNNING,)):
+            decided, worker = t.user_attrs.get("halving-rung-0"), t.user_attrs.get("worker")
+            if worker and decided and decided["kept"]:
+                return t.user_attrs["job"], int(worker.rsplit(":", 1)[1])
+        time.sleep(0.02)
+    raise AssertionError("no trial went on at the first rung in time")
 
 
 def earlier(trials, trial) -> list:
