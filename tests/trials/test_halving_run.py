@@ -9,7 +9,6 @@ import csv
 import math
 import os
 import signal
-import time
 
 import pytest
 from optuna.trial import TrialState
@@ -27,7 +26,7 @@ from tests.trials.test_resume import (  # noqa: F401 (long_sweep is a fixture)
     long_sweep,
     run_args,
     study_of,
-    wait_for_study,
+    wait_for_running_trial,
 )
 
 STOPPED_STATE = TrialState.PRUNED  # how storage holds a stopped trial (lifecycle.py)
@@ -147,16 +146,11 @@ def test_a_sigkilled_halving_run_resumes_deciding_each_rung_once(
 
 def wait_for_kept_trial(results, storage, proc) -> tuple[str, int]:
     """(job key, worker pid) of a running trial that went on at the first rung (epoch 10)."""
-    deadline = time.time() + 120
-    study = wait_for_study(results, storage, proc, deadline)
-    while time.time() < deadline:
-        assert proc.poll() is None, proc.communicate()
-        for t in study.get_trials(deepcopy=False, states=(TrialState.RUNNING,)):
-            decided, worker = t.user_attrs.get("halving-rung-0"), t.user_attrs.get("worker")
-            if worker and decided and decided["kept"]:
-                return t.user_attrs["job"], int(worker.rsplit(":", 1)[1])
-        time.sleep(0.02)
-    raise AssertionError("no trial went on at the first rung in time")
+
+    def ready(t) -> bool:
+        return bool((t.user_attrs.get("halving-rung-0") or {}).get("kept"))
+
+    return wait_for_running_trial(results, storage, proc, ready, "went on at the first rung")
 
 
 def earlier(trials, trial) -> list:

@@ -21,6 +21,7 @@ import pytest
 import torch
 from optuna.trial import TrialState
 
+from kablate.results.paths import CHECKPOINT
 from kablate.trials.store import open_study
 from tests.conftest import TINY_SWEEP, write_sweep
 
@@ -88,8 +89,8 @@ def wait_for_study(results: Path, storage: str | None, proc, deadline: float):
     raise AssertionError("the run did not create its study in time")
 
 
-def wait_for_checkpointed_trial(results: Path, storage: str | None, proc) -> tuple[str, int]:
-    """(job key, worker pid) of a running trial that has written an early epoch checkpoint.
+def wait_for_running_trial(results: Path, storage: str | None, proc, ready, what: str):
+    """(job key, worker pid) of a running trial for which ``ready(trial)`` holds.
 
     The study is opened once and then only read, so that one look takes milliseconds on
     either storage, far less than the second or so a trial spends before ``EARLY``.
@@ -99,11 +100,20 @@ def wait_for_checkpointed_trial(results: Path, storage: str | None, proc) -> tup
     while time.time() < deadline:
         assert proc.poll() is None, proc.communicate()
         for t in study.get_trials(deepcopy=False, states=(TrialState.RUNNING,)):
-            key, worker = t.user_attrs.get("job"), t.user_attrs.get("worker")
-            if worker and early_checkpoint(results / "tiny" / "trials" / key / "checkpoint.pt"):
-                return key, int(worker.rsplit(":", 1)[1])
+            worker = t.user_attrs.get("worker")
+            if worker and ready(t):
+                return t.user_attrs.get("job"), int(worker.rsplit(":", 1)[1])
         time.sleep(0.02)
-    raise AssertionError("no trial reached its first checkpoint in time")
+    raise AssertionError(f"no trial {what} in time")
+
+
+def wait_for_checkpointed_trial(results: Path, storage: str | None, proc) -> tuple[str, int]:
+    """(job key, worker pid) of a running trial that has written an early epoch checkpoint."""
+
+    def ready(t) -> bool:
+        return early_checkpoint(results / "tiny" / "trials" / t.user_attrs["job"] / CHECKPOINT)
+
+    return wait_for_running_trial(results, storage, proc, ready, "reached its first checkpoint")
 
 
 def completed(results: Path, storage: str | None) -> dict[str, tuple]:
