@@ -109,3 +109,16 @@ def test_no_judge_without_the_rule(tmp_path):
     study = open_study("halving", tmp_path, None)
     requeue(study, Job("va", "a", 0))
     assert judge_for(study, study.ask()) is None
+
+
+def test_optunas_pruners_refuse_our_two_objective_study(tmp_path):
+    # Why trials/halving.py has its own judge: Optuna 5.0 refuses report() and should_prune()
+    # on a multi-objective study, and ours maximises accuracy and minimises MACs.
+    study = open_study("halving", tmp_path, None)
+    assert len(study.directions) == 2
+    requeue(study, Job("va", "a", 0))
+    trial = study.ask()
+    with pytest.raises(NotImplementedError, match="multi-objective"):
+        trial.report(0.5, 1)
+    with pytest.raises(NotImplementedError, match="multi-objective"):
+        trial.should_prune()

@@ -64,9 +64,11 @@ def start_halving(study: optuna.Study, sweep) -> dict | None:
             study.set_user_attr(RULE_ATTR, None)
             log.info("halving is off: trials run to the end (stopped ones stay stopped)")
         return None
-    if stored:
-        return stored
     rule = halving_rule(sweep.halving, sweep.recipe.epochs)
+    if stored:
+        if stored != rule:
+            log.info("halving: this study keeps the rule it started with, %s", stored)
+        return stored
     study.set_user_attr(RULE_ATTR, rule)
     return rule
 
