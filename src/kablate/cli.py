@@ -18,6 +18,7 @@ from kablate import __version__
 from kablate.console import Steps, show_steps, step
 from kablate.errors import EXIT_STOPPED, DiskFullError, KablateError, UsageError, is_disk_full
 from kablate.spec.costs import COST_NAMES
+from kablate.spec.schema import PICK_RULES
 
 EPILOG_PLAN = """\b
 Examples:
@@ -219,6 +220,7 @@ def plan(
         catalogs_csv,
         catalogs_json,
     )
+    from kablate.costs.search_plan import search_lines
 
     several = len(sweeps) > 1
     planned = [(path, plan_one_sweep(path, latency, threads, several)) for path in sweeps]
@@ -229,6 +231,9 @@ def plan(
         render = {"table": catalog_table, "json": catalog_json, "csv": catalog_csv}[fmt]
         heads = [f"{path}\n" if several else "" for path, _ in catalogs]
         echo_document("\n\n".join(h + render(c) for h, (_, c) in zip(heads, catalogs, strict=True)))
+    for path, catalog in catalogs:  # a [search] space: its size and what the budget covers
+        for line in search_lines(catalog):
+            click.echo(f"{path}: {line}" if several else line, err=fmt != "table")
     if fmt != "table":  # the table lists them; keep JSON and CSV parseable on stdout
         for path, catalog in catalogs:
             where = f"{path}: " if several else ""
@@ -428,7 +433,7 @@ def status(results: Path, fmt: str, storage: str | None) -> None:
 )
 @click.option(
     "--rule",
-    type=click.Choice(["margin", "one-se"]),
+    type=click.Choice(PICK_RULES),
     default=None,
     help="How the plan is picked: the cheapest plan shown within the margin of the baseline "
     "(margin), or the one-standard-error rule (one-se). Default: the sweep's [pick] rule, "

@@ -17,7 +17,16 @@ from kablate.analysis.halving import (
     rung_epochs,
     stopped_variants,
 )
-from tests.analysis.test_tables import VAL, analyze, plan, rows
+from kablate.analysis.summary import analyze as analyze_rows
+from kablate.spec.schema import PickSpec
+from tests.analysis.synthetic import VAL, data_json, plan, rows, with_predictions
+
+
+def analyze(trial_rows, curves, plan_json, grids):
+    """The analysis of synthetic rows, with predictions that reproduce their accuracies."""
+    return analyze_rows(
+        with_predictions(trial_rows), curves, plan_json, grids, data_json(), PickSpec()
+    )
 
 
 def test_rungs_lie_at_first_epoch_times_factor_powers_before_the_last_epoch():

@@ -11,7 +11,7 @@ from statsmodels.stats.multitest import multipletests
 
 from kablate.analysis.decide import decide
 from kablate.analysis.evidence import Evidence
-from kablate.analysis.race import compare_pairs, retirements
+from kablate.analysis.race import FUTILE, compare_pairs, retirements
 
 
 def evidence_of(correct: dict[str, np.ndarray]) -> Evidence:
@@ -136,3 +136,60 @@ def test_never_retires_what_the_full_sweep_recommends(world):
     retired = retirements(ev.without_seed(1).without_seed(2), costs, "v0", 0.01, 1000)
     assert full.recommended not in retired
     assert "v0" not in retired
+
+
+def test_futility_hand_worked_round():
+    # 200 images, one seed, 1 pp margin, the baseline "base" (cost 10) gets 180 right.
+    # "twin" (cost 20) gets the same images right: d = 0 in every resample, p = 0, retired
+    #   for futility (it cannot gain the margin it would need to pay for itself).
+    # "edge" (cost 20) gets 2 more right (+1 pp): d ≥ 1 pp when the resample draws those two
+    #   images at least twice, Binomial(200, 2/200) ≥ 2, p = P ≈ 0.595 (scipy.stats.binom):
+    #   kept.
+    # "gain" (cost 30) gets 20 more right (+10 pp): kept. (It costs more than "edge", which it
+    #   would otherwise dominate.)
+    # "cheap" (cost 5) costs less than the baseline: never tested for futility.
+    ev = evidence_of(
+        {
+            "base": first_right(180),
+            "twin": first_right(180),
+            "edge": first_right(182),
+            "gain": first_right(200),
+            "cheap": first_right(180),
+        }
+    )
+    costs = {"base": 10, "twin": 20, "edge": 20, "gain": 30, "cheap": 5}
+    futile = {
+        d.name: d
+        for d in compare_pairs(ev, costs, "base", 0.01, 4000, futility=True)
+        if d.why == FUTILE
+    }
+    assert set(futile) == {"twin", "edge", "gain"}
+    assert all(d.by == "base" for d in futile.values())
+    assert futile["twin"].p_value == 0.0 and futile["twin"].upper == 0.0
+    assert futile["edge"].p_value == pytest.approx(stats.binom.sf(1, 200, 0.01), abs=0.03)
+    assert futile["gain"].p_value == pytest.approx(1.0)
+    out = retirements(ev, costs, "base", 0.01, 4000, futility=True)
+    assert set(out) == {"twin"} and out["twin"].why == FUTILE
+    # Without futility (the one-standard-error rule's race) nobody is retired here.
+    assert retirements(ev, costs, "base", 0.01, 4000) == {}
+
+
+@pytest.mark.parametrize("world", range(6))
+def test_futility_never_changes_the_margin_rules_pick(world):
+    # Known ground truth as above, with the baseline in the middle of the costs. Futility on
+    # seed 0 retires only plans costlier than the baseline; dropping them from the full
+    # evidence leaves the margin rule's recommendation and its qualifying set unchanged.
+    rng = np.random.default_rng(200 + world)
+    names = [f"v{i}" for i in range(7)]
+    truth = dict(zip(names, rng.uniform(0.8, 0.9, len(names)), strict=True))
+    costs = dict(zip(names, (5.0, 1.0, 2.0, 3.0, 8.0, 9.0, 12.0), strict=True))
+    shared = rng.random((3, 300))
+    correct = {n: (shared < t) ^ (rng.random((3, 300)) < 0.02) for n, t in truth.items()}
+    ev = evidence_of(correct)
+    retired = retirements(ev.without_seed(1).without_seed(2), costs, "v0", 0.01, 1000, True)
+    assert all(costs[n] > costs["v0"] for n, d in retired.items() if d.why == FUTILE)
+    kept = evidence_of({n: c for n, c in correct.items() if n not in retired})
+    full = decide(ev, costs, "v0", margin=0.01, n_resamples=1000, leave_one_out=False)
+    raced = decide(kept, costs, "v0", margin=0.01, n_resamples=1000, leave_one_out=False)
+    assert raced.recommended == full.recommended
+    assert set(raced.qualifying) == set(full.qualifying) - set(retired)

@@ -20,6 +20,7 @@ from kablate.analysis.stem import (
     radial_profile,
     summarize_stems,
 )
+from tests.analysis.synthetic import planted_bank
 
 N = PAD_SIZE  # the DFT size the report uses
 EDGES = (1 / 8, 1 / 4)  # cycles per pixel, as documented in sweeps/README.md (the stem section)
@@ -93,16 +94,6 @@ def test_a_gaussian_puts_its_energy_in_the_low_band_as_the_analytic_transform_sa
     expected = [inside[0], inside[1] - inside[0], 1 - inside[1]]
     np.testing.assert_allclose(shares, expected, atol=0.005)
     assert shares[0] > 0.85
-
-
-def planted_bank() -> np.ndarray:
-    """10 random 3×3 RGB filters, then 2 zero filters, 1 tiny one, a noisy copy of filter 0
-    and the negative of filter 1: 15 filters."""
-    rng = np.random.default_rng(7)
-    bank = list(rng.normal(size=(10, 3, 3, 3)))
-    bank += [np.zeros((3, 3, 3)), np.zeros((3, 3, 3)), 0.01 * bank[2]]
-    bank += [bank[0] + 0.05 * rng.normal(size=(3, 3, 3)), -bank[1]]
-    return np.stack(bank)
 
 
 def test_planted_dead_duplicate_and_opposite_filters_are_found():

@@ -9,7 +9,7 @@ import pytest
 
 from kablate.analysis.summary import analyze as analyze_rows
 from kablate.spec.schema import PickSpec
-from tests.analysis.synthetic import data_json, with_predictions
+from tests.analysis.synthetic import VAL, data_json, plan, rows, with_predictions
 
 
 def analyze(rows, curves, plan, grids, cost="macs"):
@@ -17,59 +17,6 @@ def analyze(rows, curves, plan, grids, cost="macs"):
     return analyze_rows(
         with_predictions(rows), curves, plan, grids, data_json(), PickSpec(cost=cost)
     )
-
-
-def plan(latency: bool = False) -> dict:
-    def v(i, name, params, macs, rf):
-        return {
-            "id": f"v{i}",
-            "name": name,
-            "plan": {"body": name},
-            "params": params,
-            "macs": macs,
-            "flops": 2 * macs,
-            "rf": rf,
-            "act_mem_bytes": 1000,
-            "latency_ms": (1.0 + i) if latency else None,
-            "axes": [],
-            "grid": None,
-        }
-
-    return {
-        "seeds": [0, 1, 2],
-        "baseline": "v0",
-        "variants": [
-            v(0, "base", 100, 1000, 9),
-            v(1, "cheap", 50, 400, 9),
-            v(2, "big", 300, 5000, 15),
-            v(3, "never", 10, 10, 5),
-        ],
-    }
-
-
-VAL = {"v0": [0.90, 0.91, 0.92], "v1": [0.89, 0.91, 0.90], "v2": [0.93, 0.94]}
-
-
-def rows(val: dict[str, list[float]] = VAL) -> list[dict]:
-    """A partial sweep by default: big's seed 2 is still running, never has not started."""
-    out = []
-    for seed in (0, 1, 2):
-        for vid, name in (("v0", "base"), ("v1", "cheap"), ("v2", "big"), ("v3", "never")):
-            accs = val.get(vid, [])
-            done = seed < len(accs)
-            out.append(
-                {
-                    "variant": name,
-                    "variant_id": vid,
-                    "seed": seed,
-                    "status": "done" if done else ("running" if vid == "v2" else "waiting"),
-                    "val_acc": accs[seed] if done else None,
-                    "test_acc": accs[seed] - 0.01 if done else None,
-                    "train_seconds": 1.0 if done else None,
-                    "samples_per_second": None,
-                }
-            )
-    return out
 
 
 def test_variant_statistics_match_scipy_and_missing_trials_are_counted():

@@ -34,9 +34,9 @@ from pathlib import Path
 from optuna.trial import TrialState
 
 from kablate.analysis.summary import analyze, pick_settings
+from kablate.results.folder import read_json
+from kablate.results.paths import DATA_FILE
 from kablate.trials import open_results
-from kablate.trials.meta import read_json
-from kablate.trials.results import DATA_FILE
 
 REPO = Path(__file__).resolve().parents[2]
 
@@ -122,7 +122,8 @@ def retired_lines(variants) -> list[str]:
     out = []
     for _, row in variants[variants["retired_after"].notna()].iterrows():
         out.append(
-            f"  {row['variant']}: after seed {row['retired_after']}, by {row['retired_by']} "
+            f"  {row['variant']}: after seed {row['retired_after']}, {row['retired_why']}, "
+            f"against {row['retired_by']} "
             f"(diff {100 * row['retired_diff']:+.2f} pp, upper bound "
             f"{100 * row['retired_bound']:+.2f} pp, p_holm {row['retired_p_holm']:.4f})"
         )
@@ -181,8 +182,9 @@ def compare(sweep: Path, race: dict, full: dict) -> None:
     costlier = table.index[table > table[theirs.baseline]]
     print(
         f"{len(costlier)} variants cost more {theirs.cost} than the baseline {theirs.baseline}: "
-        f"the margin rule never recommends them, but racing retires one only when it loses "
-        f"more than the margin to a variant that costs no more; they take "
+        f"the margin rule never recommends them, and racing retires one when it loses more "
+        f"than the margin to a variant that costs no more or (futility) is shown to gain less "
+        f"than the margin over the baseline; they take "
         f"{sum(sum(full['seconds'].get(v, [])) for v in costlier) / full['total']:.0%} of the "
         f"full sweep's training seconds"
     )

@@ -13,7 +13,7 @@ from click.testing import CliRunner
 from torch.utils.flop_counter import FlopCounterMode
 
 from kablate.cli import main
-from tests.costs.test_plan_output import VARIANT_FIELDS
+from tests.costs.recount import VARIANT_FIELDS
 
 
 def plan(*args: str):

@@ -6,8 +6,7 @@ from __future__ import annotations
 from kablate.analysis.summary import analyze
 from kablate.report.tables import latency_table
 from kablate.spec.schema import PickSpec
-from tests.analysis.synthetic import data_json, with_predictions
-from tests.analysis.test_tables import plan, rows
+from tests.analysis.synthetic import data_json, plan, rows, with_predictions
 
 
 def timed_plan(with_ort: bool) -> dict:

@@ -9,7 +9,7 @@ import pytest
 from kablate.analysis.erf import ErfMap, Geometry
 from kablate.analysis.summary import Analysis, analyze
 from kablate.report import plots
-from kablate.report.card import CardContext, render_card
+from kablate.report.card import render_card
 from kablate.report.compose import draw_plots
 from kablate.report.plot_style import PALETTE, rendering, style
 from kablate.report.plots import (
@@ -21,8 +21,7 @@ from kablate.report.plots import (
     plot_rf_vs_accuracy,
 )
 from kablate.spec.schema import PickSpec
-from tests.analysis.synthetic import data_json, with_predictions
-from tests.analysis.test_tables import plan, rows
+from tests.analysis.synthetic import data_json, plan, rows, with_predictions
 
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
 
@@ -215,33 +214,8 @@ def test_svg_is_deterministic(analysis, tmp_path):
     assert a[1].read_bytes() == b[1].read_bytes() and a[0].read_bytes() == b[0].read_bytes()
 
 
-def card_context(plots=("a.png",)) -> CardContext:
-    """A results folder's sweep.json and data.json, as the card reads them."""
-    meta = {
-        "name": "synthetic",
-        "source": "sweeps/synthetic.toml",
-        "fingerprint": "abc",
-        "seeds": [0, 1, 2],
-        "resolved": {"recipe": {"epochs": 4}},
-        "command": "kablate run x",
-        "environment": {"cpu": "a CPU", "cores": 2, "packages": {"torch": "2"}},
-        "workers": 1,
-        "threads": 2,
-        "storage": "study.journal",
-    }
-    data = {
-        "source": "digits",
-        "sizes": {"train": 10, "val": 5, "test": 5},
-        "in_shape": [1, 8, 8],
-        "n_classes": 10,
-        "test_pool": "held out",
-        "indices_sha1": {"train": "t", "val": "v", "test": "s"},
-    }
-    return CardContext(meta, data, "0", tuple(plots), "MACs")
-
-
-def test_card_of_a_partial_sweep_lists_the_missing_trials(analysis):
-    text = render_card(analysis, card_context())
+def test_card_of_a_partial_sweep_lists_the_missing_trials(analysis, card_context):
+    text = render_card(analysis, card_context)
     assert "#### Trials without a result" in text
     assert "Partial sweep: 4 of 12 trials have no result yet" in text
     assert "| never | 0 | waiting |" in text and "| big | 2 | running |" in text

@@ -243,12 +243,11 @@ def test_predictions_reproduce_the_accuracies_of_trials_csv(results):
 
 
 @pytest.mark.slow
-def test_without_a_finished_baseline_there_is_no_verdict_and_no_map(results):
+def test_without_a_finished_baseline_there_is_no_verdict_and_no_map(results, card_context):
     from kablate.analysis.summary import analyze
     from kablate.report.card import render_card
     from kablate.report.trained import erf_maps
     from kablate.results.folder import read_json
-    from tests.report.test_plots import card_context
 
     folder = open_results(results)
     rows, curves = folder.rows()
@@ -258,7 +257,7 @@ def test_without_a_finished_baseline_there_is_no_verdict_and_no_map(results):
     data = read_json(results / "data.json")
     analysis = analyze(rows, curves, folder.plan, folder.meta.get("grids", []), data)
     assert analysis.decision is None  # no baseline to compare with
-    assert "has not finished" in render_card(analysis, card_context())
+    assert "has not finished" in render_card(analysis, card_context)
     maps, note = erf_maps(folder, analysis, data)
     assert maps == [] and note == "there is no recommended plan yet to map"
 

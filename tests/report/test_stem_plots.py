@@ -11,7 +11,7 @@ from kablate.analysis.stem import BANDS, summarize_stems
 from kablate.report import stem_plots
 from kablate.report.plot_style import rendering
 from kablate.report.stem_plots import plot_stem_atlas, plot_stem_spectrum, tile_origin
-from tests.analysis.test_stem import planted_bank
+from tests.analysis.synthetic import planted_bank
 
 
 @pytest.fixture

@@ -19,11 +19,10 @@ from kablate.report import write_report
 from kablate.trials import RunOptions, open_results, run_sweep
 from kablate.trials.status import format_status, read_status
 from tests.conftest import write_sweep
-from tests.trials.test_race import RACE_SWEEP
-from tests.trials.test_resume import (  # noqa: F401 (long_sweep is a fixture)
+from tests.trials.runs import (
     JOBS,
+    RACE_SWEEP,
     kablate,
-    long_sweep,
     run_args,
     study_of,
     wait_for_running_trial,
@@ -101,7 +100,7 @@ def test_stopped_trials_are_listed_as_stopped_and_never_recommended(tmp_path):
 
 
 @pytest.fixture
-def long_halving_sweep(long_sweep):  # noqa: F811 (pytest passes the imported fixture)
+def long_halving_sweep(long_sweep):
     """The resume tests' long sweep (2 plans × 2 seeds, 40 epochs), compared after epochs 10
     and 20."""
     text = long_sweep.read_text() + "\n[halving]\nenabled = true\nfirst_epoch = 10\nfactor = 2\n"

@@ -2,9 +2,16 @@
 
 from __future__ import annotations
 
-import pytest
+import time
 
-from kablate.trials.liveness import HeartbeatLiveness, Liveness, LocalLiveness
+import pytest
+from optuna.trial import TrialState
+
+from kablate.lifecycle import WAITING
+from kablate.trials.jobs import Job
+from kablate.trials.liveness import HeartbeatLiveness, Liveness, LocalLiveness, liveness_for
+from kablate.trials.queue import claim_next, enqueue_missing, job_status, tagged_trials
+from kablate.trials.store import HEARTBEAT_ENV, lock_dir, open_study
 
 
 class FakeHeartbeatStorage:
@@ -71,3 +78,34 @@ def test_an_object_missing_a_member_is_not_a_liveness(tmp_path):
         def queue_lock(self): ...
 
     assert not isinstance(NoRecover(), Liveness)
+
+
+def abandon_one_of_two(study, liveness) -> tuple[int, int, object]:
+    """Claim two jobs; the first's worker then vanishes (its lock or its heartbeats stop), the
+    second's stays alive. The two trial numbers, and the live one's token."""
+    enqueue_missing(study, [Job("v0", "a", 0), Job("v1", "b", 0)])
+    gone, alive = claim_next(study, liveness), claim_next(study, liveness)
+    liveness.release(gone.token)  # what the kernel or a stopped beat does when a worker dies
+    return gone.trial.number, alive.trial.number, alive.token
+
+
+def test_the_job_of_a_vanished_worker_is_requeued_once_on_every_storage(
+    storage, tmp_path, monkeypatch
+):
+    # The contract of liveness.Liveness.recover, kept by LocalLiveness (journal file) and
+    # HeartbeatLiveness (PostgreSQL) alike.
+    monkeypatch.setenv(HEARTBEAT_ENV, "2")  # PostgreSQL: beats every 2 s, stale after 6 s
+    study = open_study("live", tmp_path, storage)
+    liveness = liveness_for(study, lock_dir(tmp_path, storage))
+    gone, alive, token = abandon_one_of_two(study, liveness)
+    if liveness.remote:
+        time.sleep(3 * liveness.interval + 2)  # past the grace period (store.py)
+    liveness.recover(study)
+    liveness.recover(study)  # a second check finds nothing left to do
+    trials = {t.number: t for t in study.get_trials()}
+    assert trials[gone].state == TrialState.FAIL
+    assert trials[alive].state == TrialState.RUNNING  # a live worker's trial is left alone
+    waiting = [t.user_attrs["job"] for t in trials.values() if t.state == TrialState.WAITING]
+    assert waiting == [trials[gone].user_attrs["job"]]  # requeued, and only once
+    assert job_status(tagged_trials(study)[waiting[0]])[0] == WAITING
+    liveness.release(token)

@@ -11,51 +11,21 @@ and the network sees one pixel at a time before the global pool. It costs the MA
 from __future__ import annotations
 
 import csv
+from types import SimpleNamespace
 
 import pytest
 
 from kablate.lifecycle import RETIRED
 from kablate.report import write_report
+from kablate.results.columns import RETIRED_COLUMNS
+from kablate.spec.schema import PickSpec
 from kablate.trials import RunOptions, open_results, run_sweep
 from kablate.trials.jobs import order_jobs
 from kablate.trials.queue import enqueue_missing, job_status, tagged_trials
-from kablate.trials.race import read_rounds
+from kablate.trials.race import race_rule, read_rounds
 from kablate.trials.store import JOURNAL, open_study
 from tests.conftest import write_sweep
-
-RACE_SWEEP = """
-[sweep]
-name = "{name}"
-seeds = {seeds}
-racing = "{racing}"
-
-[data]
-source = "digits"
-train_size = 400
-val_size = 200
-test_size = 100
-
-[network]
-from = "configs/tiny-net.toml"
-
-[recipe]
-from = "configs/tiny-recipe.toml"
-epochs = 4  # all-3 reaches about 60% on digits, far from the blind plan's chance level
-
-[[plan]]
-name = "all-3"
-body = "3"
-
-[[plan]]
-name = "stem-5"
-stem = "5"
-
-[[plan]]
-name = "blind"
-stem = "3d8"
-stage1 = "3d8"
-stage2 = "3d4"
-"""
+from tests.trials.runs import RACE_SWEEP
 
 
 def sweep_file(folder, name, racing, seeds="[0, 1]"):
@@ -79,8 +49,10 @@ def test_race_retires_the_blind_plan_and_decides_as_the_full_sweep(tmp_path):
     assert ours["blind"]["retired_after"] == "0"
     assert ours["blind"]["n_seeds"] == "1"
     assert ours["blind"]["retired_by"] in ("all-3", "stem-5")
+    assert ours["blind"]["retired_why"] == "dominated"
     assert float(ours["blind"]["retired_bound"]) < -0.01  # its upper bound lies below −margin
-    assert ours["all-3"]["retired_after"] == ""  # the baseline is never retired
+    # the baseline is never retired; a variant in the race has every retired_* cell empty
+    assert all(ours["all-3"][c] == "" for c in RETIRED_COLUMNS)
     assert not any(r["retired_after"] for r in theirs.values())
     pick = {name for name, r in ours.items() if r["recommended"] == "True"}
     assert pick == {name for name, r in theirs.items() if r["recommended"] == "True"}
@@ -142,3 +114,18 @@ def test_a_race_of_two_workers_on_postgresql_retires_what_it_retires_on_the_jour
     retired, counts = found["postgres"]
     assert "blind" in retired[0]  # decided after seed 0, by the workers on the server
     assert counts == {"done": 6 - len(retired[0]), RETIRED: len(retired[0])}
+
+
+@pytest.mark.parametrize(
+    ("cost", "raced_by"),
+    [("macs", "macs"), ("params", "params"), ("memory", "memory"), ("latency", "macs"),
+     ("ort_latency", "macs")],
+)  # fmt: skip
+def test_a_race_on_a_timed_cost_compares_by_macs(cost, raced_by):
+    # Runners sharing a study must agree on who costs no more, and a timing differs between
+    # machines and runs (CPU and ONNX Runtime latency alike): the race falls back to MACs.
+    sweep = SimpleNamespace(pick=PickSpec(cost=cost))
+    rule = race_rule(sweep, "v0")
+    assert rule["cost"] == raced_by and rule["baseline"] == "v0"
+    assert rule["futility"] is True
+    assert race_rule(SimpleNamespace(pick=PickSpec(rule="one-se")), "v0")["futility"] is False

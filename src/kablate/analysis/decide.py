@@ -38,8 +38,12 @@ from kablate.analysis.bootstrap import (
     zero_discordance_bound,
 )
 from kablate.analysis.evidence import Evidence
+from kablate.spec.costs import COSTS
+from kablate.spec.schema import PICK_RULES as RULES
+from kablate.spec.schema import PickSpec
 
-RULES = ("margin", "one-se")
+# The selection rules and their defaults have one home, the sweep file's [pick] table.
+DEFAULT_PICK = PickSpec()
 # The headline calls a pick unstable when the point rule, applied to the bootstrap resamples,
 # agrees with it in fewer than this share of them (documented in sweeps/README.md).
 STABLE_SHARE = 0.7
@@ -309,10 +313,10 @@ def decide(
     evidence: Evidence,
     costs: Mapping[str, float],
     baseline: str,
-    rule: str = "margin",
-    margin: float = 0.01,
-    within_se: float = 1.0,
-    cost: str = "macs",
+    rule: str = DEFAULT_PICK.rule,
+    margin: float = DEFAULT_PICK.margin / 100,  # a fraction here, percentage points in [pick]
+    within_se: float = DEFAULT_PICK.within_se,
+    cost: str = COSTS[DEFAULT_PICK.cost].column,
     n_resamples: int = N_RESAMPLES,
     leave_one_out: bool = True,
 ) -> Decision:

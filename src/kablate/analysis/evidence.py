@@ -13,6 +13,7 @@ import numpy as np
 import pandas as pd
 
 from kablate.errors import KablateError
+from kablate.lifecycle import DONE
 from kablate.results.evidence import decode_predictions
 
 
@@ -76,7 +77,7 @@ def gather_evidence(
         KablateError: a finished trial has no stored predictions (a results folder written
             before predictions were kept), or its predictions do not match the split's size.
     """
-    done = trials[trials["status"] == "done"]
+    done = trials[trials["status"] == DONE]
     if done.empty:
         return None
     if "labels" not in data:

@@ -8,6 +8,8 @@ from __future__ import annotations
 import pandas as pd
 from scipy import stats
 
+from kablate.lifecycle import DIVERGED, DONE
+
 # "Still learning": in most of its seeds the last epoch had the best validation accuracy, or
 # the mean training loss of the last WINDOW epochs is more than STILL_FALLING below that of the
 # WINDOW epochs before them while still above LOSS_FLOOR (thresholds of ours; below the floor
@@ -53,12 +55,12 @@ def variant_flags(
     flags: dict[str, list[str]] = {}
     for name, mine in trials.groupby("variant", sort=False):
         found = []
-        n_div = int((mine["status"] == "diverged").sum())
+        n_div = int((mine["status"] == DIVERGED).sum())
         if n_div:
             found.append(f"diverged in {n_div} of {len(mine)} seeds")
         if name in n_correct and at_chance(n_correct[name], n_images, n_seeds, n_classes):
             found.append(f"at chance level (1 in {n_classes})")
-        done = mine[mine["status"] == "done"]
+        done = mine[mine["status"] == DONE]
         learning = [
             still_learning(curves[(curves["variant"] == name) & (curves["seed"] == seed)])
             for seed in done["seed"]

@@ -34,10 +34,7 @@ import pandas as pd
 from scipy import stats
 
 from kablate.lifecycle import DONE, STOPPED
-
-# variants.csv: how many of a variant's trials were stopped early, the epoch of the latest stop
-# (1-based, as the card reads it) and the mean of those trials' last validation accuracy
-STOPPED_COLUMNS = ("n_stopped", "stopped_epoch", "stopped_val_acc")
+from kablate.results.columns import STOPPED_COLUMNS
 
 
 def rung_epochs(first_epoch: int, factor: int, epochs: int) -> list[int]:
@@ -124,9 +121,10 @@ def put_stopped(variants: pd.DataFrame, trials: pd.DataFrame) -> None:
         n.append(0 if mine is None else len(mine))
         epoch.append(None if mine is None else int(pd.to_numeric(mine["score_epoch"]).max()))
         acc.append(math.nan if mine is None else float(mine["val_acc"].mean()))
-    variants["n_stopped"] = n
-    variants["stopped_epoch"] = pd.array(epoch, dtype="Int64")
-    variants["stopped_val_acc"] = acc
+    n_col, epoch_col, acc_col = STOPPED_COLUMNS
+    variants[n_col] = n
+    variants[epoch_col] = pd.array(epoch, dtype="Int64")
+    variants[acc_col] = acc
 
 
 @dataclass

@@ -20,12 +20,22 @@ The rule, applied after every complete seed round to the variants still in the r
 - v is **retired** when some pair's adjusted p-value is below 0.05: it is shown to lose more
   than the margin to a variant that costs no more. Its dominator is the w with the smallest
   adjusted p-value (ties: the cheaper, then the name). The baseline is never retired.
+- **Futility** (only under the margin rule, which never recommends a plan that costs more
+  than the baseline): a variant v that costs more than the baseline b is also tested on
+  d = acc(v) − acc(b) for H0: d ≥ +margin ("v gains at least the margin"), p = the share of
+  resamples with d ≥ margin, in the same Holm family. v is retired for futility when that
+  adjusted p lies below 0.05: it is shown to gain less than the margin, the difference the
+  user said matters, for a higher cost. This is stopping a comparison early for futility, as
+  group-sequential trials do (Jennison & Turnbull 2000, *Group Sequential Methods with
+  Applications to Clinical Trials*, ch. 10; cited from memory).
 
 Why the final pick does not change: if w costs no more than v and is better by more than the
 margin, then w passes every test v passes (non-inferiority to the baseline, or being within a
 tolerance of the best) and costs no more, so neither the margin rule nor the one-standard-error
 rule (`decide`) would recommend v over w; a retired dominator is itself dominated by a cheaper,
-better one, so the chain ends at a variant still in the race.
+better one, so the chain ends at a variant still in the race. Futility retires only variants
+that cost more than the baseline, which the margin rule never recommends; the one-standard-
+error rule could (its reference is the best variant), so a race under it has no futility.
 
 Known biases, stated on the card: a retired variant has fewer seeds, so its interval is wider;
 after one seed the bootstrap has no seed level to resample, so the bound counts the images'
@@ -46,28 +56,25 @@ from kablate.analysis.bootstrap import N_RESAMPLES, resample_accuracies
 from kablate.analysis.decide import ALPHA, Accuracy, accuracies
 from kablate.analysis.evidence import Evidence, gather_evidence
 from kablate.lifecycle import RETIRED
+from kablate.results.columns import RETIRED_COLUMNS
 
-# variants.csv: the seed after which racing retired a variant, the variant that dominated it,
-# their difference and its one-sided 95% upper bound (fractions), and the Holm-adjusted p-value
-RETIRED_COLUMNS = {
-    "retired_after": "seed",
-    "retired_by": "by_name",
-    "retired_diff": "diff",
-    "retired_bound": "upper",
-    "retired_p_holm": "p_holm",
-}
+# Why a variant was retired: it loses more than the margin to a variant that costs no more, or
+# (futility) it costs more than the baseline and gains less than the margin over it.
+DOMINATED, FUTILE = "dominated", "futile"
 
 
 @dataclass(frozen=True)
 class Domination:
-    """One tested pair: is ``name`` worse than ``by`` (which costs no more) by the margin?"""
+    """One tested pair: is ``name`` worse than ``by`` (which costs no more) by the margin, or
+    (``why`` = FUTILE, ``by`` the cheaper baseline) better than it by less than the margin?"""
 
     name: str
     by: str
     diff: float  # acc(name) − acc(by) on the compared seeds and images, a fraction
     upper: float  # one-sided 95% upper bound of that difference (bootstrap percentile)
-    p_value: float  # one-sided, for H0: diff ≥ −margin
+    p_value: float  # one-sided, for H0: diff ≥ −margin (DOMINATED) or ≥ +margin (FUTILE)
     p_holm: float  # Holm-adjusted over every pair of the round
+    why: str = DOMINATED
 
     @property
     def retires(self) -> bool:
@@ -80,6 +87,7 @@ def compare_pairs(
     baseline: str,
     margin: float,
     n_resamples: int = N_RESAMPLES,
+    futility: bool = False,
 ) -> list[Domination]:
     """Every pair the rule tests (see the module docstring), with Holm-adjusted p-values.
 
@@ -87,6 +95,8 @@ def compare_pairs(
         evidence: the variants still in the race, on the seeds of the rounds so far.
         costs: each variant's cost; a variant whose cost is not finite is left out.
         margin: as a fraction (0.01 = 1 pp).
+        futility: also test each variant costlier than the baseline for a gain under the
+            margin (the margin rule's race; never under the one-standard-error rule).
     """
     names = [n for n in evidence.names if math.isfinite(costs.get(n, math.nan))]
     if len(names) < 2:
@@ -105,13 +115,19 @@ def compare_pairs(
             # The slack keeps a resample exactly at −margin (up to rounding) in H0's side.
             p = float(np.mean(d >= -margin - 1e-12))
             upper = float(np.quantile(d, 1 - ALPHA))
-            pairs.append((v, w, float(accuracy[i] - accuracy[j]), upper, p))
+            pairs.append((v, w, float(accuracy[i] - accuracy[j]), upper, p, DOMINATED))
+        if futility and baseline in names and costs[v] > costs[baseline]:
+            i, j = evidence.index(v), evidence.index(baseline)
+            d = boot[:, i] - boot[:, j]
+            p = float(np.mean(d >= margin - 1e-12))
+            upper = float(np.quantile(d, 1 - ALPHA))
+            pairs.append((v, baseline, float(accuracy[i] - accuracy[j]), upper, p, FUTILE))
     if not pairs:
         return []
-    adjusted = multipletests([p for *_, p in pairs], method="holm")[1]
+    adjusted = multipletests([pair[4] for pair in pairs], method="holm")[1]
     return [
-        Domination(v, w, diff, upper, p, float(q))
-        for (v, w, diff, upper, p), q in zip(pairs, adjusted, strict=True)
+        Domination(v, w, diff, upper, p, float(q), why)
+        for (v, w, diff, upper, p, why), q in zip(pairs, adjusted, strict=True)
     ]
 
 
@@ -121,11 +137,13 @@ def retirements(
     baseline: str,
     margin: float,
     n_resamples: int = N_RESAMPLES,
+    futility: bool = False,
 ) -> dict[str, Domination]:
     """The variants the round retires, each with the pair that retires it."""
     out: dict[str, Domination] = {}
+    tested = compare_pairs(evidence, costs, baseline, margin, n_resamples, futility)
     ranked = sorted(
-        (d for d in compare_pairs(evidence, costs, baseline, margin, n_resamples) if d.retires),
+        (d for d in tested if d.retires),
         key=lambda d: (d.p_holm, costs[d.by], d.by),
     )
     for found in ranked:
@@ -151,8 +169,15 @@ def put_retired(variants: pd.DataFrame, retired: pd.DataFrame) -> None:
     if len(retired):
         entries = {r["variant_id"]: r["retired"] for r in retired.to_dict("records")}
     for column, key in RETIRED_COLUMNS.items():
-        values = [entries[v][key] if v in entries else None for v in variants["variant_id"]]
-        kind = "Int64" if column == "retired_after" else object  # a seed: an integer or empty
+        # a race recorded before futility existed retired by domination only
+        default = DOMINATED if key == "why" else None
+        values = [
+            entries[v].get(key, default) if v in entries else None for v in variants["variant_id"]
+        ]
+        # a seed: an integer; names: text; figures: floats; each empty for a variant in the race
+        kind = {"retired_after": "Int64", "retired_why": "string", "retired_by": "string"}.get(
+            column, object
+        )
         variants[column] = pd.array(values, dtype=kind)
 
 

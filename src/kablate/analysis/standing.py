@@ -15,6 +15,7 @@ import math
 from dataclasses import dataclass, field
 
 from kablate.analysis.summary import Analysis, analyze
+from kablate.lifecycle import DONE
 from kablate.spec.schema import PickSpec
 
 COUNT_COLUMNS = ("n_seeds", "n_planned")
@@ -89,9 +90,9 @@ def leader_note(analysis: Analysis) -> str:
     pick, decision, base = analysis.pick, analysis.decision, analysis.baseline
     if decision is None:
         trials = analysis.trials
-        if not (trials["status"] == "done").any():
+        if not (trials["status"] == DONE).any():
             return "no leader yet: no trial has finished"
-        if not ((trials["variant"] == base) & (trials["status"] == "done")).any():
+        if not ((trials["variant"] == base) & (trials["status"] == DONE)).any():
             return (
                 f"no leader yet: the baseline {base} has no finished trial, and the {pick.rule} "
                 "rule compares every plan with it"

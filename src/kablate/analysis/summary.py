@@ -37,7 +37,7 @@ from kablate.analysis.tables import (
     variant_frame,
 )
 from kablate.errors import UsageError
-from kablate.lifecycle import FINISHED, SETTLED
+from kablate.lifecycle import DONE, FINISHED, SETTLED
 from kablate.plans.expand import cell_name, grid_cells
 from kablate.results.columns import CURVE_COLUMNS
 from kablate.spec.costs import COSTS
@@ -85,7 +85,7 @@ class Analysis:
         t = self.trials
         if self.seeds is None:
             return pd.Series(False, index=t.index)
-        return t["status"].eq("done") & ~t["seed"].astype(int).isin(self.seeds)
+        return t["status"].eq(DONE) & ~t["seed"].astype(int).isin(self.seeds)
 
     @property
     def missing(self) -> pd.DataFrame:

@@ -10,7 +10,7 @@ from kablate.analysis.pareto import pareto_front
 from kablate.analysis.stats import t_interval
 from kablate.costs.memory import weight_bytes
 from kablate.costs.plan_output import LATENCY_FIELDS, ORT_FIELDS
-from kablate.lifecycle import FINISHED, SETTLED
+from kablate.lifecycle import DIVERGED, DONE, FINISHED, SETTLED
 from kablate.plans.expand import plan_text
 from kablate.spec.costs import COSTS
 
@@ -59,7 +59,7 @@ def variant_frame(
     out = []
     for v in plan["variants"]:
         mine = trials[trials["variant_id"] == v["id"]]
-        done = mine[mine["status"] == "done"]
+        done = mine[mine["status"] == DONE]
         held = mine[mine["status"].isin(FINISHED)]
         if seeds is not None:
             done = done[done["seed"].astype(int).isin(seeds)]
@@ -75,7 +75,7 @@ def variant_frame(
                 "n_seeds": val.n,
                 "n_planned": len(plan["seeds"]),
                 "n_missing": int((~mine["status"].isin(SETTLED)).sum()),
-                "n_diverged": int((mine["status"] == "diverged").sum()),
+                "n_diverged": int((mine["status"] == DIVERGED).sum()),
                 "n_held_back": len(held),
                 "val_acc_mean": val.mean,
                 "val_acc_std": val.std,
@@ -129,7 +129,7 @@ def add_fronts(frame: pd.DataFrame) -> None:
     acc = sub["val_acc_mean"].tolist()
     costs = measured_costs(frame)
     for cost in COSTS:
-        col = f"front_{cost}"
+        col = COSTS[cost].front
         if cost not in costs:
             frame[col] = None
             continue

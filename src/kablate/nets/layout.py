@@ -3,16 +3,17 @@
 This list is the single source of truth. `kablate.nets.build` turns it into a torch module and
 `kablate.costs` counts parameters, MACs and receptive fields from it, so the two cannot drift.
 Norm layers are not listed on their own: a conv with ``norm=True`` is followed by the network's
-norm, whose parameters are counted with that conv.
+norm, whose parameters are counted with that conv. An even kernel's lopsided "same" padding is
+recorded in its layer's ``padding``; `kablate.costs.catalog.padding_warnings` words the warning.
 """
 
 from __future__ import annotations
 
 import dataclasses
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 from kablate.errors import PlanError
-from kablate.nets.padding import Pair, Quad, conv_out_size, get_padding, is_symmetric
+from kablate.nets.padding import Pair, Quad, conv_out_size, get_padding
 from kablate.plans.expand import Variant
 from kablate.plans.grammar import KernelSpec, stack_depth
 from kablate.plans.groups import list_slots, stage_names
@@ -24,6 +25,8 @@ from kablate.spec.schema import NetworkSpec
 # at lower resolutions, and stops a slip such as "255" on an 8×8 input from building a network
 # whose one training step takes minutes (our own bound, documented in sweeps/README.md).
 EXTENT_PER_SIDE = 4
+NO_PADDING: Quad = (0, 0, 0, 0)
+ONE: Pair = (1, 1)
 
 
 @dataclass(frozen=True)
@@ -43,6 +46,64 @@ class Layer:
     norm: bool = False  # followed by the network's norm layer
     act: bool = False  # followed by the network's activation
     bias: bool = False
+
+    # Named factories: every builder makes a layer through the one for its kind, which fixes
+    # that kind's other fields (a pool's stride is its window; the head's fc has a bias ...).
+    @classmethod
+    def conv(
+        cls,
+        name: str,
+        *,
+        in_ch: int,
+        out_ch: int,
+        kernel: Pair,
+        stride: Pair,
+        padding: Quad,
+        dilation: Pair,
+        groups: int,
+        in_hw: Pair,
+        out_hw: Pair,
+        norm: bool,
+    ) -> Layer:
+        """A conv followed by the activation; a bias only where no norm follows it."""
+        geometry = (kernel, stride, padding, dilation, groups)
+        return cls(
+            name,
+            "conv",
+            in_ch,
+            out_ch,
+            *geometry,
+            in_hw,
+            out_hw,
+            norm=norm,
+            act=True,
+            bias=not norm,
+        )
+
+    @classmethod
+    def pool(cls, name: str, *, op: str, ch: int, window: Pair, in_hw: Pair, out_hw: Pair) -> Layer:
+        """A ``max`` or ``avg`` pool, unpadded, whose stride is its window."""
+        return cls._window(name, "pool", (ch, ch), window, (in_hw, out_hw), op=op)
+
+    @classmethod
+    def global_pool(cls, name: str, *, ch: int, hw: Pair) -> Layer:
+        """The average over the whole ``hw`` map, down to 1×1."""
+        return cls._window(name, "global_pool", (ch, ch), hw, (hw, ONE), op="avg")
+
+    @classmethod
+    def linear(cls, name: str, *, in_ch: int, out_ch: int) -> Layer:
+        """A fully connected layer with a bias, on a 1×1 map."""
+        return cls._window(name, "linear", (in_ch, out_ch), ONE, (ONE, ONE), bias=True)
+
+    @classmethod
+    def _window(
+        cls, name: str, kind: str, channels: Pair, window: Pair, hws: tuple[Pair, Pair], **flags
+    ) -> Layer:
+        """A layer that slides ``window`` by itself, unpadded and undilated, in one group."""
+        (in_ch, out_ch), (in_hw, out_hw) = channels, hws
+        return cls(
+            name, kind, in_ch, out_ch, window, window, NO_PADDING, ONE, 1, in_hw, out_hw, **flags
+        )
 
 
 @dataclass(frozen=True)
@@ -64,7 +125,6 @@ class Layout:
     norm_groups: int
     act: str
     dropout: float
-    warnings: tuple[str, ...] = field(default=(), compare=False)
 
     @property
     def layers(self) -> tuple[Layer, ...]:
@@ -86,7 +146,6 @@ class _Cursor:
     def __init__(self, variant: str, network: NetworkSpec, in_shape: tuple[int, int, int]):
         self.variant, self.network = variant, network
         self.ch, self.hw = in_shape[0], (in_shape[1], in_shape[2])
-        self.warnings: list[str] = []
 
     def conv(
         self,
@@ -116,84 +175,31 @@ class _Cursor:
                     f"{self.hw[axis]} − 1 = {2 * self.hw[axis] - 1} its taps only ever "
                     "multiply padding, and the cost still grows with k²"
                 )
-        if not is_symmetric(padding):
-            self.warnings.append(
-                f"variant {self.variant}: layer {name}: the even {kernel[0]}×{kernel[1]} kernel "
-                f"is padded asymmetrically {padding} (top, bottom, left, right) under same "
-                "padding; its feature map shifts by half a pixel"
-            )
-        has_norm = self.network.norm != "none"
         return self._emit(
-            Layer(
+            Layer.conv(
                 name,
-                "conv",
-                self.ch,
-                out_ch,
-                kernel,
-                stride,
-                padding,
-                dilation,
-                groups,
-                self.hw,
-                self._out(name, kernel, stride, padding, dilation),
-                norm=has_norm,
-                act=True,
-                bias=not has_norm,
+                in_ch=self.ch,
+                out_ch=out_ch,
+                kernel=kernel,
+                stride=stride,
+                padding=padding,
+                dilation=dilation,
+                groups=groups,
+                in_hw=self.hw,
+                out_hw=self._out(name, kernel, stride, padding, dilation),
+                norm=self.network.norm != "none",
             )
         )
 
     def pool(self, name: str, op: str) -> Layer:
-        out = self._out(name, (2, 2), (2, 2), (0, 0, 0, 0), (1, 1))
+        out = self._out(name, (2, 2), (2, 2), NO_PADDING, ONE)
         return self._emit(
-            Layer(
-                name,
-                "pool",
-                self.ch,
-                self.ch,
-                (2, 2),
-                (2, 2),
-                (0, 0, 0, 0),
-                (1, 1),
-                1,
-                self.hw,
-                out,
-                op=op,
-            )
+            Layer.pool(name, op=op, ch=self.ch, window=(2, 2), in_hw=self.hw, out_hw=out)
         )
 
     def head(self, n_classes: int) -> tuple[Layer, Layer]:
-        pool = self._emit(
-            Layer(
-                "head.pool",
-                "global_pool",
-                self.ch,
-                self.ch,
-                self.hw,
-                self.hw,
-                (0, 0, 0, 0),
-                (1, 1),
-                1,
-                self.hw,
-                (1, 1),
-                op="avg",
-            )
-        )
-        fc = self._emit(
-            Layer(
-                "head.fc",
-                "linear",
-                self.ch,
-                n_classes,
-                (1, 1),
-                (1, 1),
-                (0, 0, 0, 0),
-                (1, 1),
-                1,
-                (1, 1),
-                (1, 1),
-                bias=True,
-            )
-        )
+        pool = self._emit(Layer.global_pool("head.pool", ch=self.ch, hw=self.hw))
+        fc = self._emit(Layer.linear("head.fc", in_ch=self.ch, out_ch=n_classes))
         return pool, fc
 
     def _out(self, name: str, kernel: Pair, stride: Pair, padding: Quad, dilation: Pair) -> Pair:
@@ -291,5 +297,4 @@ def layout_network(
         norm_groups=network.norm_groups,
         act=network.act,
         dropout=network.dropout,
-        warnings=tuple(cur.warnings),
     )

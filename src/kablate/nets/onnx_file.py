@@ -16,7 +16,6 @@ from __future__ import annotations
 import importlib.util
 import io
 import warnings
-from pathlib import Path
 
 import numpy as np
 import torch
@@ -57,16 +56,6 @@ def export_onnx(model: torch.nn.Module, in_shape: tuple[int, int, int]) -> bytes
     finally:
         model.train(was_training)
     return buffer.getvalue()
-
-
-def write_onnx(model: torch.nn.Module, in_shape: tuple[int, int, int], path: Path) -> Path:
-    """Export ``model`` (`export_onnx`) into ``path``, written whole or not at all."""
-    data = export_onnx(model, in_shape)
-    tmp = path.with_suffix(path.suffix + ".tmp")
-    path.parent.mkdir(parents=True, exist_ok=True)
-    tmp.write_bytes(data)
-    tmp.replace(path)
-    return path
 
 
 def onnx_session(model_bytes: bytes, threads: int):

@@ -19,6 +19,7 @@ from typing import TYPE_CHECKING
 from kablate.errors import SweepError, did_you_mean
 from kablate.plans.grammar import KernelSpec
 from kablate.plans.groups import GroupError, resolve_kernels
+from kablate.plans.space import start_plans
 from kablate.spec.schema import PlanSpec, SweepSpec
 
 if TYPE_CHECKING:  # nets imports plans: the sites of a user's model are only passed through
@@ -108,6 +109,9 @@ def expand_plans(sweep: SweepSpec, sites: Sequence[ConvSite] | None = None) -> l
         for cell in grid_cells(grid):
             plan = PlanSpec(name=cell_name(cell), kernels=cell, line=f"grid[{g}]")
             candidates.append((plan, tuple(cell.items()), g))
+    if sweep.search is not None:  # a searched space: only the plans its search starts from
+        for start in start_plans(sweep.search.choices):
+            candidates.append((PlanSpec(cell_name(start), start, "search.choices"), (), -1))
 
     by_key: dict[str, Variant] = {}
     names: dict[str, str] = {}
@@ -159,16 +163,25 @@ def add_unchanged(
 
 
 def check_grid_axes(sweep: SweepSpec, resolve: Resolver | None = None) -> None:
-    """Check every grid axis's group name and kernel specs once, before any cell is built, so
-    a typo in a large grid is reported at once rather than after building its cells."""
+    """Check every grid axis's (and the ``[search]`` space's) group name and kernel specs once,
+    before any cell is built, so a typo in a large grid is reported at once rather than after
+    building its cells."""
     resolve = resolve or plan_resolver(sweep)
     for g, grid in enumerate(sweep.grids):
-        for group, specs in grid.items():
-            for spec in specs:
-                try:
-                    resolve({group: spec})
-                except GroupError as exc:
-                    raise SweepError(sweep.source, f"grid[{g}].{exc.group}", str(exc)) from None
+        check_axes(sweep, grid, f"grid[{g}]", resolve)
+    if sweep.search is not None:
+        check_axes(sweep, sweep.search.choices, "search.choices", resolve)
+
+
+def check_axes(
+    sweep: SweepSpec, axes: dict[str, tuple[str, ...]], where: str, resolve: Resolver
+) -> None:
+    for group, specs in axes.items():
+        for spec in specs:
+            try:
+                resolve({group: spec})
+            except GroupError as exc:
+                raise SweepError(sweep.source, f"{where}.{exc.group}", str(exc)) from None
 
 
 def with_alias(variant: Variant, alias: str) -> Variant:

@@ -14,7 +14,7 @@ from datetime import UTC, datetime
 
 from kablate.analysis.summary import Analysis
 from kablate.costs.plan_output import human
-from kablate.lifecycle import RETIRED, STOPPED
+from kablate.lifecycle import DIVERGED, DONE, RETIRED, STOPPED
 from kablate.plans.expand import read_plan_text
 from kablate.plans.grammar import KernelSpecError, parse_kernel
 from kablate.report.halving import halving_section
@@ -35,8 +35,9 @@ from kablate.report.verdict import (
     pct,
     rule_sentence,
 )
+from kablate.spec.costs import COSTS
 from kablate.spec.fields import Where, read_table
-from kablate.spec.schema import RecipeSpec
+from kablate.spec.schema import NetworkSpec, RecipeSpec
 
 STAMP_PREFIX = "Generated "
 CAUTION = (
@@ -51,21 +52,12 @@ CAUTION = (
     "that apply to that use."
 )
 PLOT_CAPTIONS = {
-    "accuracy_vs_params": "Validation accuracy (95% bootstrap interval) against parameters; the "
-    "band runs from the baseline's accuracy down by the margin; hollow markers cannot be told "
-    "apart from the baseline",
-    "accuracy_vs_macs": "Validation accuracy (95% bootstrap interval) against MACs; the band "
-    "runs from the baseline's accuracy down by the margin; hollow markers cannot be told apart "
-    "from the baseline",
-    "accuracy_vs_latency": "Validation accuracy (95% bootstrap interval) against CPU latency; "
-    "the band runs from the baseline's accuracy down by the margin; hollow markers cannot be "
-    "told apart from the baseline",
-    "accuracy_vs_ort_latency": "Validation accuracy (95% bootstrap interval) against ONNX "
-    "Runtime latency on the CPU; the band runs from the baseline's accuracy down by the margin; "
-    "hollow markers cannot be told apart from the baseline",
-    "accuracy_vs_memory": "Validation accuracy (95% bootstrap interval) against the activation "
-    "memory of a training step; the band runs from the baseline's accuracy down by the margin; "
-    "hollow markers cannot be told apart from the baseline",
+    **{
+        cost.plot: f"Validation accuracy (95% bootstrap interval) against {cost.prose}; the band "
+        "runs from the baseline's accuracy down by the margin; hollow markers cannot be told "
+        "apart from the baseline"
+        for cost in COSTS.values()
+    },
     "rf_vs_accuracy": "Validation accuracy (95% bootstrap interval) against the theoretical "
     "receptive field; hollow markers cannot be told apart from the baseline",
     "learning_curves": "Validation accuracy per epoch (mean over seeds; band: min–max)",
@@ -105,11 +97,16 @@ def ci_prose(row, metric: str = "val_acc") -> str:
     return ci(row[f"{metric}_ci_low"], row[f"{metric}_ci_high"])
 
 
+def resolved_table(meta: dict, cls: type, key: str):
+    """Table ``key`` of the sweep as it ran, as a ``cls``, defaults filled in: the resolved TOML
+    holds only what the file wrote, and the card never restates the schema's defaults."""
+    raw = meta["resolved"].get(key, {})
+    return read_table(cls, raw, Where(meta.get("source", "sweep.json"), key))
+
+
 def recipe_of(meta: dict) -> RecipeSpec:
-    """The recipe the sweep ran, defaults filled in (the resolved TOML holds only what the
-    file wrote)."""
-    raw = meta["resolved"].get("recipe", {})
-    return read_table(RecipeSpec, raw, Where(meta.get("source", "sweep.json"), "recipe"))
+    """The recipe the sweep ran, defaults filled in."""
+    return resolved_table(meta, RecipeSpec, "recipe")
 
 
 def scored_weights(recipe: RecipeSpec) -> str:
@@ -134,7 +131,7 @@ def render_card(a: Analysis, ctx: CardContext, now: datetime | None = None) -> s
         "",
         *_recommendation(a, ctx),
         *variant_table(a, ctx.cost_label),
-        *memory_table(a, meta["resolved"].get("recipe", {}).get("batch_size")),
+        *memory_table(a, recipe_of(meta).batch_size),
         *latency_table(a),
         *test_table(a),
         *class_table(a),
@@ -163,11 +160,11 @@ def _sets_stem_stride(plans) -> bool:
         return False
 
 
-def _network_line(resolved: dict, n_variants: int, strided: bool = False) -> str:
+def _network_line(meta: dict, n_variants: int, strided: bool = False) -> str:
     """What the plans rewrite: kablate's own compact CNN, or the user's model; ``strided``:
     some plan also sets the stem's (or the first conv's) stride."""
     differ = "kernel sizes and the stem's stride" if strided else "kernel sizes"
-    model = resolved.get("model")
+    model = meta["resolved"].get("model")
     if model is not None:
         arguments = ", ".join(f"{k} = {v!r}" for k, v in model.get("arguments", {}).items())
         return (
@@ -180,13 +177,13 @@ def _network_line(resolved: dict, n_variants: int, strided: bool = False) -> str
             )
             + "; see `kablate plan` for each rewrite and its initialisation)."
         )
-    network = resolved.get("network", {})
-    stages = network.get("stages", [])
+    network: NetworkSpec = resolved_table(meta, NetworkSpec, "network")
+    stages = network.stages
     return (
-        f"- A compact CNN (stem of {network.get('stem', {}).get('out_ch', 16)} channels, "
+        f"- A compact CNN (stem of {network.stem.out_ch} channels, "
         f"{len(stages)} stages of "
-        f"{', '.join(str(s.get('out_ch')) for s in stages) or 'no'} channels, "
-        f"{network.get('norm', 'batch')} norm, {network.get('act', 'relu')}; a global average "
+        f"{', '.join(str(s.out_ch) for s in stages) or 'no'} channels, "
+        f"{network.norm} norm, {network.act}; a global average "
         "pool and a linear head), in "
         f"{n_variants} kernel plans that differ only in their {differ}."
     )
@@ -198,7 +195,7 @@ def _details(a: Analysis, ctx: CardContext) -> list[str]:
     out = [
         "### Model details",
         "",
-        _network_line(meta["resolved"], len(a.variants), _sets_stem_stride(a.variants["plan"])),
+        _network_line(meta, len(a.variants), _sets_stem_stride(a.variants["plan"])),
         f"- Sweep `{meta['name']}` from `{meta['source']}`, definition fingerprint "
         f"`{meta['fingerprint']}` (a hash of the resolved network or model, recipe and data "
         "settings; see Reproducing for the whole sweep's).",
@@ -348,13 +345,13 @@ def _partial(a: Analysis) -> list[str]:
     to compare every variant on the same seeds."""
     t, held = a.trials, a.held_back
     # racing and successive halving have their own sections
-    waiting = ~t["status"].isin(("done", RETIRED, STOPPED))
+    waiting = ~t["status"].isin((DONE, RETIRED, STOPPED))
     left_out = t.loc[waiting | held, ["variant", "seed", "status"]].copy()
     if not len(left_out):
         return []
     left_out.loc[held[held].index, "status"] = "done, held back"
     n_missing = len(a.missing)
-    n_diverged = int((left_out["status"] == "diverged").sum())
+    n_diverged = int((left_out["status"] == DIVERGED).sum())
     said = []
     if n_missing:
         said.append(

@@ -8,8 +8,7 @@ from pathlib import Path
 import numpy as np
 
 from kablate import __version__
-from kablate.analysis.halving import STOPPED_COLUMNS, halving_account
-from kablate.analysis.race import RETIRED_COLUMNS
+from kablate.analysis.halving import halving_account
 from kablate.analysis.summary import Analysis, analyze, pick_settings
 from kablate.console import step
 from kablate.errors import KablateError
@@ -25,7 +24,7 @@ from kablate.report.plots import (
 )
 from kablate.report.stem_card import STEM_FILTERS, STEM_SEEDS_TABLE, STEM_TABLE
 from kablate.report.stem_plots import plot_stem_atlas, plot_stem_spectrum
-from kablate.results.columns import TRIAL_COLUMNS
+from kablate.results.columns import TRIAL_COLUMNS, VARIANT_COLUMNS
 from kablate.results.folder import ResultsFolder
 from kablate.results.paths import CARD_FILE, REPORT_DIR, TRIALS_JSON, VARIANTS_FILE, VARIANTS_JSON
 from kablate.results.redact import scrub
@@ -33,59 +32,6 @@ from kablate.results.tables import write_predictions, write_trial_tables
 from kablate.results.write import writable_folder, write_csv, write_json, write_text
 from kablate.spec.costs import COSTS
 from kablate.spec.schema import PickSpec
-
-VARIANT_COLUMNS = (
-    "variant",
-    "variant_id",
-    "n_seeds",
-    "n_planned",
-    "n_missing",
-    "n_diverged",
-    "n_held_back",
-    "val_acc_mean",
-    "val_acc_std",
-    "val_acc_se",
-    "val_acc_ci_low",
-    "val_acc_ci_high",
-    "test_acc_n",
-    "test_acc_mean",
-    "test_acc_std",
-    "test_acc_ci_low",
-    "test_acc_ci_high",
-    "params",
-    "macs",
-    "flops",
-    "rf",
-    "act_mem_bytes",
-    "infer_mem_bytes",
-    "weight_bytes_fp32",
-    "weight_bytes_int8",
-    "latency_ms",
-    "ort_latency_ms",
-    "train_seconds_mean",
-    "n_correct",
-    "n_scored",
-    "diff",
-    "diff_ci_low",
-    "diff_ci_high",
-    "diff_lower_bound",
-    "p_value",
-    "p_holm",
-    "noninferior",
-    "cost_ratio",
-    "pick_share",
-    "flags",
-    "front_macs",
-    "front_params",
-    "front_latency",
-    "front_memory",
-    "front_ort_latency",
-    "front_all",
-    "recommended",
-    *RETIRED_COLUMNS,
-    *STOPPED_COLUMNS,
-    "plan",
-)
 
 
 def subtitle(meta: dict, data: dict) -> str:
@@ -125,7 +71,7 @@ def draw_plots(analysis: Analysis, out: Path, sub: str) -> list[Path]:
         return plots
     with rendering():
         for cost in COSTS.values():  # a cost that was not measured has no front
-            if analysis.variants[f"front_{cost.name}"].notna().all():
+            if analysis.variants[cost.front].notna().all():
                 plots += plot_accuracy_vs_cost(analysis, cost.column, cost.axis, out, sub)
         plots += plot_rf_vs_accuracy(analysis, out, sub)
         if len(analysis.curves):

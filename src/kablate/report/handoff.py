@@ -19,7 +19,7 @@ from kablate.lifecycle import JobKey
 from kablate.nets.handoff import HANDOFF_DIR, handoff_dict
 from kablate.results.folder import ResultsFolder
 from kablate.results.paths import VARIANTS_JSON, checkpoint_path
-from kablate.results.write import write_json
+from kablate.results.write import atomic_write, write_json
 
 
 def recommended_variant(folder: ResultsFolder) -> str:
@@ -75,7 +75,7 @@ def write_onnx_handoff(
     import torch
 
     from kablate.nets.build import build_network
-    from kablate.nets.onnx_file import onnx_missing, write_onnx
+    from kablate.nets.onnx_file import export_onnx, onnx_missing
     from kablate.results.checkpoint import scored_states
 
     missing = onnx_missing()
@@ -96,7 +96,9 @@ def write_onnx_handoff(
         model.load_state_dict(states[seed])
         weights = f"the weights trial {JobKey(item.variant.id, seed)} was scored with"
     path = out or folder.path / HANDOFF_DIR / f"{item.name}.onnx"
-    return write_onnx(model, catalog.in_shape, path), weights
+    data = export_onnx(model, catalog.in_shape)
+    atomic_write(path, lambda fh: fh.write(data))  # whole or not at all
+    return path, weights
 
 
 def find_variant(folder: ResultsFolder, variant: str | None):

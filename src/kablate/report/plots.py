@@ -191,7 +191,7 @@ def plot_accuracy_vs_cost(
     ax.set_xlim(min(lo, v["cost_drawn"].min() / 1.2), max(hi, v["cost_drawn"].max() * 1.2))
     _percent_axis(ax, "validation accuracy (95% bootstrap CI)")
     legend_below(fig, ax)
-    return save_figure(fig, out, f"accuracy_vs_{cost_of_column(cost).name}")
+    return save_figure(fig, out, cost_of_column(cost).plot)
 
 
 def plot_rf_vs_accuracy(analysis: Analysis, out: Path, subtitle: str) -> list[Path]:

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import math
 
+from kablate.analysis.race import FUTILE
 from kablate.analysis.summary import Analysis
 from kablate.report.tables import ci
 from kablate.report.verdict import pp
@@ -34,6 +35,7 @@ def race_section(a: Analysis) -> list[str]:
         "above: a variant that costs no more and is better by more than the margin would be "
         "picked before them by the rule.",
         "",
+        *futility_words(a, margin),
         "Rounds decided: "
         + "; ".join(
             f"after seed {seed}, {len(r['compared'])} variants compared, "
@@ -49,14 +51,19 @@ def race_section(a: Analysis) -> list[str]:
     retired = v[v["retired_after"].notna()] if "retired_after" in v else v.iloc[0:0]
     if len(retired):
         out += [
-            "| variant | retired after seed | seeds | val acc (95% CI) | dominated by | "
+            "| variant | retired after seed | seeds | val acc (95% CI) | why | compared with | "
             "difference | upper 95% bound | Holm p |",
-            "|---|---:|---:|---|---|---:|---:|---:|",
+            "|---|---:|---:|---|---|---|---:|---:|---:|",
         ]
         for r in retired.itertuples():
+            why = (
+                f"gains < {margin:g} pp, costs more"
+                if r.retired_why == FUTILE
+                else f"loses > {margin:g} pp"
+            )
             out.append(
                 f"| {r.variant} | {int(r.retired_after)} | {int(r.n_seeds)} | "
-                f"{ci(r.val_acc_ci_low, r.val_acc_ci_high)} | {r.retired_by} | "
+                f"{ci(r.val_acc_ci_low, r.val_acc_ci_high)} | {why} | {r.retired_by} | "
                 f"{pp(r.retired_diff)} | {pp(r.retired_bound)} | {p_text(r.retired_p_holm)} |"
             )
         out.append("")
@@ -67,6 +74,34 @@ def race_section(a: Analysis) -> list[str]:
         "first seed was unlucky by more than the margin can be retired.",
         "",
     ]
+    return out
+
+
+def futility_words(a: Analysis, margin: float) -> list[str]:
+    """The futility part of the rule, when the race used it, and what it means for a report
+    that picks by the one-standard-error rule instead."""
+    if not a.race["rule"].get("futility"):
+        return []
+    out = [
+        "Futility (the margin rule only): a variant that costs more than the baseline was "
+        "also retired when the same bootstrap showed it to gain less than the margin over "
+        f'the baseline: the one-sided p-value of "it gains at least {margin:g} pp", in the '
+        "same Holm family, lay below 0.05. The margin rule never recommends a plan that costs "
+        "more than the baseline, so this cannot change its pick; it stops spending seeds on a "
+        "gain smaller than the one you said matters (stopping for futility, as group-"
+        "sequential trials do: Jennison & Turnbull 2000).",
+        "",
+    ]
+    v = a.variants
+    futile = "retired_why" in v and bool((v["retired_why"] == FUTILE).any())
+    if futile and a.pick.rule != "margin":
+        out += [
+            "**Caution:** this report picks by the one-standard-error rule, whose reference is "
+            "the best variant, but the race retired costlier variants for futility under the "
+            "margin rule. The one-SE pick may differ from a full sweep's; run again with "
+            '`racing = "off"` to train their remaining seeds.',
+            "",
+        ]
     return out
 
 

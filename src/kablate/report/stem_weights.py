@@ -18,6 +18,7 @@ import numpy as np
 
 from kablate.analysis.stem import StemAtlas, summarize_stems
 from kablate.analysis.summary import Analysis
+from kablate.lifecycle import DONE
 from kablate.results.checkpoint import scored_states
 from kablate.results.folder import ResultsFolder
 
@@ -95,7 +96,7 @@ def stem_atlas(folder: ResultsFolder, analysis: Analysis) -> tuple[StemAtlas | N
     if analysis.baseline not in entries or "layers" not in entries[analysis.baseline]:
         return None, "plan.json lists no layers for the baseline"
     trials = analysis.trials
-    done = trials[trials["status"] == "done"]
+    done = trials[trials["status"] == DONE]
     weights, labels, skipped = {}, {}, []
     for name, role in chosen_variants(analysis, entries, own).items():
         layers = stem_layers(entries[name], own)

@@ -97,7 +97,7 @@ def variant_table(a: Analysis, cost_label: str) -> list[str]:
         f"p (Holm) | {cost_label} (× baseline) | {accepted} | picked | front | warnings |",
         "|---|---|---|---|---:|---:|---:|---|---:|---|---|",
     ]
-    fronts = [(c.label, f"front_{c.name}") for c in COSTS.values()]
+    fronts = [(c.label, c.front) for c in COSTS.values()]
     for row in v.itertuples():
         marks = []
         if row.recommended:
@@ -112,7 +112,7 @@ def variant_table(a: Analysis, cost_label: str) -> list[str]:
     return lines + [""]
 
 
-def memory_table(a: Analysis, batch_size: int | None) -> list[str]:
+def memory_table(a: Analysis, batch_size: int) -> list[str]:
     """Activation memory of a training step and the weights' bytes at fp32 and int8, per
     variant, cheapest activation memory first; empty for a plan that does not record it."""
     v = a.variants
@@ -120,14 +120,13 @@ def memory_table(a: Analysis, batch_size: int | None) -> list[str]:
         return []
     v = v.sort_values(["act_mem_bytes", "variant"])
     base = float(v.set_index("variant").loc[a.baseline, "act_mem_bytes"])
-    at = f"batch {batch_size}" if batch_size else "the recipe's batch size"
     inference = pd.to_numeric(v["infer_mem_bytes"], errors="coerce").notna().all()
     lines = [
         "#### Memory",
         "",
-        f"*Activations* are the bytes one training step at {at} keeps from the forward pass "
-        "for backward (what PyTorch's autograd saves, counted before training; × baseline in "
-        "brackets). "
+        f"*Activations* are the bytes one training step at batch {batch_size} keeps from the "
+        "forward pass for backward (what PyTorch's autograd saves, counted before training; × "
+        "baseline in brackets). "
         + (
             "*At inference* is the peak of activation bytes alive at once in one eval-mode "
             "forward pass at batch 1, the input included (measured with the latency, on the "

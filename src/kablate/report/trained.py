@@ -7,6 +7,7 @@ from __future__ import annotations
 from kablate.analysis.erf import ErfMap, effective_rf
 from kablate.analysis.summary import Analysis
 from kablate.errors import KablateError
+from kablate.lifecycle import DONE
 from kablate.results.checkpoint import scored_states
 from kablate.results.folder import ResultsFolder
 from kablate.results.paths import TRIALS_DIR
@@ -30,7 +31,7 @@ def erf_maps(folder: ResultsFolder, analysis: Analysis, data: dict) -> tuple[lis
             "cut the network before its head by kablate's own layer names)"
         )
     trials = analysis.trials
-    done = trials[trials["status"] == "done"]
+    done = trials[trials["status"] == DONE]
     # A decision needs the baseline's evidence, so both have finished trials here.
     names = list(dict.fromkeys([analysis.decision.recommended, analysis.baseline]))
     note = ""

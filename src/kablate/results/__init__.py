@@ -4,7 +4,12 @@ trials/ writes a results folder through this package and report/ reads it throug
 spells a file name, a column list or a temporary-file dance of its own.
 """
 
-from kablate.results.columns import CURVE_COLUMNS, PREDICTION_COLUMNS, TRIAL_COLUMNS
+from kablate.results.columns import (
+    CURVE_COLUMNS,
+    PREDICTION_COLUMNS,
+    TRIAL_COLUMNS,
+    VARIANT_COLUMNS,
+)
 from kablate.results.folder import ResultsFolder, read_json, read_records
 from kablate.results.paths import checkpoint_path, trial_dir
 from kablate.results.write import atomic_write, write_csv, write_json, write_text
@@ -13,6 +18,7 @@ __all__ = [
     "CURVE_COLUMNS",
     "PREDICTION_COLUMNS",
     "TRIAL_COLUMNS",
+    "VARIANT_COLUMNS",
     "ResultsFolder",
     "atomic_write",
     "checkpoint_path",

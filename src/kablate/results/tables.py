@@ -12,6 +12,7 @@ import gzip
 import io
 from pathlib import Path
 
+from kablate.lifecycle import DONE
 from kablate.results.columns import CURVE_COLUMNS, PREDICTION_COLUMNS, TRIAL_COLUMNS
 from kablate.results.evidence import SPLITS, decode_predictions
 from kablate.results.paths import CURVES_FILE, PREDICTIONS_FILE, TRIALS_FILE
@@ -41,7 +42,7 @@ def write_predictions(folder: Path, rows: list[dict], data: dict) -> int:
             for row in rows:
                 for split in SPLITS:
                     encoded = (row.get("predictions") or {}).get(split)
-                    if not encoded or row.get("status") != "done":
+                    if not encoded or row.get("status") != DONE:
                         continue
                     predicted = decode_predictions(encoded).tolist()
                     index, label = data["indices"][split], data["labels"][split]

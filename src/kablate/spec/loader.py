@@ -29,6 +29,7 @@ from kablate.spec.schema import (
     SweepSpec,
     TargetSpec,
 )
+from kablate.spec.search import read_search
 
 NAME_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]*$")
 
@@ -70,6 +71,7 @@ TOP_LEVEL = (
     "filter",
     "pick",
     "target",
+    "search",
     "halving",
 )
 
@@ -109,8 +111,11 @@ def sweep_from_dict(raw: dict, path: Path) -> SweepSpec:
     model = read_model(raw, where)
     plans = read_plans(raw.get("plan", []), where.key("plan"))
     grids = read_grids(raw.get("grid", []), where.key("grid"))
-    if not plans and not grids:
-        raise SweepError(source, "plan", "is missing: give at least one [[plan]] or [[grid]]")
+    search = read_search(raw, where, pick)
+    if not plans and not grids and search is None:
+        raise SweepError(
+            source, "plan", "is missing: give at least one [[plan]], [[grid]] or a [search] space"
+        )
     if recipe.test_from == "best" and not data.stop_size:
         raise SweepError(
             source,
@@ -144,6 +149,7 @@ def sweep_from_dict(raw: dict, path: Path) -> SweepSpec:
         pick=pick,
         model=model,
         target=target,
+        search=search,
         halving=halving,
         raw=resolved,
     )
@@ -161,6 +167,7 @@ class _TopLevel:
     filter: Any = None
     pick: Any = None
     target: Any = None
+    search: Any = None
     halving: Any = None
 
 

@@ -171,6 +171,9 @@ class FilterSpec:
     equal_rf: bool = False  # keep only variants whose rf equals the baseline's
 
 
+PICK_RULES = ("margin", "one-se")  # [pick] rule, `kablate report --rule`
+
+
 @dataclass(frozen=True)
 class PickSpec:
     """How the report picks the recommended plan (see `kablate.analysis.decide`).
@@ -182,7 +185,7 @@ class PickSpec:
     --margin, --cost, --within-se`` override these.
     """
 
-    rule: Literal["margin", "one-se"] = "margin"
+    rule: Literal[PICK_RULES] = "margin"
     margin: float = check(between(0.0, 50.0), 1.0)  # percentage points
     cost: Literal[COST_NAMES] = "macs"  # see kablate.spec.costs
     within_se: float = check(between(0.0, 10.0), 1.0)
@@ -207,6 +210,18 @@ class TargetSpec:
     batch: int = check(between(0, MAX_BATCH, "an integer"), 0)
     input: tuple[int, ...] = check(_input_side, ())
     runtime: Literal["torch", "onnxruntime"] = "torch"
+
+
+@dataclass(frozen=True)
+class SearchSpec:
+    """A per-layer choice space that is searched instead of enumerated (`kablate.plans.space`,
+    `kablate.trials.search`): NSGA-II trains ``budget`` of its plans with the first seed,
+    maximising validation accuracy and minimising ``cost``; `kablate.spec.search` reads it."""
+
+    choices: dict[str, tuple[str, ...]]  # layer group → the kernel specs it may take
+    budget: int  # plans trained in the search (filtered and repeated proposals not counted)
+    cost: Literal["macs", "params"] = "macs"  # minimised beside validation accuracy
+    seed: int = 0  # the sampler's seed, not a training seed
 
 
 @dataclass(frozen=True)
@@ -249,5 +264,6 @@ class SweepSpec:
     racing: Literal["auto", "on", "off"] = "auto"  # retire dominated variants between seeds
     model: ModelSpec | None = None  # the user's own network; then `network` is unused
     target: TargetSpec = field(default_factory=TargetSpec)  # where latency is measured
+    search: SearchSpec | None = None  # a choice space to search instead of plans to enumerate
     halving: HalvingSpec = field(default_factory=HalvingSpec)  # early stopping inside trials
     raw: dict = field(default_factory=dict, compare=False, repr=False)  # resolved TOML

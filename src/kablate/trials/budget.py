@@ -109,8 +109,9 @@ def calibrate(catalog: Catalog, data: PreparedData, threads: int) -> dict[str, C
 
 
 @dataclass
-class Plan:
-    """What a budget buys: the jobs that start, in order, and the predicted times."""
+class Timetable:
+    """What a budget buys: the jobs that start, in order, and the predicted times (not a kernel
+    plan: that word is the sweep's)."""
 
     jobs: list[Job]
     starts: list[float]  # predicted start of each job, seconds after the run starts
@@ -131,7 +132,7 @@ def schedule(
     n_workers: int,
     budget: float = 0.0,
     start: float = 0.0,
-) -> Plan:
+) -> Timetable:
     """Replay ``jobs`` in order on ``n_workers``, which are free from ``start`` seconds after
     the run starts; the jobs that end within ``budget`` fit.
 
@@ -151,42 +152,48 @@ def schedule(
         if n_fit is None:
             fit_end = max(fit_end, end)
     total = max(ends, default=0.0)
-    return Plan(jobs, starts, ends, len(jobs) if n_fit is None else n_fit, total, fit_end)
+    return Timetable(jobs, starts, ends, len(jobs) if n_fit is None else n_fit, total, fit_end)
 
 
 def format_plan(
-    plan: Plan, budget: float, seeds: list[int], n_variants: int, layout, already: list[int]
+    timetable: Timetable,
+    budget: float,
+    seeds: list[int],
+    n_variants: int,
+    layout,
+    already: list[int],
 ) -> str:
     """The estimate and the order, as printed by --budget and --dry-run."""
     from kablate.trials.status import duration
 
     workers, threads = layout
     lines = [
-        f"estimate: {len(plan.jobs)} trials to run take about {duration(plan.total_seconds)} "
+        f"estimate: {len(timetable.jobs)} trials to run take about "
+        f"{duration(timetable.total_seconds)} "
         f"on {workers} worker(s) x {threads} thread(s)"
         + (
-            f", of which ~{duration(plan.starts[0])} is start-up and calibration"
-            if plan.starts and plan.starts[0] >= 1
+            f", of which ~{duration(timetable.starts[0])} is start-up and calibration"
+            if timetable.starts and timetable.starts[0] >= 1
             else ""
         )
     ]
     if budget:
-        complete = plan.complete_seeds(seeds, n_variants, already)
+        complete = timetable.complete_seeds(seeds, n_variants, already)
         seeds_text = ", ".join(map(str, complete)) if complete else "none"
         lines.append(
-            f"budget {duration(budget)}: {plan.n_fit} of {len(plan.jobs)} trials fit "
-            f"(about {duration(plan.fit_seconds)}); every variant complete at seeds: "
+            f"budget {duration(budget)}: {timetable.n_fit} of {len(timetable.jobs)} trials fit "
+            f"(about {duration(timetable.fit_seconds)}); every variant complete at seeds: "
             f"{seeds_text}"
         )
     lines.append("order:")
-    width = max((len(job.variant) for job in plan.jobs), default=0)
-    for i, job in enumerate(plan.jobs):
-        mark = " " if i < plan.n_fit else "-"
-        start, takes = duration(plan.starts[i]), plan.ends[i] - plan.starts[i]
+    width = max((len(job.variant) for job in timetable.jobs), default=0)
+    for i, job in enumerate(timetable.jobs):
+        mark = " " if i < timetable.n_fit else "-"
+        start, takes = duration(timetable.starts[i]), timetable.ends[i] - timetable.starts[i]
         lines.append(
             f" {mark} {i + 1:>4}  {job.variant:<{width}}  seed {job.seed:<3} "
             f"starts ~{start:>7}  takes ~{takes:.1f}s"
         )
-    if plan.n_fit < len(plan.jobs):
+    if timetable.n_fit < len(timetable.jobs):
         lines.append("  (- : does not fit the budget and will not start)")
     return "\n".join(lines)

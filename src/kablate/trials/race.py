@@ -4,7 +4,8 @@ The rule itself is `kablate.analysis.race` (Maron & Moore 1994; Birattari et al.
 module runs it on the study, so that every worker and every machine sharing the study agrees:
 
 - ``race`` (`RULE_ATTR`), a study user attribute, holds the race's settings (margin in pp,
-  cost, baseline variant id). The first runner that races writes it; a started race keeps it.
+  cost, baseline variant id, and whether it retires for futility: under the margin rule).
+  The first runner that races writes it; a started race keeps it.
   Without it (or with it set to None by a run with ``racing = "off"``) nothing is raced.
 - Round r is the r-th seed of the sweep. It can be decided once every variant still in the
   race has finished (done or diverged) the seeds of rounds 0..r; it is decided on the
@@ -33,6 +34,7 @@ from optuna.exceptions import UpdateFinishedTrialError
 from optuna.trial import FrozenTrial, TrialState
 
 from kablate.lifecycle import RETIRED, JobKey, is_finished
+from kablate.spec.costs import COSTS
 from kablate.trials.jobs import Job
 from kablate.trials.queue import enqueue_missing, job_status, tagged_trials
 
@@ -40,9 +42,8 @@ log = logging.getLogger("kablate")
 
 RULE_ATTR = "race"
 ROUND_PREFIX = "race-seed-"
-# A measured cost differs from machine to machine and run to run, so runners sharing a study
-# could disagree on who costs no more: the race then compares by MACs.
-MEASURED_COSTS = ("latency",)
+# A timed cost (CPU or ONNX Runtime latency) differs from machine to machine and run to run, so
+# runners sharing a study could disagree on who costs no more: the race then compares by MACs.
 RACE_FALLBACK_COST = "macs"
 
 
@@ -55,9 +56,15 @@ def racing_wanted(setting: str, budget_seconds: float, study: optuna.Study) -> b
 
 
 def race_rule(sweep, baseline_id: str) -> dict:
-    """The race's settings from the sweep's ``[pick]``: margin (pp), cost, baseline id."""
-    cost = sweep.pick.cost if sweep.pick.cost not in MEASURED_COSTS else RACE_FALLBACK_COST
-    return {"margin_pp": float(sweep.pick.margin), "cost": cost, "baseline": baseline_id}
+    """The race's settings from the sweep's ``[pick]``: margin (pp), cost, baseline id, and
+    futility (only the margin rule never recommends a plan costlier than the baseline)."""
+    cost = RACE_FALLBACK_COST if COSTS[sweep.pick.cost].timed else sweep.pick.cost
+    return {
+        "margin_pp": float(sweep.pick.margin),
+        "cost": cost,
+        "baseline": baseline_id,
+        "futility": sweep.pick.rule == "margin",
+    }
 
 
 def read_rounds(study: optuna.Study) -> dict[int, dict]:
@@ -71,8 +78,9 @@ def read_rounds(study: optuna.Study) -> dict[int, dict]:
 
 
 def retired_variants(rounds: dict[int, dict]) -> dict[str, dict]:
-    """Variant id → its retirement: ``seed`` (the round's), ``n_seeds``, ``by`` (variant id),
-    ``by_name``, ``name``, ``diff``, ``upper``, ``p_holm``, ``margin_pp``, ``cost``."""
+    """Variant id → its retirement: ``seed`` (the round's), ``n_seeds``, ``why`` (absent in
+    races recorded before futility), ``by`` (variant id), ``by_name``, ``name``, ``diff``,
+    ``upper``, ``p_holm``, ``margin_pp``, ``cost``."""
     out: dict[str, dict] = {}
     for seed, record in rounds.items():
         for vid, entry in record.get("retired", {}).items():
@@ -101,7 +109,6 @@ class Race:
     @classmethod
     def of(cls, catalog, labels, rule: dict) -> Race:
         from kablate.costs.plan_output import cost_json
-        from kablate.spec.costs import COSTS
 
         column = COSTS[rule["cost"]].column
         variants = []
@@ -175,10 +182,17 @@ class Race:
         )
         costs = {vid: cost for vid, _, cost in self.variants if vid in compared}
         names = {vid: name for vid, name, _ in self.variants}
-        retiring = retirements(evidence, costs, self.rule["baseline"], self.rule["margin_pp"] / 100)
+        retiring = retirements(
+            evidence,
+            costs,
+            self.rule["baseline"],
+            self.rule["margin_pp"] / 100,
+            futility=bool(self.rule.get("futility")),  # absent: a race recorded before it
+        )
         record["retired"] = {
             vid: {
                 "name": names[vid],
+                "why": d.why,
                 "by": d.by,
                 "by_name": names[d.by],
                 "diff": d.diff,

@@ -7,7 +7,7 @@ from __future__ import annotations
 
 import optuna
 
-from kablate.lifecycle import RETIRED, JobKey
+from kablate.lifecycle import FAILED, MISSING, RETIRED, WAITING, JobKey
 from kablate.results.columns import CURVE_COLUMNS, TRIAL_COLUMNS
 from kablate.train.record import shown_epoch
 from kablate.trials.queue import job_status, tagged_trials
@@ -32,7 +32,7 @@ def collect_trials(study: optuna.Study, plan: dict) -> tuple[list[dict], list[di
                 variant=v["name"],
                 variant_id=v["id"],
                 seed=seed,
-                status="waiting",
+                status=WAITING,
                 params=v["params"],
                 macs=v["macs"],
                 rf=v["rf"],
@@ -72,12 +72,12 @@ def collect_trials(study: optuna.Study, plan: dict) -> tuple[list[dict], list[di
                         )
                     )
             else:
-                row["status"] = "missing"  # not enqueued yet (e.g. the run has not started)
+                row["status"] = MISSING  # not enqueued yet (e.g. the run has not started)
                 row["predictions"] = {}
             if v["id"] in retired:  # racing gave it no more seeds: the card says why
                 row["retired"] = retired[v["id"]]
                 row["retired_after"] = retired[v["id"]]["seed"]
-                if row["status"] in ("missing", "failed"):
+                if row["status"] in (MISSING, FAILED):
                     row["status"] = RETIRED
             rows.append(row)
     return rows, curves

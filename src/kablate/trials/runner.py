@@ -47,6 +47,7 @@ from kablate.trials.preflight import run_preflight
 from kablate.trials.queue import enqueue_missing, job_status, tagged_trials
 from kablate.trials.race import start_race
 from kablate.trials.rows import collect_trials
+from kablate.trials.search import refuse_search_run
 from kablate.trials.store import lock_dir, open_study, resolve_url, storage_exists
 
 log = logging.getLogger("kablate")
@@ -217,6 +218,7 @@ def dry_run(sweep_path: Path, opts: RunOptions) -> RunSummary:
     """Calibrate and print the estimate and order without training or writing results."""
     step("start-up", f"reading {sweep_path} and costing its variants")
     sweep = load_sweep(sweep_path)
+    refuse_search_run(sweep)
     catalog = build_catalog(sweep)
     results_dir = opts.results_root / sweep.name
     url = resolve_url(opts.storage)
@@ -270,6 +272,7 @@ def _run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
     started, started_at = time.time(), datetime.now()  # Optuna's trial times are naive local
     step("start-up", f"reading {sweep_path} and costing its variants")
     sweep = load_sweep(sweep_path)
+    refuse_search_run(sweep)
     catalog = build_catalog(sweep)
     results_dir = opts.results_root / sweep.name
     url = resolve_url(opts.storage)

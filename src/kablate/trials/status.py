@@ -18,11 +18,21 @@ from datetime import datetime
 from optuna.trial import FrozenTrial, TrialState
 
 from kablate.errors import KablateError
-from kablate.lifecycle import RETIRED, STOPPED, is_finished
+from kablate.lifecycle import (
+    DIVERGED,
+    DONE,
+    FAILED,
+    MISSING,
+    RETIRED,
+    RUNNING,
+    STOPPED,
+    WAITING,
+    is_finished,
+)
 from kablate.trials.queue import trial_status
 from kablate.trials.results import StoredResults
 
-STATES = ("done", "running", "waiting", "failed", "diverged", RETIRED, STOPPED)
+STATES = (DONE, RUNNING, WAITING, FAILED, DIVERGED, RETIRED, STOPPED)
 RECENT = 20  # finished trials that set the expected trial time
 
 
@@ -48,7 +58,7 @@ class SweepStatus:
 
 
 def row_state(status: str) -> str:
-    return "waiting" if status == "missing" else status
+    return WAITING if status == MISSING else status
 
 
 def summarize(

@@ -1,0 +1,33 @@
+"""Shared fixtures of the report tests."""
+
+from __future__ import annotations
+
+import pytest
+
+from kablate.report.card import CardContext
+
+
+@pytest.fixture
+def card_context() -> CardContext:
+    """A results folder's sweep.json and data.json, as the card reads them (invented)."""
+    meta = {
+        "name": "synthetic",
+        "source": "sweeps/synthetic.toml",
+        "fingerprint": "abc",
+        "seeds": [0, 1, 2],
+        "resolved": {"recipe": {"epochs": 4}},
+        "command": "kablate run x",
+        "environment": {"cpu": "a CPU", "cores": 2, "packages": {"torch": "2"}},
+        "workers": 1,
+        "threads": 2,
+        "storage": "study.journal",
+    }
+    data = {
+        "source": "digits",
+        "sizes": {"train": 10, "val": 5, "test": 5},
+        "in_shape": [1, 8, 8],
+        "n_classes": 10,
+        "test_pool": "held out",
+        "indices_sha1": {"train": "t", "val": "v", "test": "s"},
+    }
+    return CardContext(meta, data, "0", ("a.png",), "MACs")
