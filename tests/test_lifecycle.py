@@ -10,15 +10,11 @@ from kablate import lifecycle
 from kablate.lifecycle import FINISHED, JobKey
 
 
-def test_finished_is_done_or_diverged():
-    assert FINISHED == ("done", "diverged")
-    assert [lifecycle.is_finished(s) for s in ("done", "diverged", "failed", "retired")] == [
-        True,
-        True,
-        False,
-        False,
-    ]
-    assert lifecycle.n_finished(["done", "waiting", "diverged", "running"]) == 2
+def test_finished_is_done_diverged_or_stopped():
+    assert FINISHED == ("done", "diverged", "stopped")
+    states = ("done", "diverged", "stopped", "failed", "retired")
+    assert [lifecycle.is_finished(s) for s in states] == [True, True, True, False, False]
+    assert lifecycle.n_finished(["done", "waiting", "diverged", "running", "stopped"]) == 3
 
 
 def test_the_key_is_written_as_it_always_was():
@@ -48,6 +44,7 @@ def test_every_transition_names_known_states_and_actors():
         lifecycle.DIVERGED,
         lifecycle.FAILED,
         lifecycle.RETIRED,
+        lifecycle.STOPPED,
         lifecycle.INTERRUPTED,
         lifecycle.LOST,
     }

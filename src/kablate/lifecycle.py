@@ -23,12 +23,17 @@ lost          FAIL, outcome ``worker-lost`` (journal     its worker died; the li
               optuna's stale-heartbeat check fails it
               and cannot add one)
 retired       FAIL, outcome ``retired``                  racing withdrew it (trials/race.py)
+stopped       PRUNED, outcome ``stopped``                successive halving ended its training
+                                                         at a rung (trials/halving.py): its
+                                                         result is the last validation score
 ============  =========================================  ======================================
 
 An interrupted or lost trial shows as ``failed``; its job shows as ``waiting`` again, since the
 requeued trial outranks it. trials.csv adds ``missing`` for a job with no trial yet.
 
-*Finished* means done or diverged (`FINISHED`): the trial has its result and never runs again.
+*Finished* means done, diverged or stopped (`FINISHED`): the trial has its result and never runs
+again. Only a done trial was trained to the end: a stopped trial's result is an early score,
+which the analysis never compares with full results (analysis/halving.py).
 
 Who may do what (`TRANSITIONS`; every requeue goes through `trials.queue.requeue`):
 
@@ -37,7 +42,8 @@ Who may do what (`TRANSITIONS`; every requeue goes through `trials.queue.requeue
 - the claim (`trials.queue.claim_next`) moves waiting → running with the storage's
   compare-and-set, so exactly one worker wins; a claimed trial that is not the first live
   trial of its job goes running → failed (``duplicate``);
-- the worker that holds a trial ends it: running → done, diverged or failed (``error``); on a
+- the worker that holds a trial ends it: running → done, diverged, stopped (successive halving)
+  or failed (``error``); on a
   stop request or a full disk, running → interrupted, and it requeues the job;
 - the liveness check (`trials.liveness`), before every claim, moves a running trial whose
   worker is gone to lost, and requeues the job;
@@ -59,6 +65,7 @@ DONE = "done"
 DIVERGED = "diverged"
 FAILED = "failed"
 RETIRED = "retired"
+STOPPED = "stopped"  # successive halving ended its training early (trials/halving.py)
 INTERRUPTED = "interrupted"
 LOST = "lost"
 MISSING = "missing"  # trials.csv only: a job with no trial yet (the run has not started)
@@ -72,14 +79,15 @@ OUTCOMES = {
     "disk-full": INTERRUPTED,
     "worker-lost": LOST,
     "retired": RETIRED,
+    "stopped": STOPPED,
 }
 
 # Trials in these states have their result and never run again.
-FINISHED = (DONE, DIVERGED)
+FINISHED = (DONE, DIVERGED, STOPPED)
 # A job in one of these needs nothing more: racing gave a retired variant no more seeds.
 SETTLED = (*FINISHED, RETIRED)
 # How each status counts for its job; the best-ranked trial of a job speaks for it.
-RANK = {DONE: 5, DIVERGED: 4, RUNNING: 3, WAITING: 2, FAILED: 1, RETIRED: 0}
+RANK = {DONE: 6, DIVERGED: 5, STOPPED: 4, RUNNING: 3, WAITING: 2, FAILED: 1, RETIRED: 0}
 
 # (from, to) → who may make that move. None: the job has no trial yet.
 TRANSITIONS = {
@@ -91,6 +99,7 @@ TRANSITIONS = {
     (RUNNING, FAILED): ("claim", "worker"),  # a duplicate; training raised
     (RUNNING, DONE): ("worker",),
     (RUNNING, DIVERGED): ("worker",),
+    (RUNNING, STOPPED): ("worker",),  # successive halving, at a rung
     (RUNNING, INTERRUPTED): ("worker",),
     (RUNNING, LOST): ("liveness",),
     (INTERRUPTED, WAITING): ("worker",),  # the job is requeued as a new trial
@@ -99,7 +108,7 @@ TRANSITIONS = {
 
 
 def is_finished(status: str) -> bool:
-    """Whether a trial (or job) in ``status`` has its result: done or diverged."""
+    """Whether a trial (or job) in ``status`` has its result: done, diverged or stopped."""
     return status in FINISHED
 
 

@@ -44,6 +44,14 @@ def test_every_shipped_sweep_loads():
         ('source = "digits"', 'source = "digts"', "data.source", ["did you mean `digits`"]),
         ("seeds = [0, 1]", "seeds = [1, 1]", "sweep.seeds", ["distinct"]),
         ('[[plan]]\nname = "all-3"', '[[plans]]\nname = "all-3"', "plans", ["did you mean `plan`"]),
+        ("[[plan]]", "[halving]\nfactor = 1\n[[plan]]", "halving.factor", ["2", "got 1"]),
+        ("[[plan]]", "[halving]\nfirst_epoh = 1\n[[plan]]", "halving.first_epoh", ["first_epoch"]),
+        (
+            "[[plan]]",
+            "[halving]\nenabled = true\nfirst_epoch = 5\n[[plan]]",
+            "halving.first_epoch",
+            ["no rung before the recipe's last epoch (5)"],
+        ),
     ],
 )
 def test_bad_values_name_file_key_value_and_what_is_allowed(tmp_path, old, new, key, words):

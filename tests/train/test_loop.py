@@ -395,3 +395,23 @@ def test_the_budget_times_the_trainers_own_step(monkeypatch):
     # The schedule's lr for the third step (index 2) is what the optimizer holds.
     factor = loop.get_lr_factor(2, steps.total, steps.per_epoch, sweep.recipe)
     assert optimizer.param_groups[0]["lr"] == pytest.approx(sweep.recipe.lr * factor)
+
+
+def test_a_judged_trial_stops_after_its_rung_with_its_last_score_and_no_evidence(tiny, tmp_path):
+    recipe, data, layouts = tiny
+    asked = []
+
+    def judge(epochs_done: int, val_acc: float) -> bool:  # successive halving's hook
+        asked.append((epochs_done, val_acc))
+        return epochs_done == 2
+
+    record = train_trial(layouts["all-3"], recipe, data, seed=0, workdir=tmp_path, judge=judge)
+    assert record.status == "stopped" and [e.epoch for e in record.curve] == [0, 1]
+    assert asked == [(1, record.curve[0].val_acc), (2, record.curve[1].val_acc)]
+    assert (record.val_acc, record.score_epoch) == (record.curve[1].val_acc, 1)
+    assert math.isnan(record.test_acc) and record.predictions == {}  # an early score only
+    # Its checkpoint was written as it stopped: a resumed job stays stopped, training nothing.
+    assert load_checkpoint(tmp_path / CHECKPOINT)["epoch"] == 1
+    again = train_trial(layouts["all-3"], recipe, data, seed=0, workdir=tmp_path)
+    assert again.status == "stopped" and curve_values(again) == curve_values(record)
+    assert again.steps == record.steps == 2 * math.ceil(160 / 32)

@@ -20,6 +20,9 @@ from pathlib import Path
 
 import pytest
 
+from tests.conftest import TINY_SWEEP, write_sweep
+from tests.trials.runs import EPOCHS
+
 PG_USER = "postgres"
 
 
@@ -109,3 +112,16 @@ def storage(request, tmp_path) -> str | None:
     if request.param == "journal":
         return None
     return request.getfixturevalue("postgres_url")
+
+
+@pytest.fixture
+def long_sweep(tmp_path: Path) -> Path:
+    """The tiny sweep, made long enough (about 2 s a trial here) to be caught mid-trial.
+
+    With 200 images an epoch takes about 10 ms, so a whole trial could start, checkpoint and
+    finish between two looks of the test; 1,200 images and 40 epochs leave a wide window.
+    """
+    body = TINY_SWEEP.replace(
+        'from = "configs/tiny-recipe.toml"', f'from = "configs/tiny-recipe.toml"\nepochs = {EPOCHS}'
+    ).replace("train_size = 200", "train_size = 1200")
+    return write_sweep(tmp_path, body)

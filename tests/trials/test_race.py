@@ -25,40 +25,7 @@ from kablate.trials.queue import enqueue_missing, job_status, tagged_trials
 from kablate.trials.race import race_rule, read_rounds
 from kablate.trials.store import JOURNAL, open_study
 from tests.conftest import write_sweep
-
-RACE_SWEEP = """
-[sweep]
-name = "{name}"
-seeds = {seeds}
-racing = "{racing}"
-
-[data]
-source = "digits"
-train_size = 400
-val_size = 200
-test_size = 100
-
-[network]
-from = "configs/tiny-net.toml"
-
-[recipe]
-from = "configs/tiny-recipe.toml"
-epochs = 4  # all-3 reaches about 60% on digits, far from the blind plan's chance level
-
-[[plan]]
-name = "all-3"
-body = "3"
-
-[[plan]]
-name = "stem-5"
-stem = "5"
-
-[[plan]]
-name = "blind"
-stem = "3d8"
-stage1 = "3d8"
-stage2 = "3d4"
-"""
+from tests.trials.runs import RACE_SWEEP
 
 
 def sweep_file(folder, name, racing, seeds="[0, 1]"):

@@ -12,98 +12,19 @@ import json
 import os
 import re
 import signal
-import subprocess
-import sys
 import time
 from pathlib import Path
 
 import pytest
-import torch
 from optuna.trial import TrialState
 
-from kablate.trials.store import open_study
-from tests.conftest import TINY_SWEEP, write_sweep
-
-JOBS = 4  # 2 plans × 2 seeds
-EPOCHS = 40
-EARLY = EPOCHS // 2  # a checkpoint before this epoch leaves its trial half of its epochs to run
-
-
-@pytest.fixture
-def long_sweep(tmp_path: Path) -> Path:
-    """The tiny sweep, made long enough (about 2 s a trial here) to be caught mid-trial.
-
-    With 200 images an epoch takes about 10 ms, so a whole trial could start, checkpoint and
-    finish between two looks of the test; 1,200 images and 40 epochs leave a wide window.
-    """
-    body = TINY_SWEEP.replace(
-        'from = "configs/tiny-recipe.toml"', f'from = "configs/tiny-recipe.toml"\nepochs = {EPOCHS}'
-    ).replace("train_size = 200", "train_size = 1200")
-    return write_sweep(tmp_path, body)
-
-
-def kablate(*args: str, storage: str | None, cwd: Path, wait: bool = True):
-    cmd = [sys.executable, "-m", "kablate", *args]
-    if storage:
-        cmd += ["--storage", storage]
-    env = dict(os.environ, KABLATE_HEARTBEAT_SECONDS="1")
-    if wait:
-        return subprocess.run(cmd, cwd=cwd, env=env, capture_output=True, text=True, timeout=240)
-    return subprocess.Popen(
-        cmd,
-        cwd=cwd,
-        env=env,
-        stdout=subprocess.PIPE,
-        stderr=subprocess.PIPE,
-        text=True,
-        start_new_session=True,  # its own process group, like a job in a terminal
-    )
-
-
-def run_args(sweep: Path, results: Path, *extra: str) -> list[str]:
-    return ["run", str(sweep), "--workers", "2", "--results", str(results), "--no-report", *extra]
-
-
-def study_of(results: Path, storage: str | None):
-    return open_study("tiny", results / "tiny", storage, create=False)
-
-
-def early_checkpoint(path: Path) -> bool:
-    """A checkpoint from one of the first epochs: its trial will not finish for a while."""
-    if not path.is_file():
-        return False
-    return torch.load(path, map_location="cpu", weights_only=True)["epoch"] < EARLY
-
-
-def wait_for_study(results: Path, storage: str | None, proc, deadline: float):
-    """The run's study, opened once it exists (the runner creates it)."""
-    while time.time() < deadline:
-        assert proc.poll() is None, proc.communicate()
-        if storage or (results / "tiny" / "study.journal").is_file():
-            try:
-                return study_of(results, storage)
-            except Exception:  # the study is still being created
-                pass
-        time.sleep(0.05)
-    raise AssertionError("the run did not create its study in time")
-
-
-def wait_for_checkpointed_trial(results: Path, storage: str | None, proc) -> tuple[str, int]:
-    """(job key, worker pid) of a running trial that has written an early epoch checkpoint.
-
-    The study is opened once and then only read, so that one look takes milliseconds on
-    either storage, far less than the second or so a trial spends before ``EARLY``.
-    """
-    deadline = time.time() + 120
-    study = wait_for_study(results, storage, proc, deadline)
-    while time.time() < deadline:
-        assert proc.poll() is None, proc.communicate()
-        for t in study.get_trials(deepcopy=False, states=(TrialState.RUNNING,)):
-            key, worker = t.user_attrs.get("job"), t.user_attrs.get("worker")
-            if worker and early_checkpoint(results / "tiny" / "trials" / key / "checkpoint.pt"):
-                return key, int(worker.rsplit(":", 1)[1])
-        time.sleep(0.02)
-    raise AssertionError("no trial reached its first checkpoint in time")
+from tests.trials.runs import (
+    JOBS,
+    kablate,
+    run_args,
+    study_of,
+    wait_for_checkpointed_trial,
+)
 
 
 def completed(results: Path, storage: str | None) -> dict[str, tuple]:

@@ -63,6 +63,7 @@ def test_throughput_and_eta_come_from_running_workers_and_recent_trial_times():
         "failed": 1,
         "diverged": 1,
         "retired": 0,
+        "stopped": 0,
     }
     assert status.mean_trial_seconds == 480  # (600 + 360) / 2
     assert status.throughput_per_hour == 2 / 480 * 3600  # two workers, one trial each
@@ -74,6 +75,16 @@ def test_throughput_and_eta_come_from_running_workers_and_recent_trial_times():
     assert "2/8 done, 2 running, 2 waiting, 1 failed, 1 diverged" in text
     assert "ETA 16m00s" in text
     assert "  running a seed 1 on ? for 2m00s" in text  # the variant's name, not its job key
+
+
+def test_trials_stopped_by_successive_halving_are_counted_and_drawn_apart():
+    rows = [row("a", 0, "done"), row("b", 0, "stopped"), row("b", 1, "done")]
+    status = summarize("demo", rows, [], NOW, {"workers": 1, "threads": 1})
+    assert status.counts["stopped"] == 1 and status.finished
+    text = format_status(status)
+    assert "1/3 done" not in text and "2/3 done" in text
+    assert "1 stopped early (successive halving)" in text
+    assert "  b  [#/]  1/2  stopped early by successive halving: not compared" in text
 
 
 def test_a_stopped_sweep_has_no_eta_and_says_how_to_continue():

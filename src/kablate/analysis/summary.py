@@ -26,6 +26,7 @@ from kablate.analysis.decide import (
 from kablate.analysis.erf import ErfMap
 from kablate.analysis.evidence import Evidence, gather_evidence
 from kablate.analysis.flags import variant_flags
+from kablate.analysis.halving import HalvingAccount, put_stopped, stopped_variants
 from kablate.analysis.power import Resolution, resolution_after
 from kablate.analysis.race import in_race, put_retired, retired_accuracies
 from kablate.analysis.stem import StemAtlas
@@ -67,6 +68,7 @@ class Analysis:
     # (row, column) positions in ``grid`` of the baseline's and the recommended plan's cells
     grid_marks: dict[str, list[tuple[int, int]]] = field(default_factory=dict)
     race: dict | None = None  # racing: {"rule", "rounds"} (`trials.race.race_summary`), or None
+    halving: HalvingAccount | None = None  # successive halving (`halving.halving_account`)
 
     @property
     def recommended(self) -> str | None:
@@ -122,12 +124,15 @@ def analyze(
     # Variants retired by racing have fewer seeds: they are left out of the seed balance and
     # the decision (analysis/race.py says why the pick cannot change), and shown on their own.
     racing = in_race(trials)
-    seeds = balanced_seeds(trials[racing])
+    # So are variants that successive halving stopped on a seed: an early score is not a
+    # trained variant's (analysis/halving.py); the card lists them with their last score.
+    compared = racing & ~stopped_variants(trials)
+    seeds = balanced_seeds(trials[compared])
     variants = variant_frame(trials, plan, seeds=seeds)
     base_id = plan["baseline"]
     baseline = variants.loc[variants["variant_id"] == base_id, "variant"].iloc[0]
     curves_frame = pd.DataFrame(curves) if curves else pd.DataFrame(columns=list(CURVE_COLUMNS))
-    evidence = gather_evidence(trials[racing], data, seeds)
+    evidence = gather_evidence(trials[compared], data, seeds)
     decision, resolution = None, None
     if evidence is not None and baseline in evidence.names:
         cost_col = COSTS[pick.cost].column
@@ -151,8 +156,9 @@ def analyze(
     elif evidence is not None:  # no baseline to compare with yet: the accuracies still count
         put_accuracies(variants, accuracies(evidence, resample_accuracies(evidence.correct)), "val")
         add_fronts(variants)
-    test_contrast = contrast_on_test(trials[racing], data, seeds, decision, variants)
+    test_contrast = contrast_on_test(trials[compared], data, seeds, decision, variants)
     show_retired(variants, trials[~racing], data)
+    put_stopped(variants, trials)
     variants["recommended"] = variants["variant"] == (decision.recommended if decision else "")
     n_classes = int(data.get("n_classes") or len(data.get("classes", [])) or 2)
     flags = variant_flags(

@@ -14,9 +14,10 @@ from datetime import UTC, datetime
 
 from kablate.analysis.summary import Analysis
 from kablate.costs.plan_output import human
-from kablate.lifecycle import DIVERGED, DONE, RETIRED
+from kablate.lifecycle import DIVERGED, DONE, RETIRED, STOPPED
 from kablate.plans.expand import read_plan_text
 from kablate.plans.grammar import KernelSpecError, parse_kernel
+from kablate.report.halving import halving_section
 from kablate.report.race import race_section
 from kablate.report.stem_card import stem_section
 from kablate.report.tables import (
@@ -138,6 +139,7 @@ def render_card(a: Analysis, ctx: CardContext, now: datetime | None = None) -> s
         *stem_section(a.stem, a.stem_note),
         *_partial(a),
         *race_section(a),
+        *halving_section(a),
         *_plots(ctx.plots),
         "### Caveats and recommendations",
         "",
@@ -342,7 +344,8 @@ def _partial(a: Analysis) -> list[str]:
     """The planned trials the statistics do not use: not finished yet, diverged, or held back
     to compare every variant on the same seeds."""
     t, held = a.trials, a.held_back
-    waiting = t["status"].ne(DONE) & t["status"].ne(RETIRED)  # racing: its own section
+    # racing and successive halving have their own sections
+    waiting = ~t["status"].isin((DONE, RETIRED, STOPPED))
     left_out = t.loc[waiting | held, ["variant", "seed", "status"]].copy()
     if not len(left_out):
         return []

@@ -8,6 +8,7 @@ from pathlib import Path
 import numpy as np
 
 from kablate import __version__
+from kablate.analysis.halving import halving_account
 from kablate.analysis.summary import Analysis, analyze, pick_settings
 from kablate.console import step
 from kablate.errors import KablateError
@@ -141,6 +142,7 @@ def write_report(
     step("report", "analysing the finished trials (paired bootstrap over seeds and images)")
     analysis = analyze(rows, curves, folder.plan, folder.meta.get("grids", []), data, pick)
     analysis.race = folder.race()
+    analysis.halving = halving_account(folder.halving(), analysis.trials, analysis.curves)
     step("report", "writing the tables (trials, variants, curves, predictions)")
     if out is None:
         hint = "; give --out DIR to write the report elsewhere"

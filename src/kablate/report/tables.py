@@ -34,7 +34,7 @@ def variant_cells(a: Analysis, name: str) -> list[str]:
     d = a.decision
     acc = d.accuracy.get(name) if d else None
     if acc is None:
-        return ["not compared yet"] + ["-"] * 6
+        return [stopped_text(a, name) or "not compared yet"] + ["-"] * 6
     c = d.contrasts.get(name)
     return [
         f"{pct(acc.mean)} {ci(acc.low, acc.high)}",
@@ -45,6 +45,22 @@ def variant_cells(a: Analysis, name: str) -> list[str]:
         within_margin(a, name),
         f"{100 * d.pick_share.get(name, 0):.0f}%",
     ]
+
+
+def stopped_text(a: Analysis, name: str) -> str:
+    """'stopped early by epoch 2: last val acc 81.33% (mean of 1 seed); not compared' for a
+    variant that successive halving stopped (never compared, never recommended), else ''."""
+    v = a.variants
+    if "n_stopped" not in v:
+        return ""
+    row = v[v["variant"] == name].iloc[0]
+    if not row["n_stopped"]:
+        return ""
+    n = int(row["n_stopped"])
+    return (
+        f"stopped early by epoch {int(row['stopped_epoch'])}: last val acc "
+        f"{pct(row['stopped_val_acc'])} (mean of {n} seed{'s' if n != 1 else ''}); not compared"
+    )
 
 
 def within_margin(a: Analysis, name: str) -> str:

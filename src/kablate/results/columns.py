@@ -43,6 +43,10 @@ RETIRED_COLUMNS = {
     "retired_bound": "upper",
     "retired_p_holm": "p_holm",
 }
+# variants.csv after successive halving (analysis/halving.py fills them): how many of a
+# variant's trials were stopped early, the epoch of the latest stop (from 1) and the mean of
+# those trials' last validation accuracy
+STOPPED_COLUMNS = ("n_stopped", "stopped_epoch", "stopped_val_acc")
 # variants.csv: one row per variant (report/compose.py writes it); its front_<cost> columns are
 # those of spec.costs.COSTS (tests/results/test_columns.py checks it)
 VARIANT_COLUMNS = (
@@ -94,5 +98,6 @@ VARIANT_COLUMNS = (
     "front_all",
     "recommended",
     *RETIRED_COLUMNS,
+    *STOPPED_COLUMNS,
     "plan",
 )

@@ -95,3 +95,7 @@ class ResultsFolder(ABC):
     @abstractmethod
     def race(self) -> dict | None:
         """The race over seeds as the card tells it, or None when the sweep did not race."""
+
+    @abstractmethod
+    def halving(self) -> dict | None:
+        """Successive halving's rule as the card tells it, or None when the sweep did not halve."""

@@ -20,6 +20,7 @@ from kablate.spec.fields import Where, check, read_table, read_value
 from kablate.spec.schema import (
     DataSpec,
     FilterSpec,
+    HalvingSpec,
     ModelSpec,
     NetworkSpec,
     PickSpec,
@@ -71,6 +72,7 @@ TOP_LEVEL = (
     "pick",
     "target",
     "search",
+    "halving",
 )
 
 
@@ -105,6 +107,7 @@ def sweep_from_dict(raw: dict, path: Path) -> SweepSpec:
     filters = read_table(FilterSpec, raw.get("filter", {}), where.key("filter"))
     pick = read_table(PickSpec, raw.get("pick", {}), where.key("pick"))
     target = read_table(TargetSpec, raw.get("target", {}), where.key("target"))
+    halving = read_table(HalvingSpec, raw.get("halving", {}), where.key("halving"))
     model = read_model(raw, where)
     plans = read_plans(raw.get("plan", []), where.key("plan"))
     grids = read_grids(raw.get("grid", []), where.key("grid"))
@@ -120,6 +123,14 @@ def sweep_from_dict(raw: dict, path: Path) -> SweepSpec:
             '= "best" chooses an epoch, which must not be chosen on the validation images that '
             "score it: set `data.stop_size` (e.g. 200) to carve an early-stopping fold out of "
             'the training pool, or use test_from = "last"',
+        )
+    if halving.enabled and halving.first_epoch >= recipe.epochs:
+        raise SweepError(
+            source,
+            "halving.first_epoch",
+            f"= {halving.first_epoch} leaves no rung before the recipe's last epoch "
+            f"({recipe.epochs}): successive halving would stop nothing; lower it below "
+            f"{recipe.epochs}, or set `halving.enabled = false`",
         )
     resolved = dict(raw, network=network_raw, recipe=recipe_raw)
     return SweepSpec(
@@ -139,6 +150,7 @@ def sweep_from_dict(raw: dict, path: Path) -> SweepSpec:
         model=model,
         target=target,
         search=search,
+        halving=halving,
         raw=resolved,
     )
 
@@ -156,6 +168,7 @@ class _TopLevel:
     pick: Any = None
     target: Any = None
     search: Any = None
+    halving: Any = None
 
 
 def read_model(raw: dict, where: Where) -> ModelSpec | None:

@@ -225,6 +225,18 @@ class SearchSpec:
 
 
 @dataclass(frozen=True)
+class HalvingSpec:
+    """Successive halving inside trials (``[halving]``; `kablate.trials.halving`), off unless
+    ``enabled``. A trial's validation accuracy is compared at the rungs, after ``first_epoch``
+    × ``factor``^k epochs (k = 0, 1, ...; before the recipe's last epoch), with the other
+    trials of its seed that reached the rung; one not among the best 1/``factor`` stops there."""
+
+    enabled: bool = False
+    first_epoch: int = check(at_least(1), 1)
+    factor: int = check(between(2, 64, "an integer"), 3)
+
+
+@dataclass(frozen=True)
 class PlanSpec:
     """One explicit kernel plan: a name and a kernel spec per layer group."""
 
@@ -253,4 +265,5 @@ class SweepSpec:
     model: ModelSpec | None = None  # the user's own network; then `network` is unused
     target: TargetSpec = field(default_factory=TargetSpec)  # where latency is measured
     search: SearchSpec | None = None  # a choice space to search instead of plans to enumerate
+    halving: HalvingSpec = field(default_factory=HalvingSpec)  # early stopping inside trials
     raw: dict = field(default_factory=dict, compare=False, repr=False)  # resolved TOML

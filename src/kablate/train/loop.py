@@ -270,12 +270,17 @@ def train_trial(
     threads: int = 1,
     device: str = "cpu",
     should_stop: Callable[[], bool] | None = None,
+    judge: Callable[[int, float], bool] | None = None,
 ) -> TrialRecord:
     """Train the variant ``blueprint`` builds, with ``seed``; checkpoint into ``workdir`` after
     every epoch.
 
     A NaN or inf loss, in training or validation, ends the trial with status ``diverged``
-    (its curve is kept).
+    (its curve is kept). ``judge`` (successive halving, `kablate.trials.halving`) is asked after
+    every epoch, with the epochs done and the validation accuracy; when it answers True the
+    trial ends with status ``stopped``: its score is that last validation accuracy, and nothing
+    is scored on test and no predictions are kept (an early score is no evidence of the trained
+    variant). It is asked before the epoch's checkpoint, so a trial killed in between asks again.
 
     Raises:
         TrialInterrupted: ``should_stop()`` became true; the last epoch checkpoint remains.
@@ -297,7 +302,12 @@ def train_trial(
     record = progress.record
     clock = time.perf_counter() - record.train_seconds
 
-    while progress.epoch < recipe.epochs and progress.step < steps.total:
+    # A checkpoint written as the judge stopped the trial resumes as stopped (no more epochs).
+    while (
+        record.status != "stopped"
+        and progress.epoch < recipe.epochs
+        and progress.step < steps.total
+    ):
         epoch_start = time.perf_counter()
         train_loss = train_epoch(
             model, optimizer, train, recipe, seed, progress, steps, should_stop
@@ -321,11 +331,16 @@ def train_trial(
             record.best_val_acc, record.best_epoch = chosen_acc, progress.epoch
             if recipe.test_from == "best":  # only then are these weights ever scored
                 progress.best_state = {k: v.detach().clone() for k, v in model.state_dict().items()}
+        if judge is not None and judge(progress.epoch + 1, val_acc):
+            record.status = "stopped"
+            record.note = f"stopped by successive halving after epoch {shown_epoch(progress.epoch)}"
         progress.epoch += 1
         record.steps = progress.step
         record.train_seconds = time.perf_counter() - clock
         if ckpt_path is not None:
             save_checkpoint(ckpt_path, checkpoint_state(identity, model, optimizer, progress))
+        if record.status == "stopped":
+            break
 
     record.steps, record.threads = progress.step, threads
     record.train_seconds = time.perf_counter() - clock
@@ -333,6 +348,9 @@ def train_trial(
     busy = record.train_seconds - progress.eval_seconds
     record.samples_per_second = progress.samples / max(busy, 1e-9)
     if record.status == "diverged":
+        return record
+    if record.status == "stopped":  # the last validation score, and no evidence
+        record.val_acc, record.score_epoch = record.curve[-1].val_acc, record.curve[-1].epoch
         return record
     if recipe.test_from == "best" and progress.best_state is not None:
         model.load_state_dict(progress.best_state)

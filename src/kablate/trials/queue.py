@@ -36,6 +36,7 @@ from kablate.lifecycle import (
     RANK,
     RETIRED,
     RUNNING,
+    STOPPED,
     WAITING,
     is_finished,
 )
@@ -45,15 +46,15 @@ log = logging.getLogger("kablate")
 
 
 def trial_status(trial: FrozenTrial) -> str:
-    """done | diverged | running | waiting | failed | retired (lifecycle.py: an interrupted or
-    lost trial shows as failed)."""
+    """done | diverged | stopped | running | waiting | failed | retired (lifecycle.py: an
+    interrupted or lost trial shows as failed)."""
     if trial.state == TrialState.COMPLETE:
         return DONE
     if trial.state == TrialState.RUNNING:
         return RUNNING
     if trial.state == TrialState.WAITING:
         return WAITING
-    if trial.user_attrs.get("outcome") in (DIVERGED, RETIRED):
+    if trial.user_attrs.get("outcome") in (DIVERGED, RETIRED, STOPPED):
         return trial.user_attrs["outcome"]
     return FAILED
 

@@ -1,7 +1,7 @@
 """Open an existing results folder with the study it was run on.
 
 `kablate.results.ResultsFolder` is the folder as every reader sees it; `StoredResults` adds the
-study, from which it answers the trials' rows and the race.
+study, from which it answers the trials' rows, the race and successive halving's rule.
 """
 
 from __future__ import annotations
@@ -15,6 +15,7 @@ from kablate.errors import UsageError
 from kablate.results.folder import ResultsFolder, read_records
 from kablate.results.paths import SWEEP_FILE
 from kablate.results.redact import strip_password
+from kablate.trials.halving import halving_summary
 from kablate.trials.race import race_summary
 from kablate.trials.rows import collect_trials
 from kablate.trials.store import STORAGE_ENV, open_study, resolve_url
@@ -31,6 +32,9 @@ class StoredResults(ResultsFolder):
 
     def race(self) -> dict | None:
         return race_summary(self.study)
+
+    def halving(self) -> dict | None:
+        return halving_summary(self.study)
 
 
 def open_results(path: Path, storage: str | None = None) -> StoredResults:

@@ -31,6 +31,7 @@ from kablate.train.device import check_device
 from kablate.train.loop import warm_up
 from kablate.trials.budget import calibrate, format_plan, schedule
 from kablate.trials.environment import environment
+from kablate.trials.halving import start_halving
 from kablate.trials.jobs import Job, longest_first, sweep_jobs
 from kablate.trials.liveness import liveness_for
 from kablate.trials.meta import check_definition, definition, fingerprint
@@ -310,6 +311,7 @@ def _run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
     liveness.recover(study)
     # Racing (trials/race.py): only the rounds decided so far are enqueued; workers go on.
     race = start_race(study, catalog, data.val.labels, sweep.racing, opts.budget_seconds)
+    start_halving(study, sweep)  # successive halving inside trials (trials/halving.py)
     with liveness.queue_lock():
         n_new = race.advance(study, liveness) if race else enqueue_missing(study, jobs)
     before = export_results(results_dir, study, plan)

@@ -25,13 +25,14 @@ from kablate.lifecycle import (
     MISSING,
     RETIRED,
     RUNNING,
+    STOPPED,
     WAITING,
     is_finished,
 )
 from kablate.trials.queue import trial_status
 from kablate.trials.results import StoredResults
 
-STATES = (DONE, RUNNING, WAITING, FAILED, DIVERGED, RETIRED)
+STATES = (DONE, RUNNING, WAITING, FAILED, DIVERGED, RETIRED, STOPPED)
 RECENT = 20  # finished trials that set the expected trial time
 
 
@@ -148,7 +149,8 @@ def format_status(status: SweepStatus) -> str:
     lines = [
         f"sweep {status.sweep}: {c['done']}/{status.n_trials} done, {c['running']} running, "
         f"{c['waiting']} waiting, {c['failed']} failed, {c['diverged']} diverged"
-        + (f", {c[RETIRED]} not run (variant retired by racing)" if c[RETIRED] else ""),
+        + (f", {c[RETIRED]} not run (variant retired by racing)" if c[RETIRED] else "")
+        + (f", {c[STOPPED]} stopped early (successive halving)" if c[STOPPED] else ""),
     ]
     if status.finished and status.throughput_per_hour:
         lines.append(
@@ -178,22 +180,29 @@ def format_status(status: SweepStatus) -> str:
     lines.append("")
     for entry, cell in zip(status.variants, cells, strict=True):
         acc = accuracy_text(accuracy.get(entry["variant"]))
+        if entry[STOPPED] and not acc:  # its early scores are not compared (analysis/halving.py)
+            acc = "  stopped early by successive halving: not compared"
         lines.append(f"  {entry['variant']:<{width}}  {cell:<{cell_width}}{acc}".rstrip())
     lines.append("")
-    lines.append("  # done  ~ running  x failed or diverged  . waiting  - retired (racing)")
+    lines.append(
+        "  # done  ~ running  x failed or diverged  . waiting  - retired (racing)  "
+        "/ stopped early (halving)"
+    )
     lines += standing_lines(status)
     return "\n".join(lines)
 
 
 def progress_bar(entry: dict) -> str:
     """One character per trial of a variant: '#' done, '~' running, 'x' failed or diverged,
-    '.' waiting, '-' not run because racing retired the variant."""
+    '.' waiting, '-' not run because racing retired the variant, '/' stopped early by
+    successive halving."""
     return (
         "#" * entry["done"]
         + "~" * entry["running"]
         + "x" * (entry["failed"] + entry["diverged"])
         + "." * entry["waiting"]
         + "-" * entry[RETIRED]
+        + "/" * entry[STOPPED]
     )
 
 

@@ -21,12 +21,13 @@ from optuna.trial import TrialState
 from kablate.costs.catalog import Catalog
 from kablate.data.prepare import PreparedData
 from kablate.errors import DiskFullError, is_disk_full
-from kablate.lifecycle import JobKey
+from kablate.lifecycle import STOPPED, JobKey
 from kablate.results.paths import RECORD_FILE, trial_dir
 from kablate.results.write import write_text
 from kablate.train.loop import TrialInterrupted, train_trial
 from kablate.train.record import TrialRecord
 from kablate.trials.eta import time_ratio
+from kablate.trials.halving import judge_for
 from kablate.trials.jobs import Job
 from kablate.trials.liveness import Liveness
 from kablate.trials.queue import Claim, claim_next, clean, next_waiting_key, requeue
@@ -131,6 +132,7 @@ def _train_and_tell(ctx: WorkerContext, trial: optuna.Trial, key: str) -> str:
             threads=ctx.threads,
             device=ctx.device,
             should_stop=ctx.should_stop,
+            judge=judge_for(ctx.study, trial),
         )
     except TrialInterrupted:
         put_back(ctx, trial, "interrupted")
@@ -155,6 +157,9 @@ def _train_and_tell(ctx: WorkerContext, trial: optuna.Trial, key: str) -> str:
     if record.status == "diverged":
         trial.set_user_attr("outcome", "diverged")
         ctx.study.tell(trial, state=TrialState.FAIL)
+    elif record.status == STOPPED:  # successive halving: an early score, not a result
+        trial.set_user_attr("outcome", STOPPED)
+        ctx.study.tell(trial, state=TrialState.PRUNED)
     else:
         ctx.study.tell(trial, values=[record.val_acc, float(item.cost.macs)])
     log.info(
