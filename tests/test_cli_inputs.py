@@ -177,7 +177,9 @@ def test_plan_of_several_files_prints_the_others_when_one_is_refused(tmp_path):
     out = CliRunner().invoke(main, ["plan", str(good), str(bad), "--format", "json"])
     assert out.exit_code == 2
     refused, warned = out.stderr.splitlines()  # the error, then the good file's warning
-    assert refused == f"error: {bad}: `plan` is missing: give at least one [[plan]] or [[grid]]"
+    assert refused == (
+        f"error: {bad}: `plan` is missing: give at least one [[plan]], [[grid]] or a [search] space"
+    )
     assert warned.startswith(f"{good}: warning: body-5: its receptive field is already 28x28")
     first, second = json.loads(out.stdout)
     alone = json.loads(CliRunner().invoke(main, ["plan", str(good), "--format", "json"]).stdout)
