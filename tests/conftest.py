@@ -3,6 +3,8 @@
 from __future__ import annotations
 
 import re
+import subprocess
+import sys
 import textwrap
 from pathlib import Path
 
@@ -88,3 +90,14 @@ def the_error_line(output: str) -> str:
     assert all(STEP_LINE.match(line) for line in lines[:-1]), output
     assert "Traceback" not in output
     return lines[-1]
+
+
+def kablate(*args: str, cwd=REPO) -> subprocess.CompletedProcess:
+    """Run the kablate command line in a child process, as a user would."""
+    return subprocess.run(
+        [sys.executable, "-m", "kablate", *args],
+        capture_output=True,
+        text=True,
+        cwd=cwd,
+        timeout=300,
+    )

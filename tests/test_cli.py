@@ -6,21 +6,9 @@ import csv
 import io
 import json
 import shutil
-import subprocess
-import sys
 
 from kablate import __version__
-from tests.conftest import REPO
-
-
-def kablate(*args: str, cwd=REPO) -> subprocess.CompletedProcess:
-    return subprocess.run(
-        [sys.executable, "-m", "kablate", *args],
-        capture_output=True,
-        text=True,
-        cwd=cwd,
-        timeout=300,
-    )
+from tests.conftest import REPO, kablate
 
 
 def test_help_lists_the_verbs():

@@ -10,8 +10,7 @@ from kablate.costs.screen import SpaceScreen, survey_space
 from kablate.costs.search_plan import search_lines
 from kablate.errors import SweepError
 from kablate.spec import load_sweep
-from tests.conftest import TINY_SWEEP, write_sweep
-from tests.test_cli import kablate
+from tests.conftest import TINY_SWEEP, kablate, write_sweep
 
 PLANS = TINY_SWEEP[TINY_SWEEP.index("[[plan]]") :]
 SEARCH = """

@@ -18,7 +18,7 @@ from kablate.errors import DiskFullError
 from kablate.results.paths import CHECKPOINT
 from kablate.spec import load_sweep
 from kablate.train import train_trial
-from tests.train.test_loop import SWEEP
+from tests.train.loop_sweep import SWEEP
 
 
 @pytest.fixture(scope="module")
