@@ -67,6 +67,7 @@ class Analysis:
     # (row, column) positions in ``grid`` of the baseline's and the recommended plan's cells
     grid_marks: dict[str, list[tuple[int, int]]] = field(default_factory=dict)
     race: dict | None = None  # racing: {"rule", "rounds"} (`trials.race.race_summary`), or None
+    search: dict | None = None  # a [search] sweep's search.json (`trials.search_run`), or None
 
     @property
     def recommended(self) -> str | None:

@@ -18,6 +18,7 @@ from kablate.lifecycle import RETIRED
 from kablate.plans.expand import read_plan_text
 from kablate.plans.grammar import KernelSpecError, parse_kernel
 from kablate.report.race import race_section
+from kablate.report.search import search_section
 from kablate.report.stem_card import stem_section
 from kablate.report.tables import (
     ci,
@@ -141,6 +142,7 @@ def render_card(a: Analysis, ctx: CardContext, now: datetime | None = None) -> s
         *stem_section(a.stem, a.stem_note),
         *_partial(a),
         *race_section(a),
+        *search_section(a.search),
         *_plots(ctx.plots),
         "### Caveats and recommendations",
         "",

@@ -194,6 +194,7 @@ def write_report(
     step("report", "analysing the finished trials (paired bootstrap over seeds and images)")
     analysis = analyze(rows, curves, folder.plan, folder.meta.get("grids", []), data, pick)
     analysis.race = folder.race()
+    analysis.search = folder.search()
     step("report", "writing the tables (trials, variants, curves, predictions)")
     if out is None:
         hint = "; give --out DIR to write the report elsewhere"
