@@ -50,3 +50,16 @@ def summarize_search(
         n_space,
         n_proposed,
     )
+
+
+def summarize_record(record: dict) -> SearchSummary:
+    """Summarise a search as ``search.json`` records it (`kablate.trials.search_run`): its
+    candidates in the order proposed; a trained one has an accuracy, the others None."""
+    done = [c for c in record["candidates"] if c["accuracy"] is not None]
+    return summarize_search(
+        [c["accuracy"] for c in done],
+        [c["cost"] for c in done],
+        [c["name"] for c in done],
+        record["n_space"],
+        len(record["candidates"]),
+    )

@@ -69,6 +69,7 @@ class Analysis:
     grid_marks: dict[str, list[tuple[int, int]]] = field(default_factory=dict)
     race: dict | None = None  # racing: {"rule", "rounds"} (`trials.race.race_summary`), or None
     halving: HalvingAccount | None = None  # successive halving (`halving.halving_account`)
+    search: dict | None = None  # a [search] sweep's search.json (`trials.search_run`), or None
 
     @property
     def recommended(self) -> str | None:

@@ -19,6 +19,7 @@ from kablate.plans.expand import read_plan_text
 from kablate.plans.grammar import KernelSpecError, parse_kernel
 from kablate.report.halving import halving_section
 from kablate.report.race import race_section
+from kablate.report.search import search_section
 from kablate.report.stem_card import stem_section
 from kablate.report.tables import (
     ci,
@@ -140,6 +141,7 @@ def render_card(a: Analysis, ctx: CardContext, now: datetime | None = None) -> s
         *_partial(a),
         *race_section(a),
         *halving_section(a),
+        *search_section(a.search),
         *_plots(ctx.plots),
         "### Caveats and recommendations",
         "",

@@ -143,6 +143,7 @@ def write_report(
     analysis = analyze(rows, curves, folder.plan, folder.meta.get("grids", []), data, pick)
     analysis.race = folder.race()
     analysis.halving = halving_account(folder.halving(), analysis.trials, analysis.curves)
+    analysis.search = folder.search()
     step("report", "writing the tables (trials, variants, curves, predictions)")
     if out is None:
         hint = "; give --out DIR to write the report elsewhere"

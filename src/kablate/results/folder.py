@@ -17,9 +17,10 @@ from pathlib import Path
 from typing import Any
 
 from kablate.errors import UsageError
-from kablate.results.paths import DATA_FILE, PLAN_FILE, SWEEP_FILE
+from kablate.results.paths import DATA_FILE, PLAN_FILE, SEARCH_FILE, SWEEP_FILE
 from kablate.spec.loader import sweep_from_dict
 from kablate.spec.schema import SweepSpec
+from kablate.spec.search import finalist_sweep
 
 PLAN_KEYS = ("variants", "seeds", "baseline")  # what every reader of plan.json needs
 
@@ -81,12 +82,20 @@ class ResultsFolder(ABC):
         return self.meta["name"]
 
     def sweep(self) -> SweepSpec:
-        """The sweep as it was run: its resolved settings, loaded as the sweep file would be."""
-        return sweep_from_dict(self.meta["resolved"], Path(self.meta["source"]))
+        """The sweep as it was run: its resolved settings, loaded as the sweep file would be;
+        for a ``[search]`` sweep, the finalists its search recorded (``search.json``)."""
+        sweep = sweep_from_dict(self.meta["resolved"], Path(self.meta["source"]))
+        record = self.search() if sweep.search is not None else None
+        return finalist_sweep(sweep, record) if record else sweep
 
     def data(self) -> dict:
         """The data record (``data.json``): source, sizes, split indices, scored labels."""
         return read_json(self.path / DATA_FILE)
+
+    def search(self) -> dict | None:
+        """What the search of a ``[search]`` sweep found (``search.json``), or None."""
+        path = self.path / SEARCH_FILE
+        return read_json(path) if path.is_file() else None
 
     @abstractmethod
     def rows(self) -> tuple[list[dict], list[dict]]:

@@ -18,6 +18,7 @@ VARIANTS_FILE = "variants.csv"  # one row per variant, written by the report
 VARIANTS_JSON = "variants.json"  # the same, as JSON: what `kablate export` reads
 TRIALS_JSON = "trials.json"
 RUN_LOG = "run.log"
+SEARCH_FILE = "search.json"  # a [search] sweep's proposals and finalists (trials/search_run.py)
 JOURNAL = "study.journal"  # the default storage (trials/store.py)
 LOCKS = "locks"  # per-trial liveness locks of a local storage (trials/liveness.py)
 REPORT_DIR = "report"  # the model card and plots, unless `kablate report --out DIR`

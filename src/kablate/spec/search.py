@@ -7,13 +7,14 @@ not need the network is checked here, so that each error names its key.
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass
 from typing import Literal
 
 from kablate.plans.space import space_size
 from kablate.spec.bounds import MAX_SEED
 from kablate.spec.fields import Where, at_least, between, check, read_table
-from kablate.spec.schema import PickSpec, SearchSpec
+from kablate.spec.schema import PickSpec, PlanSpec, SearchSpec, SweepSpec
 
 SEARCH_COSTS = ("macs", "params")  # the static costs a search may minimise (known untrained)
 
@@ -62,3 +63,14 @@ def read_search(raw: dict, where: Where, pick: PickSpec) -> SearchSpec | None:
         )
     cost = table.cost or (pick.cost if pick.cost in SEARCH_COSTS else "macs")
     return SearchSpec(table.choices, table.budget, cost, table.seed)
+
+
+def finalist_sweep(sweep: SweepSpec, record: dict) -> SweepSpec:
+    """The sweep the runner trains: ``sweep``'s explicit plans plus the finalists of its search
+    (``record``, as in ``search.json``), with no ``[search]`` left and its baseline named."""
+    plans = tuple(sweep.plans) + tuple(
+        PlanSpec(f["name"], dict(f["plan"]), "search.finalists") for f in record["finalists"]
+    )
+    return dataclasses.replace(
+        sweep, plans=plans, search=None, baseline=sweep.baseline or record["baseline"]
+    )

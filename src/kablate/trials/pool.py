@@ -37,6 +37,7 @@ from kablate.trials.jobs import Job, claim_order, sweep_jobs
 from kablate.trials.liveness import Liveness, liveness_for
 from kablate.trials.queue import trial_status
 from kablate.trials.rows import collect_trials
+from kablate.trials.search_run import recorded_finalists
 from kablate.trials.status import duration
 from kablate.trials.store import lock_dir, open_study
 from kablate.trials.worker import WorkerContext, work
@@ -133,6 +134,7 @@ def _worker_main(
     stop.install()
     sweep = load_sweep(sweep_path)
     results_dir = Path(results_root) / sweep.name
+    sweep = recorded_finalists(sweep, results_dir)  # a [search] sweep trains its finalists
     setup_logging(results_dir, to_console=False)
     catalog = build_catalog(sweep)
     study = open_study(sweep.name, results_dir, url)

@@ -48,6 +48,7 @@ from kablate.trials.queue import enqueue_missing, job_status, tagged_trials
 from kablate.trials.race import start_race
 from kablate.trials.rows import collect_trials
 from kablate.trials.search import refuse_search_run
+from kablate.trials.search_run import run_search
 from kablate.trials.store import lock_dir, open_study, resolve_url, storage_exists
 
 log = logging.getLogger("kablate")
@@ -218,7 +219,7 @@ def dry_run(sweep_path: Path, opts: RunOptions) -> RunSummary:
     """Calibrate and print the estimate and order without training or writing results."""
     step("start-up", f"reading {sweep_path} and costing its variants")
     sweep = load_sweep(sweep_path)
-    refuse_search_run(sweep)
+    refuse_search_run(sweep, "with --dry-run")
     catalog = build_catalog(sweep)
     results_dir = opts.results_root / sweep.name
     url = resolve_url(opts.storage)
@@ -272,7 +273,8 @@ def _run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
     started, started_at = time.time(), datetime.now()  # Optuna's trial times are naive local
     step("start-up", f"reading {sweep_path} and costing its variants")
     sweep = load_sweep(sweep_path)
-    refuse_search_run(sweep)
+    if opts.budget_seconds:  # the estimate and the budget do not count the search's trials yet
+        refuse_search_run(sweep, "with --budget")
     catalog = build_catalog(sweep)
     results_dir = opts.results_root / sweep.name
     url = resolve_url(opts.storage)
@@ -280,10 +282,14 @@ def _run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
     writable_folder(results_dir, "results folder", "; choose another with --results DIR")
     setup_logging(results_dir, to_console=not interactive, steps_on_console=True)
     study = open_study(sweep.name, results_dir, url)
-    jobs = sweep_jobs(catalog)
-    layout = choose_layout(opts.workers, opts.threads, len(jobs))
     step("start-up", f"preparing the data ({sweep.data.source})")
     data = prepare_data(sweep.data)
+    if sweep.search is not None:  # search first (one process), then train its finalists
+        threads = choose_layout(1, opts.threads, 1)[1]
+        sweep = run_search(catalog, data, results_dir, url, threads, opts.device)
+        catalog = build_catalog(sweep)
+    jobs = sweep_jobs(catalog)
+    layout = choose_layout(opts.workers, opts.threads, len(jobs))
     n_variants = len(catalog.variants)
     step(
         "start-up",

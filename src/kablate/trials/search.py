@@ -32,7 +32,8 @@ evolutionary algorithm does (common practice).
 A study that already holds trials (a resumed run) continues where it stopped: its evaluated
 networks count against the budget and are never evaluated again; a trial that a kill left
 RUNNING is told FAIL (``outcome = "interrupted"``) and its plan may be proposed again. One
-process at a time owns a search study (several workers sharing one are not supported yet).
+process at a time owns a search study (several workers sharing one are not supported yet);
+`kablate.trials.search_run` runs it for `kablate run`.
 """
 
 from __future__ import annotations
@@ -194,9 +195,9 @@ def read_candidate(trial: FrozenTrial) -> Candidate | None:
     )
 
 
-def refuse_search_run(sweep) -> None:
-    """`kablate run` does not search yet: refuse a ``[search]`` sweep rather than train only the
-    plans its search would start from.
+def refuse_search_run(sweep, how: str) -> None:
+    """`kablate run` ``how`` (``--dry-run``, ``--budget``) cannot search yet: refuse a
+    ``[search]`` sweep rather than estimate or budget only the finalists' trials.
 
     Raises:
         SweepError: naming the ``search`` key of the sweep file.
@@ -205,9 +206,9 @@ def refuse_search_run(sweep) -> None:
         raise SweepError(
             sweep.source,
             "search",
-            "declares a space to search, which `kablate run` cannot train yet: `kablate plan` "
-            "shows its size and what the budget covers; to train every plan, write the same "
-            "choices as a [[grid]]",
+            f"declares a space to search, which `kablate run` {how} cannot do yet (its "
+            "estimate would leave out the search's trials): run it without that option; "
+            "`kablate plan` shows the space's size and what the budget covers",
         )
 
 

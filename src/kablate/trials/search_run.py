@@ -1,0 +1,141 @@
+"""`kablate run` on a ``[search]`` sweep: search the space, then train the finalists.
+
+A sweep with a ``[search]`` table runs in two phases:
+
+1. search (`run_search`): NSGA-II (`kablate.trials.search.search_front`) trains ``budget``
+   plans of the space with the sweep's first seed and recipe, in this one process. Its trials
+   live in a second Optuna study, ``<sweep name>.search``, in the sweep's own storage (the
+   journal file, or ``--storage``), so that rerunning the command continues it: evaluated
+   plans are never trained again, and a plan a kill cut short may be proposed again.
+2. finalists: the plans on the front it found, the baseline and the sweep's explicit
+   ``[[plan]]`` tables become explicit plans (`finalist_sweep`), recorded in ``search.json``,
+   and the normal runner trains them with every seed (racing unchanged). So the report's
+   decision rule applies to them as to any sweep's plans.
+
+A finalist is named as a grid cell is (`kablate.plans.expand.cell_name`), as the search's
+start plans already are. The workers read the finalists from ``search.json`` too.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import logging
+from pathlib import Path
+
+from kablate.console import step
+from kablate.costs.screen import SpaceScreen
+from kablate.errors import UsageError
+from kablate.nets.layout import layout_network
+from kablate.plans.expand import Variant, cell_name
+from kablate.plans.groups import resolve_kernels
+from kablate.plans.space import start_plans
+from kablate.results.folder import read_json
+from kablate.results.paths import SEARCH_FILE
+from kablate.results.write import write_json
+from kablate.spec.schema import SweepSpec
+from kablate.spec.search import finalist_sweep
+from kablate.train.loop import train_trial
+from kablate.trials.liveness import host_lock
+from kablate.trials.search import (
+    SearchResult,
+    default_population,
+    search_front,
+    search_study,
+)
+from kablate.trials.store import lock_dir, open_storage
+
+log = logging.getLogger("kablate")
+
+SEARCH_SUFFIX = ".search"  # the search study's name is the sweep's with this suffix
+SEARCH_LOCK = "search.lock"  # held by the process that runs the search, in the locks folder
+
+
+def search_study_name(sweep_name: str) -> str:
+    """The name of a sweep's search study, beside its own study in the same storage."""
+    return sweep_name + SEARCH_SUFFIX
+
+
+def run_search(
+    catalog, data, results_dir: Path, url: str | None, threads: int, device: str
+) -> SweepSpec:
+    """Run (or continue) the search of a costed ``[search]`` sweep (`Catalog`); write
+    ``search.json`` and return the sweep of its finalists (`finalist_sweep`)."""
+    sweep = catalog.sweep
+    search = sweep.search
+    seed = sweep.seeds[0]
+    study = search_study(
+        search.seed,
+        default_population(search.budget),
+        storage=open_storage(results_dir, url),
+        study_name=search_study_name(sweep.name),
+        load_if_exists=True,
+    )
+
+    def score(plan: dict[str, str]) -> float:
+        variant = Variant(cell_name(plan), plan, resolve_kernels(sweep.network, plan))
+        layout = layout_network(sweep.network, variant, catalog.in_shape, catalog.n_classes)
+        step("search", f"training {variant.name} with seed {seed}")
+        record = train_trial(layout, sweep.recipe, data, seed=seed, threads=threads, device=device)
+        return record.val_acc
+
+    step("search", f"NSGA-II over the [search] space: {search.budget} plans with seed {seed}")
+    # One process owns a search study: a second run of the sweep on this machine waits here,
+    # then finds the search done. (Not across machines: see sweeps/README.md.)
+    with host_lock(lock_dir(results_dir, url) / SEARCH_LOCK):
+        result = search_front(
+            search.choices,
+            SpaceScreen.of(catalog),
+            score,
+            search.budget,
+            search.seed,
+            study=study,
+            first=start_plans(search.choices),
+        )
+    log.info(
+        "search: %d plans trained of %d proposed; %d on the front",
+        len(result.evaluated),
+        len(result.candidates),
+        len(result.front),
+    )
+    record = search_record(result, catalog)
+    write_json(results_dir / SEARCH_FILE, record)
+    return finalist_sweep(sweep, record)
+
+
+def search_record(result: SearchResult, catalog) -> dict:
+    """What ``search.json`` holds: the search's settings, every proposal in order, and the
+    finalists (front, then the baseline unless it is on the front)."""
+    sweep = catalog.sweep
+    baseline = catalog.baseline.variant
+    finalists = [{"name": cell_name(c.plan), "plan": c.plan} for c in result.front]
+    if not any(f["plan"] == baseline.plan for f in finalists):
+        finalists.append({"name": baseline.name, "plan": baseline.plan})
+    return {
+        "study": search_study_name(sweep.name),
+        "method": "NSGA-II (Deb et al. 2002), optuna.samplers.NSGAIISampler",
+        "sampler_seed": sweep.search.seed,
+        "training_seed": sweep.seeds[0],
+        "budget": result.budget,
+        "cost": sweep.search.cost,
+        "n_space": result.n_space,
+        "baseline": baseline.name,
+        "candidates": [
+            dict(dataclasses.asdict(c), name=cell_name(c.plan)) for c in result.candidates
+        ],
+        "finalists": finalists,
+    }
+
+
+def recorded_finalists(sweep: SweepSpec, results_dir: Path) -> SweepSpec:
+    """A worker's sweep: for a ``[search]`` sweep, the finalists ``kablate run`` recorded in
+    ``search.json``; any other sweep as it is.
+
+    Raises:
+        UsageError: a ``[search]`` sweep whose ``search.json`` is missing or damaged.
+    """
+    if sweep.search is None:
+        return sweep
+    path = results_dir / SEARCH_FILE
+    if not path.is_file():
+        raise UsageError(f"{path} is missing: `kablate run` searches the space before training")
+    return finalist_sweep(sweep, read_json(path))
