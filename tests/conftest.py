@@ -101,3 +101,20 @@ def kablate(*args: str, cwd=REPO) -> subprocess.CompletedProcess:
         cwd=cwd,
         timeout=300,
     )
+
+
+TINY_PLANS = TINY_SWEEP[TINY_SWEEP.index("[[plan]]") :]
+TINY_SEARCH = """
+[search]
+budget = 3
+
+[search.choices]
+stem = ["3", "5"]
+stage1 = ["3", "5", "3:stack"]
+stage2 = ["3", "3:depthwise"]
+"""
+
+
+def search_sweep(tmp_path, search=TINY_SEARCH, extra=""):
+    """The tiny sweep with a [search] space (2 × 3 × 2 = 12 plans, budget 3) for its plans."""
+    return write_sweep(tmp_path, TINY_SWEEP.replace(TINY_PLANS, search + extra))

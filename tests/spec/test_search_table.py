@@ -10,22 +10,7 @@ from kablate.costs.screen import SpaceScreen, survey_space
 from kablate.costs.search_plan import search_lines
 from kablate.errors import SweepError
 from kablate.spec import load_sweep
-from tests.conftest import TINY_SWEEP, kablate, write_sweep
-
-PLANS = TINY_SWEEP[TINY_SWEEP.index("[[plan]]") :]
-SEARCH = """
-[search]
-budget = 3
-
-[search.choices]
-stem = ["3", "5"]
-stage1 = ["3", "5", "3:stack"]
-stage2 = ["3", "3:depthwise"]
-"""
-
-
-def search_sweep(tmp_path, search=SEARCH, extra=""):
-    return write_sweep(tmp_path, TINY_SWEEP.replace(PLANS, search + extra))
+from tests.conftest import TINY_PLANS, TINY_SEARCH, TINY_SWEEP, kablate, search_sweep, write_sweep
 
 
 def test_a_search_table_reads_its_space_budget_and_cost(tmp_path):
@@ -52,7 +37,7 @@ def test_a_search_table_reads_its_space_budget_and_cost(tmp_path):
 )
 def test_bad_search_tables_name_the_key(tmp_path, old, new, key, words):
     with pytest.raises(SweepError) as caught:
-        load_sweep(search_sweep(tmp_path, SEARCH.replace(old, new)))
+        load_sweep(search_sweep(tmp_path, TINY_SEARCH.replace(old, new)))
     assert caught.value.key == key
     assert all(w in str(caught.value) for w in words), str(caught.value)
 
@@ -75,7 +60,7 @@ def test_search_beside_a_grid_or_without_choices_is_refused(tmp_path):
     ],
 )
 def test_groups_and_specs_the_network_refuses_name_the_key(tmp_path, old, new, key):
-    sweep = load_sweep(search_sweep(tmp_path, SEARCH.replace(old, new)))
+    sweep = load_sweep(search_sweep(tmp_path, TINY_SEARCH.replace(old, new)))
     with pytest.raises(SweepError) as caught:
         build_catalog(sweep)
     assert caught.value.key == key
@@ -83,9 +68,9 @@ def test_groups_and_specs_the_network_refuses_name_the_key(tmp_path, old, new, k
 
 def grid_twin(tmp_path, filters=""):
     """The same choices as a [[grid]], which `kablate plan` enumerates, costs and filters."""
-    grid = SEARCH.replace("[search]\nbudget = 3\n\n[search.choices]", "[[grid]]")
+    grid = TINY_SEARCH.replace("[search]\nbudget = 3\n\n[search.choices]", "[[grid]]")
     return build_catalog(
-        load_sweep(write_sweep(tmp_path, TINY_SWEEP.replace(PLANS, grid + filters), "grid"))
+        load_sweep(write_sweep(tmp_path, TINY_SWEEP.replace(TINY_PLANS, grid + filters), "grid"))
     )
 
 
@@ -122,7 +107,7 @@ def test_plan_prints_the_space_and_the_budgets_share(tmp_path):
 
 
 def test_plan_and_run_refuse_bad_input_with_exit_2(tmp_path):
-    path = search_sweep(tmp_path, SEARCH.replace("budget = 3", "budget = 99"))
+    path = search_sweep(tmp_path, TINY_SEARCH.replace("budget = 3", "budget = 99"))
     out = kablate("plan", str(path), cwd=tmp_path)
     assert out.returncode == 2 and "`search.budget`" in out.stderr and "Traceback" not in out.stderr
     out = kablate("run", str(search_sweep(tmp_path)), "--dry-run", cwd=tmp_path)

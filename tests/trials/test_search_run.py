@@ -22,9 +22,8 @@ from kablate.trials.results import open_results
 from kablate.trials.search import INTERRUPTED
 from kablate.trials.search_run import search_study_name
 from kablate.trials.store import open_storage
-from tests.spec.test_search_table import search_sweep
-from tests.test_cli import kablate
-from tests.trials import test_resume as resume
+from tests.conftest import kablate, search_sweep
+from tests.trials import runs
 
 
 def run(sweep: Path, results: Path, *extra: str):
@@ -104,7 +103,7 @@ def test_a_search_killed_mid_training_resumes_with_the_same_command(tmp_path):
     (tmp_path / "configs" / "tiny-recipe.toml").write_text("epochs = 8\nbatch_size = 64\n")
     results = tmp_path / "results"
     args = ["run", str(sweep), "--workers", "1", "--results", str(results), "--no-report"]
-    proc = resume.kablate(*args, storage=None, cwd=tmp_path, wait=False)
+    proc = runs.kablate(*args, storage=None, cwd=tmp_path, wait=False)
     journal = results / "tiny" / JOURNAL
     deadline, study = time.time() + 120, None
     while time.time() < deadline:
@@ -125,7 +124,7 @@ def test_a_search_killed_mid_training_resumes_with_the_same_command(tmp_path):
     proc.wait()
     before = {t.number: t.values for t in searched_trials(results) if t.values}
 
-    again = resume.kablate(*args, storage=None, cwd=tmp_path)
+    again = runs.kablate(*args, storage=None, cwd=tmp_path)
     assert again.returncode == 0, again.stderr[-3000:]
     trials = searched_trials(results)
     assert {t.number: t.values for t in trials if t.number in before} == before  # kept
