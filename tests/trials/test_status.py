@@ -114,7 +114,9 @@ def test_a_finished_sweep_reports_its_throughput_over_the_time_trials_ran():
 # A third plan cheaper than the baseline, and a wide margin, so that the rule has a cheaper plan
 # to weigh; the sweep is cut after its first seed.
 PARTIAL_SWEEP = (
-    TINY_SWEEP.replace("seeds = [0, 1]", "seeds = [0]")
+    # racing off: a --budget run would otherwise race, and the wide margin retires the
+    # costlier plans for futility after seed 0, so the second seed would not all wait
+    TINY_SWEEP.replace("seeds = [0, 1]", 'seeds = [0]\nracing = "off"')
     + '\n[[plan]]\nname = "stem-1"\nstem = "1"\n\n[pick]\nmargin = 20.0\n'
 )
 
@@ -127,7 +129,7 @@ def partial_sweep(tmp_path_factory) -> Path:
     path = write_sweep(root, PARTIAL_SWEEP)
     opts = RunOptions(results_root=root / "results", workers=1, show_progress=False)
     run_sweep(path, opts)
-    path.write_text(PARTIAL_SWEEP.replace("seeds = [0]", "seeds = [0, 1]"))
+    path.write_text(PARTIAL_SWEEP.replace("seeds = [0]\n", "seeds = [0, 1]\n"))
     opts.budget_seconds, opts.echo = 0.001, lambda text: None
     summary = run_sweep(path, opts)
     assert summary.counts == {"done": 3, "waiting": 3}
