@@ -99,7 +99,7 @@ class Layer:
     def _window(
         cls, name: str, kind: str, channels: Pair, window: Pair, hws: tuple[Pair, Pair], **flags
     ) -> Layer:
-        """A layer that slides ``window`` by itself, unpadded and undilated, in one group."""
+        """A layer that moves ``window`` by itself, unpadded and undilated, in one group."""
         (in_ch, out_ch), (in_hw, out_hw) = channels, hws
         return cls(
             name, kind, in_ch, out_ch, window, window, NO_PADDING, ONE, 1, in_hw, out_hw, **flags
