@@ -13,22 +13,29 @@ import zlib
 
 import numpy as np
 
+from kablate.results.data_record import DataRecord
 from kablate.results.evidence import encode_predictions
 
 N_IMAGES = 100
 N_CLASSES = 10
 
 
-def data_json(n_images: int = N_IMAGES, n_classes: int = N_CLASSES) -> dict:
-    """The parts of data.json the analysis reads."""
+def data_json(n_images: int = N_IMAGES, n_classes: int = N_CLASSES) -> DataRecord:
+    """A data record (data.json) whose scored images are labelled 0, 1, …, n_classes - 1 in turn."""
     labels = [i % n_classes for i in range(n_images)]
-    return {
-        "n_classes": n_classes,
-        "classes": [str(c) for c in range(n_classes)],
-        "sizes": {"train": 500, "val": n_images, "test": n_images},
-        "indices": {"val": list(range(n_images)), "test": list(range(n_images))},
-        "labels": {"val": labels, "test": labels},
-    }
+    return DataRecord(
+        source="synthetic",
+        test_pool="held out",
+        sizes={"train": 500, "val": n_images, "test": n_images},
+        n_classes=n_classes,
+        in_shape=(3, 8, 8),
+        mean=(0.0, 0.0, 0.0),
+        std=(1.0, 1.0, 1.0),
+        indices_sha1={"train": "t", "val": "v", "test": "s"},
+        indices={"val": list(range(n_images)), "test": list(range(n_images))},
+        classes=tuple(str(c) for c in range(n_classes)),
+        labels={"val": labels, "test": labels},
+    )
 
 
 def predictions_for(acc: float, key: str, n_images: int = N_IMAGES) -> str:

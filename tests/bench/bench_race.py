@@ -34,8 +34,6 @@ from pathlib import Path
 from optuna.trial import TrialState
 
 from kablate.analysis.summary import analyze, pick_settings
-from kablate.results.folder import read_json
-from kablate.results.paths import DATA_FILE
 from kablate.trials import open_results
 
 REPO = Path(__file__).resolve().parents[2]
@@ -100,7 +98,7 @@ def read_run(path: Path, wall: float, load: str) -> dict:
     folder = open_results(path)
     done = [t for t in folder.study.get_trials() if t.state == TrialState.COMPLETE]
     rows, curves = folder.rows()
-    data = read_json(folder.path / DATA_FILE)
+    data = folder.data()
     analysis = analyze(rows, curves, folder.plan, folder.meta.get("grids", []), data,
                        pick_settings(folder.meta))  # fmt: skip
     seconds = defaultdict(list)

@@ -5,6 +5,7 @@ from __future__ import annotations
 import pytest
 
 from kablate.report.card import CardContext
+from kablate.results.data_record import DataRecord
 
 
 @pytest.fixture
@@ -28,6 +29,9 @@ def card_context() -> CardContext:
         "in_shape": [1, 8, 8],
         "n_classes": 10,
         "test_pool": "held out",
+        "mean": [0.5],
+        "std": [0.25],
         "indices_sha1": {"train": "t", "val": "v", "test": "s"},
+        "indices": {"train": list(range(10)), "val": list(range(5)), "test": list(range(5))},
     }
-    return CardContext(meta, data, "0", ("a.png",), "MACs")
+    return CardContext(meta, DataRecord.from_dict(data, "data.json"), "0", ("a.png",), "MACs")

@@ -247,14 +247,13 @@ def test_without_a_finished_baseline_there_is_no_verdict_and_no_map(results, car
     from kablate.analysis.summary import analyze
     from kablate.report.card import render_card
     from kablate.report.trained import erf_maps
-    from kablate.results.folder import read_json
 
     folder = open_results(results)
     rows, curves = folder.rows()
     for row in rows:  # as if the baseline's trials had not run yet
         if row["variant"] == "all-3":
             row.update(status="waiting", val_acc=None, test_acc=None)
-    data = read_json(results / "data.json")
+    data = folder.data()
     analysis = analyze(rows, curves, folder.plan, folder.meta.get("grids", []), data)
     assert analysis.decision is None  # no baseline to compare with
     assert "has not finished" in render_card(analysis, card_context)

@@ -14,7 +14,6 @@ from optuna.trial import TrialState, create_trial
 
 from kablate.analysis.standing import stand
 from kablate.analysis.summary import analyze
-from kablate.results.paths import DATA_FILE
 from kablate.spec.schema import PickSpec
 from kablate.trials import RunOptions, open_results, run_sweep
 from kablate.trials.status import format_status, summarize
@@ -141,7 +140,7 @@ def reference(folder: Path, rows: list[dict] | None = None):
     [pick] written out here rather than read back through `pick_settings`."""
     results = open_results(folder)
     found, curves = results.rows()
-    data = json.loads((folder / DATA_FILE).read_text())
+    data = results.data()
     pick = PickSpec(margin=20.0)
     return analyze(rows or found, curves, results.plan, [], data, pick)
 
@@ -202,8 +201,7 @@ def test_without_a_finished_baseline_there_is_no_leader_and_status_says_why(part
     for row in rows:  # as if the baseline's trial were still running
         if row["variant"] == "all-3":
             row["status"] = "running"
-    data = json.loads((partial_sweep / DATA_FILE).read_text())
-    standing = stand(rows, curves, folder.plan, [], data, PickSpec(margin=20.0))
+    standing = stand(rows, curves, folder.plan, [], folder.data(), PickSpec(margin=20.0))
     analysis = reference(partial_sweep, rows)
     assert analysis.decision is None and standing.leader is None
     assert standing.note == (

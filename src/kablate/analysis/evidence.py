@@ -14,6 +14,7 @@ import pandas as pd
 
 from kablate.errors import KablateError
 from kablate.lifecycle import DONE
+from kablate.results.data_record import DataRecord
 from kablate.results.evidence import decode_predictions
 
 
@@ -61,13 +62,13 @@ class Evidence:
 
 
 def gather_evidence(
-    trials: pd.DataFrame, data: dict, seeds: list[int] | None, split: str = "val"
+    trials: pd.DataFrame, data: DataRecord, seeds: list[int] | None, split: str = "val"
 ) -> Evidence | None:
     """The evidence of the variants that finished every one of the compared seeds.
 
     Args:
         trials: `analysis.tables.trial_frame` rows, with their ``predictions``.
-        data: the content of ``data.json`` (``labels`` of every scored split).
+        data: the data record (``labels`` of every scored split).
         seeds: the seeds to compare on (None: those the finished variants share).
 
     Returns:
@@ -80,7 +81,7 @@ def gather_evidence(
     done = trials[trials["status"] == DONE]
     if done.empty:
         return None
-    if "labels" not in data:
+    if data.labels is None:
         raise KablateError(
             "data.json lists no labels: this results folder was written before kablate kept "
             "per-image predictions; rerun the sweep into a new results folder"
@@ -88,7 +89,7 @@ def gather_evidence(
     if seeds is None:
         sets = [set(g["seed"].astype(int)) for _, g in done.groupby("variant_id")]
         seeds = sorted(set.intersection(*sets))
-    labels = np.asarray(data["labels"][split], dtype=np.int64)
+    labels = np.asarray(data.labels[split], dtype=np.int64)
     names, correct, predicted = [], [], []
     for name, mine in done.groupby("variant", sort=False):
         by_seed = {int(r.seed): r.predictions for r in mine.itertuples()}

@@ -57,6 +57,7 @@ from kablate.analysis.decide import ALPHA, Accuracy, accuracies
 from kablate.analysis.evidence import Evidence, gather_evidence
 from kablate.lifecycle import RETIRED
 from kablate.results.columns import RETIRED_COLUMNS
+from kablate.results.data_record import DataRecord
 
 # Why a variant was retired: it loses more than the margin to a variant that costs no more, or
 # (futility) it costs more than the baseline and gains less than the margin over it.
@@ -181,7 +182,7 @@ def put_retired(variants: pd.DataFrame, retired: pd.DataFrame) -> None:
         variants[column] = pd.array(values, dtype=kind)
 
 
-def retired_accuracies(retired: pd.DataFrame, data: dict, split: str) -> dict[str, Accuracy]:
+def retired_accuracies(retired: pd.DataFrame, data: DataRecord, split: str) -> dict[str, Accuracy]:
     """Each retired variant's accuracy and bootstrap interval on its own finished seeds (fewer
     than the others': its interval is wider)."""
     out = {}

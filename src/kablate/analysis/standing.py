@@ -16,6 +16,7 @@ from dataclasses import dataclass, field
 
 from kablate.analysis.summary import Analysis, analyze
 from kablate.lifecycle import DONE
+from kablate.results.data_record import DataRecord
 from kablate.spec.schema import PickSpec
 
 COUNT_COLUMNS = ("n_seeds", "n_planned")
@@ -46,12 +47,17 @@ class Standing:
 
 
 def stand(
-    rows: list[dict], curves: list[dict], plan: dict, grids: list[dict], data: dict, pick: PickSpec
+    rows: list[dict],
+    curves: list[dict],
+    plan: dict,
+    grids: list[dict],
+    data: DataRecord,
+    pick: PickSpec,
 ) -> Standing:
     """The standing of a (possibly partial) sweep from `ResultsFolder.rows` output.
 
     Args:
-        plan, grids, data: ``plan.json``, ``sweep.json``'s ``grids``, ``data.json``.
+        plan, grids, data: ``plan.json``, ``sweep.json``'s ``grids``, the data record.
         pick: the selection rule's settings (`summary.pick_settings`).
 
     Raises:

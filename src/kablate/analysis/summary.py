@@ -40,6 +40,7 @@ from kablate.errors import UsageError
 from kablate.lifecycle import DONE, FINISHED, SETTLED
 from kablate.plans.expand import cell_name, grid_cells
 from kablate.results.columns import CURVE_COLUMNS
+from kablate.results.data_record import DataRecord
 from kablate.spec.costs import COSTS
 from kablate.spec.fields import Where, read_table
 from kablate.spec.schema import PickSpec
@@ -108,7 +109,7 @@ def analyze(
     curves: list[dict],
     plan: dict,
     grids: list[dict],
-    data: dict,
+    data: DataRecord,
     pick: PickSpec | None = None,
 ) -> Analysis:
     """Tables, fronts, the recommended plan and the baseline comparisons.
@@ -117,7 +118,7 @@ def analyze(
         rows, curves: `ResultsFolder.rows` output.
         plan: the content of ``plan.json``.
         grids: the sweep's grids (``sweep.json``'s ``grids``).
-        data: the content of ``data.json`` (labels of the scored images, class names).
+        data: the data record (labels of the scored images, class names).
         pick: the selection rule's settings (default: the non-inferiority rule, 1 pp, MACs).
     """
     pick = pick or PickSpec()
@@ -161,14 +162,13 @@ def analyze(
     show_retired(variants, trials[~racing], data)
     put_stopped(variants, trials)
     variants["recommended"] = variants["variant"] == (decision.recommended if decision else "")
-    n_classes = int(data.get("n_classes") or len(data.get("classes", [])) or 2)
     flags = variant_flags(
         trials[trials["status"].isin(FINISHED)],
         curves_frame,
         dict(zip(evidence.names, evidence.n_correct.tolist(), strict=True)) if evidence else {},
         evidence.n_images if evidence else 0,
         len(evidence.seeds) if evidence else 0,
-        n_classes,
+        data.n_classes,
     )
     variants["flags"] = ["; ".join(flags.get(n, [])) for n in variants["variant"]]
     return Analysis(
@@ -185,7 +185,7 @@ def analyze(
         grid_table(variants, plan, grids),
         grid_table(variants, plan, grids, ci_half_width(variants)),
         seeds=seeds,
-        classes=tuple(str(c) for c in data.get("classes", range(n_classes))),
+        classes=data.classes,
         grid_marks=grid_marks(
             variants,
             plan,
@@ -242,7 +242,7 @@ def put_accuracies(
         variants[column] = [getattr(acc[n], attr) if n in acc else old[i] for i, n in names.items()]
 
 
-def show_retired(variants: pd.DataFrame, retired: pd.DataFrame, data: dict) -> None:
+def show_retired(variants: pd.DataFrame, retired: pd.DataFrame, data: DataRecord) -> None:
     """What racing did (in place): the ``retired_*`` columns, and each retired variant's
     accuracy and correct count on its own seeds, then the fronts again."""
     put_retired(variants, retired)
@@ -270,7 +270,7 @@ def observed_resolution(evidence: Evidence, decision: Decision) -> Resolution | 
 
 def contrast_on_test(
     trials: pd.DataFrame,
-    data: dict,
+    data: DataRecord,
     seeds: list[int] | None,
     decision: Decision | None,
     variants: pd.DataFrame,

@@ -13,6 +13,7 @@ from kablate.costs.latency import NOISY_IQR_RATIO, Latency, Timing, crosses_back
 from kablate.costs.static import LayerCost, StaticCost
 from kablate.nets.model_variant import ModelVariant
 from kablate.plans.expand import plan_text
+from kablate.spec.costs import COSTS, Cost
 
 
 def layer_json(row: LayerCost) -> dict:
@@ -49,13 +50,15 @@ def cost_json(cost: StaticCost | GraphCost) -> dict:
     }
 
 
+def timing_fields(cost: Cost) -> tuple[str, ...]:
+    """The fields of a timed cost (`Cost.timing`): median, first and third quartile at batch 1
+    (its median is the cost's `column`, the figure a selection on it uses), then the same at
+    ``latency_batch_size``."""
+    return tuple(cost.timing(stat, batch) for batch in (False, True) for stat in ("", "q1", "q3"))
+
+
 LATENCY_FIELDS = (
-    "latency_ms",  # median at batch 1: the figure `[pick] cost = "latency"` selects on
-    "latency_q1_ms",
-    "latency_q3_ms",
-    "latency_batch_ms",  # median at latency_batch_size
-    "latency_batch_q1_ms",
-    "latency_batch_q3_ms",
+    *timing_fields(COSTS["latency"]),
     "latency_noisy",
     "latency_rounds",
     "latency_batch_size",
@@ -68,28 +71,18 @@ LATENCY_FIELDS = (
 # ONNX Runtime's figures, taken in the same rounds as torch's (the `onnx` extra); where it was
 # not measured, `ort_absent` says why.
 ORT_FIELDS = (
-    "ort_latency_ms",  # median at batch 1: the figure `[pick] cost = "ort_latency"` selects on
-    "ort_latency_q1_ms",
-    "ort_latency_q3_ms",
-    "ort_latency_batch_ms",
-    "ort_latency_batch_q1_ms",
-    "ort_latency_batch_q3_ms",
+    *timing_fields(COSTS["ort_latency"]),
     "ort_latency_noisy",
     "onnxruntime_version",
     "ort_absent",
 )
 
 
-def timing_json(prefix: str, one: Timing, many: Timing) -> dict:
-    """The medians and quartiles at batch 1 and at the batch size, as ``<prefix>latency_*``."""
-    return {
-        f"{prefix}latency_ms": one.median_ms,
-        f"{prefix}latency_q1_ms": one.q1_ms,
-        f"{prefix}latency_q3_ms": one.q3_ms,
-        f"{prefix}latency_batch_ms": many.median_ms,
-        f"{prefix}latency_batch_q1_ms": many.q1_ms,
-        f"{prefix}latency_batch_q3_ms": many.q3_ms,
-    }
+def timing_json(cost: Cost, one: Timing, many: Timing) -> dict:
+    """The medians and quartiles at batch 1 and at the batch size, under the fields the timed
+    ``cost`` names (`Cost.timing`)."""
+    values = (one.median_ms, one.q1_ms, one.q3_ms, many.median_ms, many.q1_ms, many.q3_ms)
+    return dict(zip(timing_fields(cost), values, strict=True))
 
 
 def latency_json(latency: Latency | None, baseline: Latency | None = None) -> dict:
@@ -99,7 +92,7 @@ def latency_json(latency: Latency | None, baseline: Latency | None = None) -> di
         return dict.fromkeys(LATENCY_FIELDS + ORT_FIELDS)
     return {
         **ort_json(latency),
-        **timing_json("", latency.batch1, latency.batch),
+        **timing_json(COSTS["latency"], latency.batch1, latency.batch),
         "latency_noisy": latency.noisy,
         "latency_rounds": latency.batch1.n,
         "latency_batch_size": latency.batch_size,
@@ -117,7 +110,7 @@ def ort_json(latency: Latency) -> dict:
     if ort is None:
         return dict(dict.fromkeys(ORT_FIELDS), ort_absent=latency.ort_absent)
     return {
-        **timing_json("ort_", ort.batch1, ort.batch),
+        **timing_json(COSTS["ort_latency"], ort.batch1, ort.batch),
         "ort_latency_noisy": ort.noisy,
         "onnxruntime_version": ort.version,
         "ort_absent": None,

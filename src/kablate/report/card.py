@@ -36,9 +36,12 @@ from kablate.report.verdict import (
     pct,
     rule_sentence,
 )
+from kablate.results.data_record import DataRecord
 from kablate.spec.costs import COSTS
 from kablate.spec.fields import Where, read_table
 from kablate.spec.schema import NetworkSpec, RecipeSpec
+
+LATENCY = COSTS["latency"].column  # the median at batch 1 the card quotes
 
 STAMP_PREFIX = "Generated "
 CAUTION = (
@@ -81,7 +84,7 @@ class CardContext:
     """What the card says about where the numbers came from (all from the results folder)."""
 
     meta: dict  # sweep.json
-    data: dict  # data.json
+    data: DataRecord  # data.json
     version: str  # kablate's version writing the card
     plots: tuple[str, ...]  # PNG file names, relative to the card
     cost_label: str  # "MACs", "params" or "latency"
@@ -227,7 +230,7 @@ def _details(a: Analysis, ctx: CardContext) -> list[str]:
         "- Costs, counted before training: parameters; MACs (multiply-accumulates of conv and "
         "linear layers, FLOPs = 2 × MACs); the theoretical receptive field at the head "
         "(Araujo, Norris & Sim 2019)"
-        + ("; CPU latency at batch 1." if a.variants["latency_ms"].notna().any() else "."),
+        + ("; CPU latency at batch 1." if a.variants[LATENCY].notna().any() else "."),
         "- Uncertainty: every trial keeps the class it predicted for every validation and test "
         "image (`predictions.csv.gz`). Intervals come from a paired two-level bootstrap that "
         "resamples seeds, then images, with the same draw for every plan (Bouthillier et al. "
@@ -240,14 +243,14 @@ def _details(a: Analysis, ctx: CardContext) -> list[str]:
     return out
 
 
-def _data_sections(data: dict) -> list[str]:
-    sizes, sha = data["sizes"], data["indices_sha1"]
-    c, h, w = data["in_shape"]
+def _data_sections(data: DataRecord) -> list[str]:
+    sizes, sha = data.sizes, data.indices_sha1
+    c, h, w = data.in_shape
     return [
         "### Training data",
         "",
-        f"- Source `{data['source']}`: {sizes['train']} training images ({c}×{h}×{w}, "
-        f"{data['n_classes']} classes), a fixed-seed, class-balanced subset; normalisation "
+        f"- Source `{data.source}`: {sizes['train']} training images ({c}×{h}×{w}, "
+        f"{data.n_classes} classes), a fixed-seed, class-balanced subset; normalisation "
         "statistics from the training images only.",
         f"- Split index digest: train `{sha['train']}` (SHA-1 prefix; the full index lists are "
         "in `data.json`).",
@@ -264,7 +267,7 @@ def _data_sections(data: dict) -> list[str]:
             if "stop" in sizes
             else []
         ),
-        f"- Test: {sizes['test']} images, {data['test_pool']} (`{sha['test']}`); reported, "
+        f"- Test: {sizes['test']} images, {data.test_pool} (`{sha['test']}`); reported, "
         "never used to choose.",
         "",
     ]
@@ -275,7 +278,8 @@ def _recommendation(a: Analysis, ctx: CardContext) -> list[str]:
     if d is None:
         return []
     rec = a.variants.set_index("variant").loc[d.recommended]
-    latency = f", {rec['latency_ms']:.3g} ms" if math.isfinite(rec["latency_ms"]) else ""
+    ms = rec[LATENCY]
+    latency = f", {ms:.3g} ms" if math.isfinite(ms) else ""
     acc = d.accuracy[d.recommended]
     out = [
         "#### Recommended plan",

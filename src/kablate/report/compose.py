@@ -25,6 +25,7 @@ from kablate.report.plots import (
 from kablate.report.stem_card import STEM_FILTERS, STEM_SEEDS_TABLE, STEM_TABLE
 from kablate.report.stem_plots import plot_stem_atlas, plot_stem_spectrum
 from kablate.results.columns import TRIAL_COLUMNS, VARIANT_COLUMNS
+from kablate.results.data_record import DataRecord
 from kablate.results.folder import ResultsFolder
 from kablate.results.paths import CARD_FILE, REPORT_DIR, TRIALS_JSON, VARIANTS_FILE, VARIANTS_JSON
 from kablate.results.redact import scrub
@@ -34,7 +35,7 @@ from kablate.spec.costs import COSTS
 from kablate.spec.schema import PickSpec
 
 
-def subtitle(meta: dict, data: dict) -> str:
+def subtitle(meta: dict, data: DataRecord) -> str:
     """Sweep, dataset, seeds and budget, for every plot."""
     recipe = meta["resolved"].get("recipe", {})
     seeds = ",".join(map(str, meta["seeds"]))
@@ -44,12 +45,12 @@ def subtitle(meta: dict, data: dict) -> str:
     if meta.get("budget_seconds"):
         budget += f", {meta['budget_seconds'] / 3600:.2g} h budget"
     return (
-        f"sweep {meta['name']} · {data['source']} ({data['sizes']['train']} train, "
-        f"{data['sizes']['val']} val) · seeds {seeds} · {budget}"
+        f"sweep {meta['name']} · {data.source} ({data.sizes['train']} train, "
+        f"{data.sizes['val']} val) · seeds {seeds} · {budget}"
     )
 
 
-def write_tables(out: Path, analysis: Analysis, data: dict) -> None:
+def write_tables(out: Path, analysis: Analysis, data: DataRecord) -> None:
     """trials.csv/json, variants.csv/json, curves.csv and predictions.csv.gz in ``out``."""
     rows = analysis.trials.to_dict("records")
     write_predictions(out, rows, data)

@@ -12,7 +12,7 @@ from kablate.analysis.summary import Analysis
 from kablate.costs.latency import NOISY_IQR_RATIO, Timing
 from kablate.costs.plan_output import human
 from kablate.report.verdict import cost_ratio, pct, pp
-from kablate.spec.costs import COSTS
+from kablate.spec.costs import COSTS, Cost
 
 
 def flag(value) -> bool:
@@ -151,13 +151,13 @@ def memory_table(a: Analysis, batch_size: int) -> list[str]:
     return lines + [""]
 
 
-def _timing(row, prefix: str, at: str) -> str:
-    """'0.48 [0.45, 0.52]' from a variant row's ``<prefix>latency<at>_*`` fields; '!' marks a
-    noisy timing, '-' a missing one."""
-    median = getattr(row, f"{prefix}latency{at}_ms")
+def _timing(row, cost: Cost, batch: bool) -> str:
+    """'0.48 [0.45, 0.52]' from a variant row's fields of the timed ``cost`` at batch 1 or at
+    the latency batch size; '!' marks a noisy timing, '-' a missing one."""
+    median = getattr(row, cost.timing(batch=batch))
     if pd.isna(median):
         return "-"
-    q1, q3 = getattr(row, f"{prefix}latency{at}_q1_ms"), getattr(row, f"{prefix}latency{at}_q3_ms")
+    q1, q3 = getattr(row, cost.timing("q1", batch)), getattr(row, cost.timing("q3", batch))
     timing = Timing(median, q1, q3, 0)
     return timing.text() + (" !" if timing.noisy else "")
 
@@ -165,15 +165,17 @@ def _timing(row, prefix: str, at: str) -> str:
 def latency_table(a: Analysis) -> list[str]:
     """CPU latency under torch and, beside it, ONNX Runtime (or why it is absent), each a
     median with its interquartile range; empty when latency was not measured."""
+    timed = COSTS["latency"], COSTS["ort_latency"]  # the table's columns: torch's, then ORT's
+    torch_ms, ort_ms = (cost.column for cost in timed)
     v = a.variants
-    if v["latency_ms"].isna().all():
+    if v[torch_ms].isna().all():
         return []
-    v = v.sort_values(["latency_ms", "variant"])
+    v = v.sort_values([torch_ms, "variant"])
     first = v.iloc[0]
     if pd.isna(first["latency_batch_size"]):  # a plan from before the statistic
         return []
     batch = int(first["latency_batch_size"])
-    ort = v[v["ort_latency_ms"].notna()]
+    ort = v[v[ort_ms].notna()]
     if len(ort):
         beside = (
             f" ONNX Runtime {ort.iloc[0]['onnxruntime_version']} ran the network exported to "
@@ -197,9 +199,9 @@ def latency_table(a: Analysis) -> list[str]:
         "|---|---:|---:|---:|---:|---:|",
     ]
     for row in v.itertuples():
-        cells = [_timing(row, p, at) for p in ("", "ort_") for at in ("", "_batch")]
-        measured = pd.notna(row.ort_latency_ms)
-        shown = f"{row.ort_latency_ms / row.latency_ms:.2f}" if measured else "-"
+        cells = [_timing(row, cost, batch) for cost in timed for batch in (False, True)]
+        ort, torch = getattr(row, ort_ms), getattr(row, torch_ms)
+        shown = f"{ort / torch:.2f}" if pd.notna(ort) else "-"
         lines.append(f"| {row.variant} | {' | '.join(cells)} | {shown} |")
     return lines + [""]
 

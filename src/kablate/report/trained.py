@@ -9,11 +9,14 @@ from kablate.analysis.summary import Analysis
 from kablate.errors import KablateError
 from kablate.lifecycle import DONE
 from kablate.results.checkpoint import scored_states
+from kablate.results.data_record import DataRecord
 from kablate.results.folder import ResultsFolder
 from kablate.results.paths import TRIALS_DIR
 
 
-def erf_maps(folder: ResultsFolder, analysis: Analysis, data: dict) -> tuple[list[ErfMap], str]:
+def erf_maps(
+    folder: ResultsFolder, analysis: Analysis, data: DataRecord
+) -> tuple[list[ErfMap], str]:
     """Maps for the recommended plan and the baseline (one map if they are the same).
 
     Returns:
@@ -56,7 +59,7 @@ def erf_maps(folder: ResultsFolder, analysis: Analysis, data: dict) -> tuple[lis
         prepared = prepare_data(sweep.data)
     except (KablateError, OSError, ValueError) as exc:
         return [], f"the sweep's data could not be loaded here ({type(exc).__name__}: {exc})"
-    if prepared.manifest()["indices_sha1"]["val"] != data["indices_sha1"]["val"]:
+    if prepared.manifest()["indices_sha1"]["val"] != data.indices_sha1["val"]:
         return [], "the validation split loaded here differs from the one the sweep used"
     layouts = {cv.variant.id: cv.blueprint for cv in catalog.variants}
     maps = []

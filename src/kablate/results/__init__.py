@@ -10,12 +10,14 @@ from kablate.results.columns import (
     TRIAL_COLUMNS,
     VARIANT_COLUMNS,
 )
+from kablate.results.data_record import DataRecord
 from kablate.results.folder import ResultsFolder, read_json, read_records
 from kablate.results.paths import checkpoint_path, trial_dir
 from kablate.results.write import atomic_write, write_csv, write_json, write_text
 
 __all__ = [
     "CURVE_COLUMNS",
+    "DataRecord",
     "PREDICTION_COLUMNS",
     "TRIAL_COLUMNS",
     "VARIANT_COLUMNS",

@@ -2,7 +2,8 @@
 
 `ResultsFolder` is what every reader (status, report, export) takes. It holds ``sweep.json``
 (`meta`) and ``plan.json`` (`plan`), checked on opening, and reads the rest on request: the
-resolved sweep as a `SweepSpec` (`sweep`), the data record (`data`). Its trials live in the
+resolved sweep as a `SweepSpec` (`sweep`), the data record as a
+`DataRecord` (`data`). Its trials live in the
 sweep's storage, which only `kablate.trials` opens: `kablate.trials.open_results` returns a
 subclass that answers `rows` and `race` from the study. So report/ reads a results folder
 without importing trials/.
@@ -17,6 +18,7 @@ from pathlib import Path
 from typing import Any
 
 from kablate.errors import UsageError
+from kablate.results.data_record import DataRecord
 from kablate.results.paths import DATA_FILE, PLAN_FILE, SEARCH_FILE, SWEEP_FILE
 from kablate.spec.loader import sweep_from_dict
 from kablate.spec.schema import SweepSpec
@@ -88,9 +90,14 @@ class ResultsFolder(ABC):
         record = self.search() if sweep.search is not None else None
         return finalist_sweep(sweep, record) if record else sweep
 
-    def data(self) -> dict:
-        """The data record (``data.json``): source, sizes, split indices, scored labels."""
-        return read_json(self.path / DATA_FILE)
+    def data(self) -> DataRecord:
+        """The data record (``data.json``): source, sizes, split indices, scored labels.
+
+        Raises:
+            UsageError: the file is missing or damaged, or lacks a key.
+        """
+        path = self.path / DATA_FILE
+        return DataRecord.from_dict(read_json(path), path)
 
     def search(self) -> dict | None:
         """What the search of a ``[search]`` sweep found (``search.json``), or None."""

@@ -14,6 +14,7 @@ from pathlib import Path
 
 from kablate.lifecycle import DONE
 from kablate.results.columns import CURVE_COLUMNS, PREDICTION_COLUMNS, TRIAL_COLUMNS
+from kablate.results.data_record import DataRecord
 from kablate.results.evidence import SPLITS, decode_predictions
 from kablate.results.paths import CURVES_FILE, PREDICTIONS_FILE, TRIALS_FILE
 from kablate.results.write import atomic_write, write_csv
@@ -25,7 +26,7 @@ def write_trial_tables(folder: Path, rows: list[dict], curves: list[dict]) -> No
     write_csv(folder / CURVES_FILE, curves, CURVE_COLUMNS)
 
 
-def write_predictions(folder: Path, rows: list[dict], data: dict) -> int:
+def write_predictions(folder: Path, rows: list[dict], data: DataRecord) -> int:
     """predictions.csv.gz in ``folder`` from trial rows (finished trials with their encoded
     predictions) and the data record's indices and labels; return its number of rows."""
     n = 0
@@ -45,7 +46,7 @@ def write_predictions(folder: Path, rows: list[dict], data: dict) -> int:
                     if not encoded or row.get("status") != DONE:
                         continue
                     predicted = decode_predictions(encoded).tolist()
-                    index, label = data["indices"][split], data["labels"][split]
+                    index, label = data.indices[split], data.labels[split]
                     for i, y, p in zip(index, label, predicted, strict=True):
                         writer.writerow((row["variant"], row["seed"], split, i, y, p))
                     n += len(predicted)

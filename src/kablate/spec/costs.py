@@ -30,6 +30,14 @@ class Cost:
         """The variants table's column: whether a variant is on this cost's Pareto front."""
         return f"front_{self.name}"
 
+    def timing(self, stat: str = "", batch: bool = False) -> str:
+        """A timed cost's field in plan.json: its median (``stat`` "") or a quartile ("q1",
+        "q3"), at batch 1 or, with ``batch``, at the latency batch size; `column` is the median
+        at batch 1. `costs/plan_output.timing_json` writes them."""
+        assert self.timed, f"{self.name} is not a timing"
+        stem = self.column.removesuffix("_ms")
+        return "_".join(part for part in (stem, "batch" if batch else "", stat, "ms") if part)
+
     @property
     def plot(self) -> str:
         """The file name (without suffix) of the accuracy-against-this-cost plot."""
