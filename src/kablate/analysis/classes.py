@@ -13,12 +13,14 @@ from sklearn.metrics import confusion_matrix
 from kablate.analysis.evidence import Evidence
 
 
-def confusion(evidence: Evidence, name: str) -> np.ndarray:
-    """Rows: true class; columns: predicted class (``sklearn.metrics.confusion_matrix``)."""
+def confusion(evidence: Evidence, name: str, n_classes: int = 0) -> np.ndarray:
+    """Rows: true class; columns: predicted class (``sklearn.metrics.confusion_matrix``); at
+    least ``n_classes`` of each, even where the last classes were never scored or predicted."""
     v = evidence.index(name)
     n_seeds = evidence.predicted.shape[1]
     truth = np.tile(evidence.labels, n_seeds)
-    n_classes = int(max(evidence.labels.max(), evidence.predicted.max())) + 1
+    seen = int(max(evidence.labels.max(), evidence.predicted.max())) + 1
+    n_classes = max(n_classes, seen)
     return confusion_matrix(truth, evidence.predicted[v].ravel(), labels=range(n_classes))
 
 
@@ -31,7 +33,7 @@ def per_class_accuracy(
     counts = np.bincount(evidence.labels, minlength=len(classes))[: len(classes)]
     out["n_images"] = counts
     for name in names:
-        m = confusion(evidence, name)[: len(classes), : len(classes)]
+        m = confusion(evidence, name, len(classes))[: len(classes), : len(classes)]
         with np.errstate(invalid="ignore", divide="ignore"):
             out[name] = np.diag(m) / m.sum(axis=1)
     return out
