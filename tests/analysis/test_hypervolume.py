@@ -64,17 +64,3 @@ def test_history_grows_and_ends_at_the_whole_set():
     # By hand: 0.5 × 8 = 4.0; then (0.4, 1) adds 1 × 0.4 = 0.4; then (0.8, 6) adds
     # 4 × 0.3 = 1.2; (0.6, 8) is dominated.
     assert history == pytest.approx([4.0, 4.4, 5.6, 5.6])
-
-
-def test_a_search_summary_holds_its_front_history_and_shares():
-    from kablate.analysis.search import summarize_search
-
-    # Four trained plans of a 16-plan space, out of 6 proposals; reference (0, 8), the largest
-    # cost. By hand: (0.5, 2) → 0.5 × 6 = 3.0; (0.9, 8) adds nothing at the reference's cost;
-    # (0.7, 4) adds 4 × 0.2 = 0.8; (0.6, 6) is dominated by (0.7, 4).
-    summary = summarize_search([0.5, 0.9, 0.7, 0.6], [2, 8, 4, 6], ["a", "b", "c", "d"], 16, 6)
-    assert (summary.reference.accuracy, summary.reference.cost) == (0.0, 8)
-    assert summary.history == pytest.approx([3.0, 3.0, 3.8, 3.8])
-    assert summary.on_front == [True, True, True, False]
-    assert summary.share_evaluated == 4 / 16
-    assert summary.share_of_box == pytest.approx(3.8 / 8)
