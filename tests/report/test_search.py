@@ -5,6 +5,7 @@ tests/analysis/test_search.py."""
 from __future__ import annotations
 
 from kablate.report.search import search_section
+from tests.report.markdown import md_table
 
 RECORD = {
     "n_space": 16,
@@ -21,20 +22,9 @@ RECORD = {
 }
 
 
-def table(lines: list[str], header: str) -> list[list[str]]:
-    """The cells of the Markdown table whose header starts with ``header``."""
-    start = next(i for i, line in enumerate(lines) if line.startswith(header))
-    rows = []
-    for line in lines[start + 2 :]:
-        if not line.startswith("|"):
-            break
-        rows.append([cell.strip() for cell in line.strip("|").split("|")])
-    return rows
-
-
 def test_the_front_table_lists_the_front_of_the_trained_plans_with_their_figures():
     lines = search_section(RECORD)
-    assert table(lines, "| plan on the front found") == [
+    assert md_table(lines, "| plan on the front found") == [
         ["a", "2,000", "50.00%"],
         ["b", "8,000", "90.00%"],
         ["c", "4,000", "70.00%"],
@@ -47,7 +37,7 @@ def test_the_front_table_lists_the_front_of_the_trained_plans_with_their_figures
 def test_the_hypervolume_table_shows_the_plans_that_moved_the_front_and_the_last():
     # reference: accuracy 0 and the largest MACs trained, 8,000; box 8,000
     # a: 0.5 × 6,000 = 3,000; b adds nothing; c adds 0.2 × 4,000 = 800; d adds nothing
-    rows = table(search_section(RECORD), "| plans trained")
+    rows = md_table(search_section(RECORD), "| plans trained")
     assert rows == [["1", "3000", "37.5%"], ["3", "3800", "47.5%"], ["4", "3800", "47.5%"]]
 
 
