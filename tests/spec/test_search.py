@@ -1,16 +1,14 @@
-"""The [search] table of a sweep: what it reads, every refusal naming its key, and what
-`kablate plan` says about the space, checked against the same choices written as a grid."""
+"""The [search] table of a sweep: what it reads, and every refusal naming its key (what
+`kablate plan` says about the space: tests/costs/test_screen.py, test_search_plan.py)."""
 
 from __future__ import annotations
 
 import pytest
 
 from kablate.costs.catalog import build_catalog
-from kablate.costs.screen import SpaceScreen, survey_space
-from kablate.costs.search_plan import search_lines
 from kablate.errors import SweepError
 from kablate.spec import load_sweep
-from tests.conftest import TINY_PLANS, TINY_SEARCH, TINY_SWEEP, kablate, search_sweep, write_sweep
+from tests.conftest import TINY_SEARCH, kablate, search_sweep
 
 
 def test_a_search_table_reads_its_space_budget_and_cost(tmp_path):
@@ -64,46 +62,6 @@ def test_groups_and_specs_the_network_refuses_name_the_key(tmp_path, old, new, k
     with pytest.raises(SweepError) as caught:
         build_catalog(sweep)
     assert caught.value.key == key
-
-
-def grid_twin(tmp_path, filters=""):
-    """The same choices as a [[grid]], which `kablate plan` enumerates, costs and filters."""
-    grid = TINY_SEARCH.replace("[search]\nbudget = 3\n\n[search.choices]", "[[grid]]")
-    return build_catalog(
-        load_sweep(write_sweep(tmp_path, TINY_SWEEP.replace(TINY_PLANS, grid + filters), "grid"))
-    )
-
-
-@pytest.mark.parametrize("filters", ["", "\n[filter]\nmax_macs = 60_000\n"])
-def test_the_survey_counts_what_the_grid_keeps_and_drops(tmp_path, filters):
-    catalog = build_catalog(load_sweep(search_sweep(tmp_path, extra=filters)))
-    survey = survey_space(catalog.sweep.search.choices, SpaceScreen.of(catalog))
-    twin = grid_twin(tmp_path, filters)
-    # the grid merges plans that build one network ("3:stack" is "3") and drops what the
-    # filters rule out; the survey must agree on both counts
-    assert survey.n_plans == 12
-    assert survey.n_networks == len(twin.variants)
-    dropped_plans = sum(1 + len(item.variant.aliases) for item, _ in twin.dropped)
-    assert survey.n_ruled_out == dropped_plans
-    if filters:
-        assert survey.n_ruled_out > 0
-
-
-def test_plan_prints_the_space_and_the_budgets_share(tmp_path):
-    path = search_sweep(tmp_path, extra="\n[filter]\nmax_macs = 60_000\n")
-    catalog = build_catalog(load_sweep(path))
-    survey = survey_space(catalog.sweep.search.choices, SpaceScreen.of(catalog))
-    text = " ".join(" ".join(search_lines(catalog)).split())  # unwrapped
-    assert "12 plans in the space (stem 2 × stage1 3 × stage2 2)" in text
-    assert "budget 3 plans trained with seed 0 = 25.0% of the space" in text
-    share = f"{100 * 3 / survey.n_networks:.1f}%"
-    assert (
-        f"{survey.n_networks} distinct networks remain, of which the budget covers {share}" in text
-    )
-    out = kablate("plan", str(path), cwd=tmp_path)
-    assert out.returncode == 0, out.stderr
-    assert "25.0% of the space" in out.stdout
-    assert max(len(line) for line in out.stdout.splitlines()) <= 100
 
 
 def test_plan_and_run_refuse_bad_input_with_exit_2(tmp_path):
