@@ -54,11 +54,13 @@ def start(study: optuna.Study, first: int, factor: int, epochs: int) -> None:
     study.set_user_attr(RULE_ATTR, halving_rule(HalvingSpec(True, first, factor), epochs))
 
 
-def run_job(study: optuna.Study, job: Job, curve: list[float]) -> int | None:
+def run_job(
+    study: optuna.Study, job: Job, curve: list[float], baseline: str | None = None
+) -> int | None:
     """Claim ``job``'s trial, feed its curve to the judge epoch by epoch; the stopping epoch."""
     requeue(study, job)
     trial = study.ask()  # pops the waiting trial just queued (DEVELOPERS.md: Optuna 5.0)
-    judge = judge_for(study, trial)
+    judge = judge_for(study, trial, baseline)
     for epoch, value in enumerate(curve, start=1):
         if judge(epoch, value):
             trial.set_user_attr("outcome", "stopped")
@@ -103,6 +105,27 @@ def test_each_seed_competes_on_its_own(tmp_path):
     assert run_job(study, Job("va", "a", 0), [0.9] * 4) is None
     assert run_job(study, Job("vb", "b", 1), [0.2] * 4) is None  # alone at seed 1: it leads
     assert run_job(study, Job("vc", "c", 1), [0.1] * 4) == 1
+
+
+def test_the_baseline_is_never_stopped(tmp_path):
+    # The report compares every variant with the baseline on every seed, so halving must let
+    # it train to the end even when it trails at every rung.
+    study = open_study("halving", tmp_path, None)
+    start(study, 1, 2, 8)  # rungs after epochs 1, 2 and 4
+    assert run_job(study, Job("va", "a", 0), [0.9] * 8, baseline="vbase") is None
+    assert run_job(study, Job("vbase", "base", 0), [0.1] * 8, baseline="vbase") is None
+    decided = [
+        t.user_attrs[f"halving-rung-{k}"]
+        for t in study.get_trials()
+        if t.user_attrs["variant_id"] == "vbase"
+        for k in range(3)
+    ]
+    assert [d["kept"] for d in decided] == [True] * 3 and decided[0]["n_compared"] == 2
+    # The same curve on a variant that is not the baseline stops at the first rung, where it
+    # was compared with the baseline's recorded score too.
+    assert run_job(study, Job("vb", "b", 0), [0.1] * 8, baseline="vbase") == 1
+    (vb,) = [t for t in study.get_trials() if t.user_attrs["variant_id"] == "vb"]
+    assert vb.user_attrs["halving-rung-0"]["n_compared"] == 3
 
 
 def test_no_judge_without_the_rule(tmp_path):

@@ -18,6 +18,8 @@ every machine sharing the study reads the same scores and decisions:
 - A decision is made once per job: a job resumed after a kill reads its earlier decision at
   that rung (from any of its trials) instead of deciding again, so a job that was stopped stays
   stopped and one that went on goes on.
+- The baseline is never stopped: the report compares every variant with it on every seed, so
+  its judge always promotes it. It still records its score, which the others compete with.
 - A stopped trial ends with state PRUNED and ``outcome = "stopped"`` (lifecycle.STOPPED); its
   ``val_acc`` is the last epoch's validation accuracy, and it stores no predictions.
 
@@ -88,6 +90,7 @@ class Judge:
     job: str
     seed: int
     rule: dict
+    baseline: bool = False  # the baseline always goes on (module docstring)
 
     def __call__(self, epochs_done: int, val_acc: float) -> bool:
         rungs = self.rule["rungs"]
@@ -101,7 +104,7 @@ class Judge:
         storage = self.study._storage  # noqa: SLF001 (a claimed trial's attributes)
         storage.set_trial_user_attr(self.trial_id, f"{SCORE_PREFIX}{k}", val_acc)
         competing = rung_scores(self.study.get_trials(deepcopy=False), self.seed, k, self.job)
-        kept = promoted(val_acc, competing, int(self.rule["factor"]))
+        kept = self.baseline or promoted(val_acc, competing, int(self.rule["factor"]))
         decision = {
             "epoch": epochs_done,
             "value": val_acc,
@@ -140,10 +143,14 @@ def rung_scores(trials: list[FrozenTrial], seed: int, k: int, job: str) -> list[
     return list(found.values())
 
 
-def judge_for(study: optuna.Study, trial: optuna.Trial) -> Callable[[int, float], bool] | None:
-    """A worker's judge for its claimed ``trial``, or None when the study does not halve."""
+def judge_for(
+    study: optuna.Study, trial: optuna.Trial, baseline_id: str | None = None
+) -> Callable[[int, float], bool] | None:
+    """A worker's judge for its claimed ``trial``, or None when the study does not halve.
+    ``baseline_id``: the sweep's baseline variant, which the judge always promotes."""
     rule = study.user_attrs.get(RULE_ATTR)
     if not rule or not rule.get("rungs"):
         return None
     attrs = trial.user_attrs
-    return Judge(study, trial._trial_id, attrs["job"], int(attrs["seed"]), rule)
+    is_baseline = baseline_id is not None and attrs.get("variant_id") == baseline_id
+    return Judge(study, trial._trial_id, attrs["job"], int(attrs["seed"]), rule, is_baseline)

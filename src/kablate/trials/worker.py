@@ -132,7 +132,7 @@ def _train_and_tell(ctx: WorkerContext, trial: optuna.Trial, key: str) -> str:
             threads=ctx.threads,
             device=ctx.device,
             should_stop=ctx.should_stop,
-            judge=judge_for(ctx.study, trial),
+            judge=judge_for(ctx.study, trial, ctx.catalog.baseline.variant.id),
         )
     except TrialInterrupted:
         put_back(ctx, trial, "interrupted")
