@@ -1,6 +1,8 @@
 """Successive halving in the study (trials/halving.py): the judge stops the trials that
 Optuna's own SuccessiveHalvingPruner prunes, on synthetic learning curves (no training), on the
-journal file and on PostgreSQL; a job's decision survives a resume; seeds compete apart."""
+journal file and on PostgreSQL; a job's decision survives a resume; seeds compete apart; the
+baseline is never stopped; a stopped variant's other seeds are withdrawn, never claimed, never
+enqueued again, and listed in trials.csv's rows as retired."""
 
 from __future__ import annotations
 
@@ -9,11 +11,21 @@ import optuna
 import pytest
 from optuna.trial import TrialState
 
+from kablate.lifecycle import RETIRED, STOPPED
 from kablate.spec.schema import HalvingSpec
 from kablate.trials.halving import RULE_ATTR, halving_rule, judge_for
 from kablate.trials.jobs import Job
-from kablate.trials.queue import requeue
-from kablate.trials.store import open_study
+from kablate.trials.liveness import liveness_for
+from kablate.trials.queue import (
+    Claim,
+    claim_next,
+    enqueue_missing,
+    requeue,
+    trial_status,
+    withdraw_halted,
+)
+from kablate.trials.rows import collect_trials
+from kablate.trials.store import lock_dir, open_study
 
 optuna.logging.set_verbosity(optuna.logging.WARNING)
 
@@ -145,3 +157,86 @@ def test_optunas_pruners_refuse_our_two_objective_study(tmp_path):
         trial.report(0.5, 1)
     with pytest.raises(NotImplementedError, match="multi-objective"):
         trial.should_prune()
+
+
+# Two variants x two seeds, claimed seed-major as the runner orders them.
+JOBS_2X2 = [Job(v, v, seed) for seed in (0, 1) for v in ("va", "vb")]
+PLAN_2X2 = {
+    "seeds": [0, 1],
+    "variants": [{"id": v, "name": v, "params": 1, "macs": 1, "rf": 3} for v in ("va", "vb")],
+}
+
+
+def train_claimed(study: optuna.Study, claim: Claim, curve: list[float], liveness) -> None:
+    """What a worker does with a claimed trial (worker.py), on a synthetic curve."""
+    judge = judge_for(study, claim.trial)
+    for epoch, value in enumerate(curve, start=1):
+        if judge(epoch, value):
+            claim.trial.set_user_attr("outcome", STOPPED)
+            study.tell(claim.trial, state=TrialState.PRUNED)
+            withdraw_halted(study, liveness)
+            break
+    else:
+        study.tell(claim.trial, values=[curve[-1], 1.0])
+    liveness.release(claim.token)
+
+
+def job_states(study: optuna.Study) -> dict[str, list[str]]:
+    out: dict[str, list[str]] = {}
+    for t in study.get_trials():
+        out.setdefault(t.user_attrs["job"], []).append(trial_status(t))
+    return out
+
+
+def test_a_stopped_variant_gets_no_more_seeds(storage, tmp_path):
+    study = open_study("halving", tmp_path, storage)
+    liveness = liveness_for(study, lock_dir(tmp_path, storage))
+    start(study, 1, 2, 4)
+    assert enqueue_missing(study, JOBS_2X2) == 4
+    order = {job.key: i for i, job in enumerate(JOBS_2X2)}
+    train_claimed(study, claim_next(study, liveness, order), [0.9] * 4, liveness)  # va-s0
+    train_claimed(study, claim_next(study, liveness, order), [0.2] * 4, liveness)  # vb-s0
+    # vb stopped on seed 0: its seed-1 trial was withdrawn, and only va-s1 is left to claim.
+    assert job_states(study)["vb-s0"] == [STOPPED]
+    assert job_states(study)["vb-s1"] == [RETIRED]
+    (withdrawn,) = [t for t in study.get_trials() if t.user_attrs["job"] == "vb-s1"]
+    assert withdrawn.user_attrs["retired_why"] == STOPPED
+    assert withdrawn.user_attrs["retired_after"] == 0
+    claim = claim_next(study, liveness, order)
+    assert claim.key == "va-s1"
+    train_claimed(study, claim, [0.9] * 4, liveness)
+    assert claim_next(study, liveness, order) is None
+    # A rerun enqueues nothing for vb; trials.csv lists vb-s1 as not run after seed 0.
+    assert enqueue_missing(study, JOBS_2X2) == 0
+    rows = {(r["variant_id"], r["seed"]): r for r in collect_trials(study, PLAN_2X2)[0]}
+    assert rows["vb", 1]["status"] == RETIRED
+    assert (rows["vb", 1]["retired_why"], rows["vb", 1]["retired_after"]) == (STOPPED, 0)
+    assert rows["vb", 0]["status"] == STOPPED and rows["va", 1]["retired_why"] is None
+
+
+def stop_vb_on_seed_0(tmp_path, storage):
+    """A study where va went on and vb stopped on seed 0, with nothing else queued."""
+    study = open_study("halving", tmp_path, storage)
+    liveness = liveness_for(study, lock_dir(tmp_path, storage))
+    start(study, 1, 2, 4)
+    enqueue_missing(study, JOBS_2X2[:2])
+    train_claimed(study, claim_next(study, liveness), [0.9] * 4, liveness)
+    train_claimed(study, claim_next(study, liveness), [0.2] * 4, liveness)
+    assert job_states(study)["vb-s0"] == [STOPPED]
+    return study, liveness
+
+
+def test_a_claim_that_wins_a_stopped_variants_trial_withdraws_it(storage, tmp_path):
+    # A runner that read the queue before the stop may still enqueue the variant's next seed;
+    # the claim, which looks again after its compare-and-set, must not train it.
+    study, liveness = stop_vb_on_seed_0(tmp_path, storage)
+    requeue(study, Job("vb", "vb", 1))  # as that runner would
+    assert claim_next(study, liveness) is None
+    assert job_states(study)["vb-s1"] == [RETIRED]
+
+
+def test_with_halving_off_a_stopped_variants_seeds_run(tmp_path):
+    study, liveness = stop_vb_on_seed_0(tmp_path, None)
+    assert enqueue_missing(study, JOBS_2X2) == 1  # va-s1 only
+    study.set_user_attr(RULE_ATTR, None)  # a run with halving off (halving.start_halving)
+    assert enqueue_missing(study, JOBS_2X2) == 1  # now vb-s1 too

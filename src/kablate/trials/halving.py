@@ -22,6 +22,11 @@ every machine sharing the study reads the same scores and decisions:
   its judge always promotes it. It still records its score, which the others compete with.
 - A stopped trial ends with state PRUNED and ``outcome = "stopped"`` (lifecycle.STOPPED); its
   ``val_acc`` is the last epoch's validation accuracy, and it stores no predictions.
+- A variant stopped on one seed gets no more seeds (`halted_variants`): the report never
+  compares it (analysis/halving.py), so its other seeds would train for nothing. Its waiting
+  trials are withdrawn and the runner enqueues none of its jobs (`trials.queue.withdraw_halted`,
+  `trials.queue.enqueue_missing`); trials.csv lists those seeds as retired with
+  ``retired_why = "stopped"``. A run with halving off trains them.
 
 Only the trials of the same seed compete: they share their initialisation seed, data order and
 augmentation (a paired comparison, as in the report). Which trials reached a rung first depends
@@ -36,9 +41,10 @@ from collections.abc import Callable
 from dataclasses import dataclass
 
 import optuna
-from optuna.trial import FrozenTrial
+from optuna.trial import FrozenTrial, TrialState
 
 from kablate.analysis.halving import promoted, rung_epochs
+from kablate.lifecycle import STOPPED
 from kablate.spec.schema import HalvingSpec
 
 log = logging.getLogger("kablate")
@@ -73,6 +79,21 @@ def start_halving(study: optuna.Study, sweep) -> dict | None:
         return stored
     study.set_user_attr(RULE_ATTR, rule)
     return rule
+
+
+def halted_variants(study: optuna.Study) -> dict[str, int]:
+    """Variant id → the seed after which successive halving stopped it (its lowest seed with a
+    stopped trial), for the variants that get no more seeds; empty while the study does not
+    halve (a run with halving off trains their other seeds)."""
+    if not study.user_attrs.get(RULE_ATTR):
+        return {}
+    out: dict[str, int] = {}
+    for trial in study.get_trials(deepcopy=False, states=(TrialState.PRUNED,)):
+        attrs = trial.user_attrs
+        if attrs.get("outcome") == STOPPED and attrs.get("variant_id"):
+            vid = attrs["variant_id"]
+            out[vid] = min(out.get(vid, int(attrs["seed"])), int(attrs["seed"]))
+    return out
 
 
 def halving_summary(study: optuna.Study) -> dict | None:
