@@ -6,6 +6,10 @@ enqueued again, and listed in trials.csv's rows as retired."""
 
 from __future__ import annotations
 
+import multiprocessing as mp
+from collections import Counter
+from pathlib import Path
+
 import numpy as np
 import optuna
 import pytest
@@ -22,6 +26,7 @@ from kablate.trials.queue import (
     enqueue_missing,
     requeue,
     trial_status,
+    withdraw,
     withdraw_halted,
 )
 from kablate.trials.rows import collect_trials
@@ -240,3 +245,56 @@ def test_with_halving_off_a_stopped_variants_seeds_run(tmp_path):
     assert enqueue_missing(study, JOBS_2X2) == 1  # va-s1 only
     study.set_user_attr(RULE_ATTR, None)  # a run with halving off (halving.start_halving)
     assert enqueue_missing(study, JOBS_2X2) == 1  # now vb-s1 too
+
+
+N_CONTESTED = 120
+
+
+def claim_or_withdraw(folder: str, url: str | None, role: str, out: str, go) -> None:
+    """A claimer (claim, tell done, repeat) or a withdrawer (withdraw every waiting trial of
+    variant vx, repeat), until nothing waits; a claimer writes the job keys it took."""
+    study = open_study("contested", Path(folder), url)
+    liveness = liveness_for(study, lock_dir(Path(folder), url))
+    go.wait()
+    taken = []
+    if role == "claim":
+        while (claim := claim_next(study, liveness)) is not None:
+            taken.append(claim.key)
+            study.tell(claim.trial, values=[0.5, 1.0])
+            liveness.release(claim.token)
+    else:
+        while study.get_trials(deepcopy=False, states=(TrialState.WAITING,)):
+            withdraw(study, liveness, {"vx": {"retired_why": STOPPED}})
+    Path(out).write_text("\n".join(taken))
+
+
+@pytest.mark.slow
+def test_claims_and_withdrawals_racing_each_other_take_each_trial_once(storage, tmp_path):
+    # Two processes claim and two withdraw the same waiting trials at once: each trial must
+    # end exactly once, either trained (claimed) or retired, never both (a withdrawal that
+    # skipped the compare-and-set would retire a claimed trial, and its claimer's tell fail).
+    study = open_study("contested", tmp_path, storage)
+    jobs = [Job("vx", "x", seed) for seed in range(N_CONTESTED)]
+    assert enqueue_missing(study, jobs) == N_CONTESTED
+    ctx = mp.get_context("spawn")
+    go = ctx.Event()
+    roles = ["claim", "withdraw", "claim", "withdraw"]
+    outs = [tmp_path / f"taken-{i}.txt" for i in range(len(roles))]
+    procs = [
+        ctx.Process(target=claim_or_withdraw, args=(str(tmp_path), storage, role, str(out), go))
+        for role, out in zip(roles, outs, strict=True)
+    ]
+    for proc in procs:
+        proc.start()
+    go.set()
+    for proc in procs:
+        proc.join(timeout=240)
+        assert proc.exitcode == 0
+    claimed = Counter(key for out in outs for key in out.read_text().split())
+    trials = study.get_trials(deepcopy=False)
+    assert len(trials) == N_CONTESTED
+    done = {t.user_attrs["job"] for t in trials if t.state == TrialState.COMPLETE}
+    retired = {t.user_attrs["job"] for t in trials if trial_status(t) == RETIRED}
+    assert max(claimed.values()) == 1 and set(claimed) == done
+    assert not done & retired and len(done) + len(retired) == N_CONTESTED
+    assert done and retired  # both sides really took trials
