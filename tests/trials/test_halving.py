@@ -6,7 +6,6 @@ enqueued again, and listed in trials.csv's rows as retired."""
 
 from __future__ import annotations
 
-import multiprocessing as mp
 from collections import Counter
 from pathlib import Path
 
@@ -31,6 +30,7 @@ from kablate.trials.queue import (
 )
 from kablate.trials.rows import collect_trials
 from kablate.trials.store import lock_dir, open_study
+from tests.trials.runs import run_at_once
 
 optuna.logging.set_verbosity(optuna.logging.WARNING)
 
@@ -276,20 +276,12 @@ def test_claims_and_withdrawals_racing_each_other_take_each_trial_once(storage, 
     study = open_study("contested", tmp_path, storage)
     jobs = [Job("vx", "x", seed) for seed in range(N_CONTESTED)]
     assert enqueue_missing(study, jobs) == N_CONTESTED
-    ctx = mp.get_context("spawn")
-    go = ctx.Event()
     roles = ["claim", "withdraw", "claim", "withdraw"]
     outs = [tmp_path / f"taken-{i}.txt" for i in range(len(roles))]
-    procs = [
-        ctx.Process(target=claim_or_withdraw, args=(str(tmp_path), storage, role, str(out), go))
-        for role, out in zip(roles, outs, strict=True)
-    ]
-    for proc in procs:
-        proc.start()
-    go.set()
-    for proc in procs:
-        proc.join(timeout=240)
-        assert proc.exitcode == 0
+    run_at_once(
+        claim_or_withdraw,
+        [(str(tmp_path), storage, role, str(out)) for role, out in zip(roles, outs, strict=True)],
+    )
     claimed = Counter(key for out in outs for key in out.read_text().split())
     trials = study.get_trials(deepcopy=False)
     assert len(trials) == N_CONTESTED
