@@ -17,6 +17,7 @@ from scipy import stats
 from kablate.lifecycle import STOPPED
 from kablate.report import write_report
 from kablate.trials import RunOptions, open_results, run_sweep
+from kablate.trials.outcome import verdict
 from kablate.trials.status import format_status, read_status
 from tests.conftest import write_sweep
 from tests.trials.runs import (
@@ -134,6 +135,31 @@ def test_a_variant_stopped_on_a_seed_gets_no_more_seeds(tmp_path):
         f"re-plan after seed 0: {4 - len(halted)} trial(s) left to run, {len(halted)} not run"
         in log
     )
+
+
+@pytest.mark.slow
+def test_a_race_decides_its_rounds_without_the_variants_halving_stopped(tmp_path):
+    # Racing waits for every variant in the race to finish a seed before it decides the round
+    # and enqueues the next seed; a variant stopped by halving is out of the race, else the
+    # round after its stop would never be decided and seed 1 never queued.
+    text = HALVING_SWEEP.replace("seeds = [0]", "seeds = [0, 1]").replace(
+        'racing = "off"', 'racing = "on"'
+    )
+    sweep = write_sweep(tmp_path, text, "halved")
+    opts = RunOptions(results_root=tmp_path / "results", workers=1, show_progress=False)
+    summary = run_sweep(sweep, opts)
+    assert verdict(summary) == (0, "")
+    trials = rows(summary.results_dir / "trials.csv")
+    assert not [r for r in trials if r["status"] in ("waiting", "missing", "failed")]
+    halted = {r["variant"] for r in trials if r["seed"] == "0" and r["status"] == STOPPED}
+    assert halted, "no variant was stopped on seed 0: the sweep no longer exercises halving"
+    for r in trials:
+        if r["variant"] in halted and r["seed"] == "1":
+            assert (r["status"], r["retired_why"]) == ("retired", "stopped")
+    race = open_results(summary.results_dir).race()
+    assert set(race["rounds"]) == {0, 1}  # both rounds decided
+    halted_ids = {r["variant_id"] for r in trials if r["variant"] in halted}
+    assert not halted_ids & {v for r in race["rounds"].values() for v in r["compared"]}
 
 
 @pytest.fixture
