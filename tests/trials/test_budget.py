@@ -81,6 +81,7 @@ def test_dry_run_trains_nothing_and_writes_nothing(tiny_sweep, tmp_path):
     assert summary.n_ran == 0 and not (tmp_path / "results").exists()
     assert "estimate: 4 trials to run take about" in printed[0]
     assert "2 worker(s) x 1 thread(s)" in printed[0]
+    assert "upper bound" not in printed[0]  # neither racing (no --budget) nor halving
     # ... and says what 100 validation images can resolve against the 1 pp default margin.
     assert "resolution (80% power, one-sided 5%) with 100 validation images" in printed[0]
     assert "the margin needs" in printed[0]

@@ -380,6 +380,7 @@ def _run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
             n_workers=layout[0],
             since=started_at,
         )
+        progress.settle(collect_trials(study, plan)[0])  # a resumed run's jobs that will not run
         pool = run_workers(
             RunContext(
                 sweep_path=sweep_path,
