@@ -22,7 +22,9 @@ lost          FAIL, outcome ``worker-lost`` (journal     its worker died; the li
               file); FAIL with no outcome (PostgreSQL:   put its job back
               optuna's stale-heartbeat check fails it
               and cannot add one)
-retired       FAIL, outcome ``retired``                  racing withdrew it (trials/race.py)
+retired       FAIL, outcome ``retired``                  racing withdrew it (trials/race.py), or
+                                                         halving stopped its variant on another
+                                                         seed (``retired_why = "stopped"``)
 stopped       PRUNED, outcome ``stopped``                successive halving ended its training
                                                          at a rung (trials/halving.py): its
                                                          result is the last validation score
@@ -37,8 +39,8 @@ which the analysis never compares with full results (analysis/halving.py).
 
 Who may do what (`TRANSITIONS`; every requeue goes through `trials.queue.requeue`):
 
-- the runner enqueues a job with no trial, or whose trials all failed or were retired
-  (`trials.queue.enqueue_missing`): → waiting;
+- the runner enqueues a job with no trial, or whose trials all failed or were retired, unless
+  halving stopped its variant (`trials.queue.enqueue_missing`): → waiting;
 - the claim (`trials.queue.claim_next`) moves waiting → running with the storage's
   compare-and-set, so exactly one worker wins; a claimed trial that is not the first live
   trial of its job goes running → failed (``duplicate``);
@@ -47,7 +49,9 @@ Who may do what (`TRANSITIONS`; every requeue goes through `trials.queue.requeue
   stop request or a full disk, running → interrupted, and it requeues the job;
 - the liveness check (`trials.liveness`), before every claim, moves a running trial whose
   worker is gone to lost, and requeues the job;
-- racing withdraws a waiting trial with the same compare-and-set as a claim: → retired.
+- racing, or a worker whose trial halving stopped, withdraws a waiting trial of a variant that
+  gets no more seeds with the same compare-and-set as a claim (`trials.queue.withdraw`), and so
+  does a claim that finds the variant stopped after winning: → retired.
 
 Nothing moves a finished trial; a resumed job starts a new trial, which reads the old one's
 checkpoint.
@@ -95,7 +99,7 @@ TRANSITIONS = {
     (FAILED, WAITING): ("runner",),
     (RETIRED, WAITING): ("runner",),  # a run with racing off trains a retired variant
     (WAITING, RUNNING): ("claim",),
-    (WAITING, RETIRED): ("race",),
+    (WAITING, RETIRED): ("race", "runner", "worker", "claim"),  # racing; a variant stopped
     (RUNNING, FAILED): ("claim", "worker"),  # a duplicate; training raised
     (RUNNING, DONE): ("worker",),
     (RUNNING, DIVERGED): ("worker",),

@@ -15,12 +15,17 @@ on digits) into fresh results folders, at the default layout, one after the othe
 is shared, so the load moves the seconds of one run against the other's; a second ratio takes
 each trial's time from the full run's mean for its variant, which the load cannot tilt, and
 the load average (1 min, sampled every 5 s) is printed beside both.
-Run: python tests/bench/bench_race.py [sweeps/scarce-labels.toml]
+With ``--halving`` the racing run also stops trials early by successive halving
+(``[halving] enabled = true``, its default rungs): its training seconds then include the
+stopped trials' (each stopped trial's ``trial_seconds`` up to its stop), and a variant stopped
+on a seed gets no more seeds.
+Run: python tests/bench/bench_race.py [--halving] [sweeps/scarce-labels.toml]
 (over an hour at load 12 on 2 cores)
 """
 
 from __future__ import annotations
 
+import argparse
 import re
 import statistics
 import subprocess
@@ -65,21 +70,27 @@ class LoadSampler:
         return f"load {statistics.mean(s):.1f} (min {min(s):.1f}, max {max(s):.1f})"
 
 
-def with_racing(sweep: Path, racing: str, folder: Path) -> Path:
-    """A copy of ``sweep`` whose ``[sweep]`` table says ``racing = "<racing>"``."""
+def with_racing(sweep: Path, racing: str, folder: Path, halving: bool = False) -> Path:
+    """A copy of ``sweep`` whose ``[sweep]`` table says ``racing = "<racing>"``, with a
+    ``[halving]`` table that enables it when ``halving``."""
     text = re.sub(r"(?m)^\s*racing\s*=.*\n", "", sweep.read_text())
     text, n = re.subn(r"(?m)^\[sweep\]\s*$", f'[sweep]\nracing = "{racing}"', text, count=1)
     if n != 1:
         raise SystemExit(f"{sweep} has no [sweep] table")
+    if halving:
+        if re.search(r"(?m)^\[halving\]", text):
+            raise SystemExit(f"{sweep} has its own [halving] table: benchmark it as it is")
+        text += "\n[halving]\nenabled = true\n"
     path = folder / f"{racing}-{sweep.name}"
     path.write_text(text)
     return path
 
 
-def run(sweep: Path, racing: str, root: Path) -> dict:
-    """Train ``sweep`` with racing on or off into ``root``; its trials and its decision."""
+def run(sweep: Path, racing: str, root: Path, halving: bool = False) -> dict:
+    """Train ``sweep`` with racing on or off (and halving) into ``root``; its trials and its
+    decision."""
     root.mkdir(parents=True)
-    copy = with_racing(sweep, racing, root)
+    copy = with_racing(sweep, racing, root, halving)
     with LoadSampler() as load:
         start = time.perf_counter()
         out = subprocess.run(
@@ -96,7 +107,10 @@ def run(sweep: Path, racing: str, root: Path) -> dict:
 def read_run(path: Path, wall: float, load: str) -> dict:
     """A finished run's trial seconds, statuses and decision, from its results folder."""
     folder = open_results(path)
-    done = [t for t in folder.study.get_trials() if t.state == TrialState.COMPLETE]
+    # A stopped trial (halving) spent its seconds too, up to its stop.
+    done = [
+        t for t in folder.study.get_trials() if t.state in (TrialState.COMPLETE, TrialState.PRUNED)
+    ]
     rows, curves = folder.rows()
     data = folder.data()
     analysis = analyze(rows, curves, folder.plan, folder.meta.get("grids", []), data,
@@ -129,9 +143,13 @@ def retired_lines(variants) -> list[str]:
 
 
 def main() -> None:
-    sweep = Path(sys.argv[1] if len(sys.argv) > 1 else "sweeps/scarce-labels.toml").resolve()
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("sweep", nargs="?", default="sweeps/scarce-labels.toml")
+    parser.add_argument("--halving", action="store_true", help="the racing run also halves")
+    args = parser.parse_args()
+    sweep = Path(args.sweep).resolve()
     with tempfile.TemporaryDirectory() as tmp:
-        race = run(sweep, "on", Path(tmp) / "race")
+        race = run(sweep, "on", Path(tmp) / "race", args.halving)
         full = run(sweep, "off", Path(tmp) / "full")
     compare(sweep, race, full)
 
@@ -154,7 +172,8 @@ def compare(sweep: Path, race: dict, full: dict) -> None:
         f"whole command {race['wall']:.0f}s vs {full['wall']:.0f}s"
     )
     print(
-        f"trials: {n_race} trained with racing, {n_full - n_race} skipped "
+        f"trials: {n_race} trained with racing ({race['statuses'].get('stopped', 0)} of them "
+        f"stopped early by halving), {n_full - n_race} skipped "
         f"(statuses {dict(race['statuses'])})"
     )
     print("retired:")

@@ -9,6 +9,7 @@ costs the MACs of all-3 and stays near chance.
 
 from __future__ import annotations
 
+import multiprocessing as mp
 import os
 import subprocess
 import sys
@@ -132,3 +133,17 @@ def wait_for_checkpointed_trial(results: Path, storage: str | None, proc) -> tup
         return early_checkpoint(results / "tiny" / "trials" / t.user_attrs["job"] / CHECKPOINT)
 
     return wait_for_running_trial(results, storage, proc, ready, "reached its first checkpoint")
+
+
+def run_at_once(target, arg_tuples: list[tuple]) -> None:
+    """Run ``target(*args, go)`` in one spawned process per tuple of ``arg_tuples``, released
+    together by the event ``go`` once every process has started; fail unless each exits 0."""
+    ctx = mp.get_context("spawn")
+    go = ctx.Event()
+    procs = [ctx.Process(target=target, args=(*args, go)) for args in arg_tuples]
+    for proc in procs:
+        proc.start()
+    go.set()
+    for proc in procs:
+        proc.join(timeout=240)
+        assert proc.exitcode == 0

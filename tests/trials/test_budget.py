@@ -66,6 +66,7 @@ def test_a_budget_too_short_for_any_trial_starts_none_and_prints_the_estimate(ti
     assert summary.n_ran == 0 and summary.counts == {"waiting": 2, "missing": 2}
     text = printed[0]
     assert "estimate: 4 trials" in text and "0 of 4 trials fit" in text
+    assert "; an upper bound: racing may retire variants, which cannot be known" in text
     order = [line.split()[2:5] for line in text.splitlines() if "seed" in line and "~" in line]
     assert [o[2] for o in order] == ["0", "0", "1", "1"]  # seed-major
     assert "no new trial starts" in (summary.results_dir / "run.log").read_text()
@@ -80,6 +81,7 @@ def test_dry_run_trains_nothing_and_writes_nothing(tiny_sweep, tmp_path):
     assert summary.n_ran == 0 and not (tmp_path / "results").exists()
     assert "estimate: 4 trials to run take about" in printed[0]
     assert "2 worker(s) x 1 thread(s)" in printed[0]
+    assert "upper bound" not in printed[0]  # neither racing (no --budget) nor halving
     # ... and says what 100 validation images can resolve against the 1 pp default margin.
     assert "resolution (80% power, one-sided 5%) with 100 validation images" in printed[0]
     assert "the margin needs" in printed[0]

@@ -6,6 +6,7 @@ from it, step by step in the comments.
 
 from __future__ import annotations
 
+import logging
 from datetime import datetime, timedelta
 
 import pytest
@@ -69,3 +70,28 @@ def test_before_a_trial_is_claimed_the_line_says_the_workers_are_starting():
     progress = SweepProgress(4, 0, interactive=False, predicted=PREDICTED, n_workers=2)
     assert progress.line() == "progress: 0/4 trials finished; the workers are starting"
     progress.close()
+
+
+def test_trials_that_will_not_run_leave_the_total_and_the_eta_and_the_log_re_plans(
+    caplog, monkeypatch
+):
+    # d's variant was retired (or stopped by halving on another seed): a is done, b and c
+    # wait. Left: 20 + 30 = 50 s on 2 workers = 25 s, less than c's 30 s: ETA 30 s = 30s.
+    progress = SweepProgress(4, 1, interactive=False, predicted=PREDICTED, n_workers=2)
+    progress.done = {"a-s0"}
+    rows = [
+        {"variant_id": v, "seed": 0, "status": status}
+        for v, status in (("a", "done"), ("b", "waiting"), ("c", "waiting"), ("d", "retired"))
+    ]
+    # An earlier test's pool.setup_logging may have stopped it from propagating to caplog.
+    monkeypatch.setattr(logging.getLogger("kablate"), "propagate", True)
+    with caplog.at_level(logging.INFO, logger="kablate"):
+        progress.settle(rows)
+        progress.settle(rows)  # nothing changed: no second line
+    progress.close()
+    assert progress.total == 3 and progress.eta() == pytest.approx(30.0)
+    lines = [r.getMessage() for r in caplog.records if r.getMessage().startswith("re-plan")]
+    assert lines == [
+        "re-plan: 2 trial(s) left to run, 1 not run (variant retired by racing or stopped by "
+        "halving), ETA 30s"
+    ]

@@ -17,6 +17,7 @@ from scipy import stats
 from kablate.lifecycle import STOPPED
 from kablate.report import write_report
 from kablate.trials import RunOptions, open_results, run_sweep
+from kablate.trials.outcome import verdict
 from kablate.trials.status import format_status, read_status
 from tests.conftest import write_sweep
 from tests.trials.runs import (
@@ -99,6 +100,68 @@ def test_stopped_trials_are_listed_as_stopped_and_never_recommended(tmp_path):
         assert f"| 1 | {len(done)} | {rho:.2f} |" in card
 
 
+@pytest.mark.slow
+def test_a_variant_stopped_on_a_seed_gets_no_more_seeds(tmp_path):
+    # One worker: seed 0's trials, then seed 1's, so every stop on seed 0 comes before the
+    # variant's seed 1 could be claimed.
+    sweep = write_sweep(tmp_path, HALVING_SWEEP.replace("seeds = [0]", "seeds = [0, 1]"), "halved")
+    opts = RunOptions(results_root=tmp_path / "results", workers=1, show_progress=False)
+    summary = run_sweep(sweep, opts)
+    trials = rows(summary.results_dir / "trials.csv")
+    by = {(r["variant"], r["seed"]): r for r in trials}
+    halted = sorted(r["variant"] for r in trials if r["seed"] == "0" and r["status"] == STOPPED)
+    assert halted, "no variant was stopped on seed 0: the sweep no longer exercises halving"
+    # The baseline (all-3) is never stopped.
+    assert by["all-3", "0"]["status"] == by["all-3", "1"]["status"] == "done"
+    not_run = sorted(r["variant"] for r in trials if r["status"] == "retired")
+    assert not_run == halted and summary.counts["retired"] == len(halted)
+    for name in halted:
+        r = by[name, "1"]
+        assert (r["retired_why"], r["retired_after"], r["val_acc"]) == ("stopped", "0", "")
+    folder = open_results(summary.results_dir)
+    text = format_status(read_status(folder))
+    assert f"{len(halted)} not run (variant stopped by halving)" in text
+    for name in halted:
+        (line,) = [x for x in text.splitlines() if x.split()[:1] == [name]]
+        assert line.endswith("not run: 1 seed(s), variant stopped by halving after seed 0")
+    card = write_report(folder, with_erf=False).read_text()
+    assert f"{len(halted)} trial(s) not run: their variant was stopped on another seed." in card
+    for name in halted:
+        assert f"| {name} | 1 | 0 |" in card
+    # The estimate says it is an upper bound; the log re-plans after seed 0's round.
+    assert "an upper bound: halving may stop trials early" in summary.estimate
+    log = (summary.results_dir / "run.log").read_text()
+    assert (
+        f"re-plan after seed 0: {4 - len(halted)} trial(s) left to run, {len(halted)} not run"
+        in log
+    )
+
+
+@pytest.mark.slow
+def test_a_race_decides_its_rounds_without_the_variants_halving_stopped(tmp_path):
+    # Racing waits for every variant in the race to finish a seed before it decides the round
+    # and enqueues the next seed; a variant stopped by halving is out of the race, else the
+    # round after its stop would never be decided and seed 1 never queued.
+    text = HALVING_SWEEP.replace("seeds = [0]", "seeds = [0, 1]").replace(
+        'racing = "off"', 'racing = "on"'
+    )
+    sweep = write_sweep(tmp_path, text, "halved")
+    opts = RunOptions(results_root=tmp_path / "results", workers=1, show_progress=False)
+    summary = run_sweep(sweep, opts)
+    assert verdict(summary) == (0, "")
+    trials = rows(summary.results_dir / "trials.csv")
+    assert not [r for r in trials if r["status"] in ("waiting", "missing", "failed")]
+    halted = {r["variant"] for r in trials if r["seed"] == "0" and r["status"] == STOPPED}
+    assert halted, "no variant was stopped on seed 0: the sweep no longer exercises halving"
+    for r in trials:
+        if r["variant"] in halted and r["seed"] == "1":
+            assert (r["status"], r["retired_why"]) == ("retired", "stopped")
+    race = open_results(summary.results_dir).race()
+    assert set(race["rounds"]) == {0, 1}  # both rounds decided
+    halted_ids = {r["variant_id"] for r in trials if r["variant"] in halted}
+    assert not halted_ids & {v for r in race["rounds"].values() for v in r["compared"]}
+
+
 @pytest.fixture
 def long_halving_sweep(long_sweep):
     """The resume tests' long sweep (2 plans × 2 seeds, 40 epochs), compared after epochs 10
@@ -123,7 +186,13 @@ def test_a_sigkilled_halving_run_resumes_deciding_each_rung_once(
     trials = study_of(results, storage).get_trials()
     assert not [t for t in trials if t.state in (TrialState.RUNNING, TrialState.WAITING)]
     ended = [t.user_attrs["job"] for t in trials if t.state in (TrialState.COMPLETE, STOPPED_STATE)]
-    assert len(ended) == len(set(ended)) == JOBS  # each job done or stopped, once
+    # Each job done or stopped, once; or withdrawn, as its variant was stopped on a seed.
+    withdrawn = {t.user_attrs["job"] for t in trials if t.user_attrs.get("outcome") == "retired"}
+    assert len(ended) == len(set(ended)) == JOBS - len(withdrawn - set(ended))
+    stopped_variants = {t.user_attrs["variant_id"] for t in trials if t.state == STOPPED_STATE}
+    assert {t.user_attrs["variant_id"] for t in trials if t.user_attrs["job"] in withdrawn} <= (
+        stopped_variants
+    )
     killed = [t for t in trials if t.user_attrs.get("job") == key]
     assert [t for t in killed if t.state == TrialState.FAIL]  # lost, then resumed
     # The killed trial went on at the first rung; its resumed trial, from a later checkpoint,

@@ -8,7 +8,6 @@ tests/bench/bench_claim.py shows it), so SQLite is in the list on purpose.
 
 from __future__ import annotations
 
-import multiprocessing as mp
 from collections import Counter
 from pathlib import Path
 
@@ -20,6 +19,7 @@ from kablate.trials.jobs import Job
 from kablate.trials.liveness import liveness_for
 from kablate.trials.queue import claim_next, enqueue_missing
 from kablate.trials.store import lock_dir, open_study
+from tests.trials.runs import run_at_once
 
 N_TRIALS, N_PROCESSES = 200, 4
 
@@ -55,21 +55,10 @@ def test_200_trials_and_4_processes_claim_each_trial_exactly_once(storage, tmp_p
     study = open_study("claims", tmp_path, any_storage)
     jobs = [Job(f"v{i:03d}", f"plan{i}", 0) for i in range(N_TRIALS)]
     assert enqueue_missing(study, jobs) == N_TRIALS
-    ctx = mp.get_context("spawn")
-    go = ctx.Event()
     outs = [tmp_path / f"claimed-{i}.txt" for i in range(N_PROCESSES)]
-    procs = [
-        ctx.Process(
-            target=claim_until_empty, args=("claims", str(tmp_path), any_storage, str(out), go)
-        )
-        for out in outs
-    ]
-    for proc in procs:
-        proc.start()
-    go.set()
-    for proc in procs:
-        proc.join(timeout=240)
-        assert proc.exitcode == 0
+    run_at_once(
+        claim_until_empty, [("claims", str(tmp_path), any_storage, str(out)) for out in outs]
+    )
     claimed = Counter(key for out in outs for key in out.read_text().split())
     assert set(claimed) == {job.key for job in jobs}  # none lost
     assert [k for k, n in claimed.items() if n > 1] == []  # none twice

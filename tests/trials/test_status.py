@@ -86,6 +86,33 @@ def test_trials_stopped_by_successive_halving_are_counted_and_drawn_apart():
     assert "  b  [#/]  1/2  stopped early by successive halving: not compared" in text
 
 
+def test_a_variant_stopped_by_halving_counts_its_unrun_seeds_apart_and_its_stop_not_in_the_eta():
+    not_run = {"retired_why": "stopped", "retired_after": 0}
+    rows = [
+        row("a", 0, "done"),
+        row("b", 0, "stopped"),
+        row("a", 1, "running"),
+        dict(row("b", 1, "retired"), **not_run),
+        row("a", 2, "waiting"),
+        dict(row("b", 2, "retired"), **not_run),
+    ]
+    stopped = trial("b-s0", TrialState.PRUNED, -20, -19)  # 1 min: stopped at its first rung
+    stopped.user_attrs["outcome"] = "stopped"
+    trials = [
+        trial("a-s0", TrialState.COMPLETE, -30, -20),
+        stopped,
+        trial("a-s1", TrialState.RUNNING, -2),
+    ]
+    status = summarize("demo", rows, trials, NOW, {"workers": 1, "threads": 1})
+    # A trial takes a's 10 min (the stop's 1 min is not a trial's time): 2 left on 1 worker.
+    assert status.mean_trial_seconds == 600 and status.eta_seconds == 2 * 600
+    text = format_status(status)
+    assert "1 stopped early (successive halving), 2 not run (variant stopped by halving)" in text
+    assert "not run (variant retired by racing)" not in text
+    (line,) = [x for x in text.splitlines() if x.startswith("  b  ")]
+    assert line.endswith("; not run: 2 seed(s), variant stopped by halving after seed 0")
+
+
 def test_a_stopped_sweep_has_no_eta_and_says_how_to_continue():
     rows = [row("a", 0, "done"), row("a", 1, "waiting")]
     trials = [trial("a-s0", TrialState.COMPLETE, -10, -5)]

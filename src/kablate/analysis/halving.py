@@ -22,7 +22,8 @@ Kendall's τ between their score at each rung and their final score (``scipy.sta
 
 A variant with a stopped trial is never compared with fully trained ones: the report lists it
 as stopped early with its last score (`stopped_variants`, `put_stopped`), outside the
-recommendation.
+recommendation. It gets no more seeds: its unrun seeds read ``retired`` with
+``retired_why = "stopped"`` in trials.csv (trials/halving.py), and the card lists them.
 """
 
 from __future__ import annotations
@@ -33,7 +34,7 @@ from dataclasses import dataclass
 import pandas as pd
 from scipy import stats
 
-from kablate.lifecycle import DONE, STOPPED
+from kablate.lifecycle import DONE, RETIRED, STOPPED
 from kablate.results.columns import STOPPED_COLUMNS
 
 
@@ -129,12 +130,14 @@ def put_stopped(variants: pd.DataFrame, trials: pd.DataFrame) -> None:
 
 @dataclass
 class HalvingAccount:
-    """What the card says of successive halving: the rule, the stopped trials and the proxy's
-    rank agreement on the trials that ran to the end."""
+    """What the card says of successive halving: the rule, the stopped trials, the seeds not
+    run because their variant was stopped, and the proxy's rank agreement on the trials that
+    ran to the end."""
 
     rule: dict  # `trials.halving.halving_rule`: first_epoch, factor, rungs
     stopped: pd.DataFrame  # variant, seed, score_epoch (the last epoch), val_acc (its score)
     n_done: int
+    not_run: pd.DataFrame  # variant, seed, retired_after: seeds withdrawn after a stop
     agreement: list[RungAgreement]
 
 
@@ -144,4 +147,9 @@ def halving_account(rule: dict | None, trials: pd.DataFrame, curves: pd.DataFram
         return None
     stopped = trials.loc[trials["status"] == STOPPED, ["variant", "seed", "score_epoch", "val_acc"]]
     n_done = int((trials["status"] == DONE).sum())
-    return HalvingAccount(rule, stopped, n_done, rank_agreement(trials, curves, rule["rungs"]))
+    why = trials["retired_why"] if "retired_why" in trials else pd.Series(None, trials.index)
+    not_run = trials.loc[(trials["status"] == RETIRED) & (why == STOPPED)].reindex(
+        columns=["variant", "seed", "retired_after"]
+    )
+    agreement = rank_agreement(trials, curves, rule["rungs"])
+    return HalvingAccount(rule, stopped, n_done, not_run, agreement)

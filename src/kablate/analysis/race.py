@@ -55,7 +55,7 @@ from statsmodels.stats.multitest import multipletests
 from kablate.analysis.bootstrap import N_RESAMPLES, resample_accuracies
 from kablate.analysis.decide import ALPHA, Accuracy, accuracies
 from kablate.analysis.evidence import Evidence, gather_evidence
-from kablate.lifecycle import RETIRED
+from kablate.lifecycle import RETIRED, STOPPED
 from kablate.results.columns import RETIRED_COLUMNS
 from kablate.results.data_record import DataRecord
 
@@ -154,8 +154,10 @@ def retirements(
 
 def in_race(trials: pd.DataFrame) -> pd.Series:
     """Mask of the trial rows whose variant is still in the race (all True without racing):
-    a variant is out once one of its planned trials reads ``retired``."""
-    out = set(trials.loc[trials["status"] == RETIRED, "variant_id"])
+    a variant is out once one of its planned trials reads ``retired`` for racing's reasons (not
+    ``retired_why = "stopped"``: successive halving stopped that variant, analysis/halving.py)."""
+    why = trials["retired_why"] if "retired_why" in trials else pd.Series(None, trials.index)
+    out = set(trials.loc[(trials["status"] == RETIRED) & (why != STOPPED), "variant_id"])
     return ~trials["variant_id"].isin(out)
 
 

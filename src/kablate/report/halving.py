@@ -29,8 +29,9 @@ def halving_section(a: Analysis) -> list[str]:
         "trial's validation accuracy was compared with the accuracies that the trials of the "
         f"same seed had recorded at that epoch before it; a trial not among the best "
         f"1/{rule['factor']} of them stopped there. A variant with a stopped trial is left out "
-        "of the comparisons and of the recommendation above (its score is an early one); it is "
-        "listed below with its last validation accuracy.",
+        "of the comparisons and of the recommendation above (its score is an early one), and "
+        "gets no more seeds; it is listed below with its last validation accuracy. The "
+        "baseline is never stopped.",
         "",
         f"{len(h.stopped)} trial(s) stopped early; {h.n_done} ran to the end.",
         "",
@@ -39,6 +40,16 @@ def halving_section(a: Analysis) -> list[str]:
         out += ["| variant | seed | stopped after epoch | last val acc |", "|---|---:|---:|---:|"]
         for r in h.stopped.sort_values(["variant", "seed"]).itertuples():
             out.append(f"| {r.variant} | {int(r.seed)} | {int(r.score_epoch)} | {pct(r.val_acc)} |")
+        out.append("")
+    if len(h.not_run):
+        out += [
+            f"{len(h.not_run)} trial(s) not run: their variant was stopped on another seed.",
+            "",
+            "| variant | seed not run | variant stopped after seed |",
+            "|---|---:|---:|",
+        ]
+        for r in h.not_run.sort_values(["variant", "seed"]).itertuples():
+            out.append(f"| {r.variant} | {int(r.seed)} | {int(r.retired_after)} |")
         out.append("")
     out += [
         "How well the early score ranked the trials that ran to the end: Spearman's ρ and "

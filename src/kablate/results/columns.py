@@ -25,6 +25,9 @@ TRIAL_COLUMNS = (
     "trial",
     "n_attempts",
     "retired_after",  # racing: the seed after which the variant was retired (trials/race.py)
+    # why a retired trial was not run: racing's (dominated, futile), or stopped (successive
+    # halving stopped its variant on the seed ``retired_after``: trials/halving.py)
+    "retired_why",
 )
 # curves.csv: one row per (variant, seed, epoch)
 CURVE_COLUMNS = ("variant", "seed", "epoch", "train_loss", "val_loss", "val_acc", "seconds")

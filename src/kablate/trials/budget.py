@@ -162,8 +162,10 @@ def format_plan(
     n_variants: int,
     layout,
     already: list[int],
+    bound: str = "",
 ) -> str:
-    """The estimate and the order, as printed by --budget and --dry-run."""
+    """The estimate and the order, as printed by --budget and --dry-run; ``bound`` (why the
+    figure is an upper bound) ends the first line, which a run without --budget prints."""
     from kablate.trials.status import duration
 
     workers, threads = layout
@@ -176,6 +178,7 @@ def format_plan(
             if timetable.starts and timetable.starts[0] >= 1
             else ""
         )
+        + (f"; {bound}" if bound else "")
     ]
     if budget:
         complete = timetable.complete_seeds(seeds, n_variants, already)

@@ -18,8 +18,15 @@ every machine sharing the study reads the same scores and decisions:
 - A decision is made once per job: a job resumed after a kill reads its earlier decision at
   that rung (from any of its trials) instead of deciding again, so a job that was stopped stays
   stopped and one that went on goes on.
+- The baseline is never stopped: the report compares every variant with it on every seed, so
+  its judge always promotes it. It still records its score, which the others compete with.
 - A stopped trial ends with state PRUNED and ``outcome = "stopped"`` (lifecycle.STOPPED); its
   ``val_acc`` is the last epoch's validation accuracy, and it stores no predictions.
+- A variant stopped on one seed gets no more seeds (`halted_variants`): the report never
+  compares it (analysis/halving.py), so its other seeds would train for nothing. Its waiting
+  trials are withdrawn and the runner enqueues none of its jobs (`trials.queue.withdraw_halted`,
+  `trials.queue.enqueue_missing`); trials.csv lists those seeds as retired with
+  ``retired_why = "stopped"``. A run with halving off trains them.
 
 Only the trials of the same seed compete: they share their initialisation seed, data order and
 augmentation (a paired comparison, as in the report). Which trials reached a rung first depends
@@ -34,9 +41,10 @@ from collections.abc import Callable
 from dataclasses import dataclass
 
 import optuna
-from optuna.trial import FrozenTrial
+from optuna.trial import FrozenTrial, TrialState
 
 from kablate.analysis.halving import promoted, rung_epochs
+from kablate.lifecycle import STOPPED
 from kablate.spec.schema import HalvingSpec
 
 log = logging.getLogger("kablate")
@@ -73,6 +81,21 @@ def start_halving(study: optuna.Study, sweep) -> dict | None:
     return rule
 
 
+def halted_variants(study: optuna.Study) -> dict[str, int]:
+    """Variant id → the seed after which successive halving stopped it (its lowest seed with a
+    stopped trial), for the variants that get no more seeds; empty while the study does not
+    halve (a run with halving off trains their other seeds)."""
+    if not study.user_attrs.get(RULE_ATTR):
+        return {}
+    out: dict[str, int] = {}
+    for trial in study.get_trials(deepcopy=False, states=(TrialState.PRUNED,)):
+        attrs = trial.user_attrs
+        if attrs.get("outcome") == STOPPED and attrs.get("variant_id"):
+            vid = attrs["variant_id"]
+            out[vid] = min(out.get(vid, int(attrs["seed"])), int(attrs["seed"]))
+    return out
+
+
 def halving_summary(study: optuna.Study) -> dict | None:
     """The rule the card states, or None when the study does not halve."""
     return study.user_attrs.get(RULE_ATTR) or None
@@ -88,6 +111,7 @@ class Judge:
     job: str
     seed: int
     rule: dict
+    baseline: bool = False  # the baseline always goes on (module docstring)
 
     def __call__(self, epochs_done: int, val_acc: float) -> bool:
         rungs = self.rule["rungs"]
@@ -101,7 +125,7 @@ class Judge:
         storage = self.study._storage  # noqa: SLF001 (a claimed trial's attributes)
         storage.set_trial_user_attr(self.trial_id, f"{SCORE_PREFIX}{k}", val_acc)
         competing = rung_scores(self.study.get_trials(deepcopy=False), self.seed, k, self.job)
-        kept = promoted(val_acc, competing, int(self.rule["factor"]))
+        kept = self.baseline or promoted(val_acc, competing, int(self.rule["factor"]))
         decision = {
             "epoch": epochs_done,
             "value": val_acc,
@@ -140,10 +164,14 @@ def rung_scores(trials: list[FrozenTrial], seed: int, k: int, job: str) -> list[
     return list(found.values())
 
 
-def judge_for(study: optuna.Study, trial: optuna.Trial) -> Callable[[int, float], bool] | None:
-    """A worker's judge for its claimed ``trial``, or None when the study does not halve."""
+def judge_for(
+    study: optuna.Study, trial: optuna.Trial, baseline_id: str | None = None
+) -> Callable[[int, float], bool] | None:
+    """A worker's judge for its claimed ``trial``, or None when the study does not halve.
+    ``baseline_id``: the sweep's baseline variant, which the judge always promotes."""
     rule = study.user_attrs.get(RULE_ATTR)
     if not rule or not rule.get("rungs"):
         return None
     attrs = trial.user_attrs
-    return Judge(study, trial._trial_id, attrs["job"], int(attrs["seed"]), rule)
+    is_baseline = baseline_id is not None and attrs.get("variant_id") == baseline_id
+    return Judge(study, trial._trial_id, attrs["job"], int(attrs["seed"]), rule, is_baseline)

@@ -29,7 +29,7 @@ from kablate.console import LOG_DATE_FORMAT, LOG_FORMAT, Steps, console_handler
 from kablate.costs.catalog import Catalog, build_catalog
 from kablate.data.prepare import PreparedData, prepare_data
 from kablate.errors import EXIT_DISK_FULL, EXIT_STOPPED, DiskFullError, is_disk_full
-from kablate.lifecycle import DONE, RUNNING, is_finished, n_finished
+from kablate.lifecycle import DONE, RETIRED, RUNNING, SETTLED, JobKey, is_finished, n_finished
 from kablate.results.paths import RUN_LOG
 from kablate.spec.loader import load_sweep
 from kablate.trials.eta import eta_seconds
@@ -186,6 +186,9 @@ class SweepProgress:
         since: datetime | None = None,
     ) -> None:
         self.total, self.n = total, initial
+        self.n_jobs = total  # the sweep's; ``total`` leaves out the jobs that will not run
+        self.dropped: set[str] = set()  # job keys not run: racing retired or halving stopped
+        self.n_rounds = 0  # seeds whose every job is finished or not run
         self.predicted, self.n_workers = predicted or {}, n_workers
         self.since = since or datetime.now()
         self.measured: dict[str, float] = {}  # this run's finished trials: seconds
@@ -224,7 +227,8 @@ class SweepProgress:
         now = datetime.now()
         with self.lock:
             running = {k: (now - t).total_seconds() for k, t in self.started.items()}
-            return eta_seconds(self.predicted, self.measured, self.done, running, self.n_workers)
+            done = self.done | self.dropped  # a job that will not run takes no time
+            return eta_seconds(self.predicted, self.measured, done, running, self.n_workers)
 
     def line(self) -> str:
         """'progress: 3/15 trials finished, 2 running, ETA 1m10s'; sets the bar's ETA too.
@@ -253,6 +257,32 @@ class SweepProgress:
         self.bar.update(n_finished - self.n)
         self.n = n_finished
         log.info("%s", self.line())
+
+    def settle(self, rows: list[dict]) -> None:
+        """Take the jobs that will not run from the sweep's rows (`collect_trials`: their
+        variant was retired by racing or stopped by halving): they leave the total and the ETA.
+        After each seed round (every job of the seed finished or not run), and whenever jobs
+        are dropped, log the re-plan: the trials left and the new ETA."""
+        dropped = {str(JobKey(r["variant_id"], r["seed"])) for r in rows if r["status"] == RETIRED}
+        complete: dict[int, bool] = {}
+        for r in rows:
+            complete[r["seed"]] = complete.get(r["seed"], True) and r["status"] in SETTLED
+        rounds = [seed for seed, done in complete.items() if done]
+        if dropped == self.dropped and len(rounds) == self.n_rounds:
+            return
+        self.dropped, self.n_rounds = dropped, len(rounds)
+        self.total = self.n_jobs - len(dropped)
+        self.bar.total = self.total
+        self.bar.refresh()
+        eta = self.eta()
+        log.info(
+            "re-plan%s: %d trial(s) left to run, %d not run (variant retired by racing or "
+            "stopped by halving), ETA %s",
+            f" after seed {rounds[-1]}" if rounds else "",
+            max(0, self.total - self.n),
+            len(dropped),
+            duration(eta) if eta is not None else "unknown",
+        )
 
     def pulse(self, trials: Callable[[], list[FrozenTrial]]) -> Callable[[], str]:
         """What `console.Steps` logs after a silence while trials run: fresh trials, the line."""
@@ -339,6 +369,7 @@ def run_workers(run: RunContext) -> PoolOutcome:
                 rows, _ = collect_trials(study, plan)
                 progress.observe(study.get_trials(deepcopy=False))
                 progress.update(n_finished(r["status"] for r in rows))
+                progress.settle(rows)
 
             outcome.worker_names.add(ctx.worker_name)
             warm_up(catalog.sweep.recipe)
@@ -413,6 +444,7 @@ def supervise(procs, args, stop: StopFlag, run: RunContext, outcome: PoolOutcome
         if finished != progress.n:
             progress.observe(study.get_trials(deepcopy=False))
             progress.update(finished)
+        progress.settle(rows)
         for proc in [p for p in procs if not p.is_alive() and p.exitcode not in (0, EXIT_STOPPED)]:
             procs.remove(proc)
             proc.join()

@@ -16,6 +16,14 @@ How Optuna 5.0 hands out enqueued trials, and what we add (checked by tests/tria
   trial of its job and its job is not finished; otherwise it is told FAIL with
   ``outcome = "duplicate"``. Trial numbers never change, so every worker reaches the same
   verdict, and exactly one trial per job trains.
+- A job that needs no more seeds (racing retired its variant, trials/race.py; successive
+  halving stopped its variant on a seed, trials/halving.py) is withdrawn: `withdraw` takes its
+  waiting trial with the same compare-and-set as a claim and tells it FAIL with
+  ``outcome = "retired"``, so a claim and a withdrawal never both win one trial. A worker may
+  read the queue before a variant is stopped and win the trial after: `claim_next` therefore
+  looks again, after its compare-and-set, whether the variant was stopped meanwhile, and
+  withdraws the trial instead of training it. Its compare-and-set came after the stop, or the
+  stop came after it, so no trial of a stopped variant starts after the stop was recorded.
 """
 
 from __future__ import annotations
@@ -24,6 +32,7 @@ import logging
 import math
 import time
 from collections import defaultdict
+from collections.abc import Mapping
 from dataclasses import dataclass
 
 import optuna
@@ -40,6 +49,7 @@ from kablate.lifecycle import (
     WAITING,
     is_finished,
 )
+from kablate.trials.halving import halted_variants
 from kablate.trials.jobs import Job
 
 log = logging.getLogger("kablate")
@@ -79,12 +89,16 @@ def enqueue_missing(study: optuna.Study, jobs: list[Job]) -> int:
     """Enqueue every job that is not done, diverged, running or waiting; return how many.
 
     A job whose last trial failed (an error, an abandoned or interrupted run) is enqueued again,
-    and so is one that racing withdrew, when a caller lists it (a run with racing off).
+    and so is one that racing withdrew, when a caller lists it (a run with racing off). The
+    jobs of a variant that successive halving stopped are not (`halving.halted_variants`).
     Callers hold ``liveness.queue_lock()`` so that two local runners do not both enqueue a job.
     """
     existing = tagged_trials(study)
+    halted = halted_variants(study)
     n = 0
     for job in jobs:
+        if job.variant_id in halted:
+            continue
         trials = existing.get(job.key)
         if trials and job_status(trials)[0] not in (FAILED, RETIRED):
             continue
@@ -133,6 +147,24 @@ def is_first_live(trials: list[FrozenTrial], number: int) -> bool:
     return True
 
 
+def take(study: optuna.Study, liveness, trial_id: int):
+    """Move a waiting trial to RUNNING with the storage's compare-and-set (under the liveness
+    check's hold, which serializes local claims); the held token when this process won, else
+    None (another process took it first). The one take of a claim and of a withdrawal."""
+    token = liveness.hold(trial_id)
+    if token is None:
+        return None
+    storage = study._storage  # noqa: SLF001 (the compare-and-set lives on the storage)
+    try:
+        won = storage.set_trial_state_values(trial_id, TrialState.RUNNING)
+    except optuna.exceptions.UpdateFinishedTrialError:
+        won = False
+    if not won:
+        liveness.release(token)
+        return None
+    return token
+
+
 def claim_next(study: optuna.Study, liveness, order: dict[str, int] | None = None) -> Claim | None:
     """Claim the next waiting job (in ``order`` of job keys, else by trial number), or None.
 
@@ -142,7 +174,6 @@ def claim_next(study: optuna.Study, liveness, order: dict[str, int] | None = Non
     candidate is live.
     """
     order = order or {}
-    storage = study._storage  # noqa: SLF001 (the compare-and-set lives on the storage)
     while True:
         trials = study.get_trials(deepcopy=False)
         by_job: dict[str, list[FrozenTrial]] = defaultdict(list)
@@ -154,27 +185,67 @@ def claim_next(study: optuna.Study, liveness, order: dict[str, int] | None = Non
             return None
         waiting.sort(key=lambda t: (order.get(t.user_attrs["job"], len(order)), t.number))
         for candidate in waiting:
-            token = liveness.hold(candidate._trial_id)
+            token = take(study, liveness, candidate._trial_id)
             if token is None:
-                continue
-            try:
-                won = storage.set_trial_state_values(candidate._trial_id, TrialState.RUNNING)
-            except optuna.exceptions.UpdateFinishedTrialError:
-                won = False
-            if not won:
-                liveness.release(token)
                 continue
             liveness.started(study, candidate._trial_id)
             trial = optuna.Trial(study, candidate._trial_id)
             key = candidate.user_attrs["job"]
-            if is_first_live(by_job[key], candidate.number):
+            # Read after the compare-and-set: a stop recorded before it is seen (docstring).
+            halted = halted_variants(study).get(candidate.user_attrs.get("variant_id"))
+            if halted is not None:
+                tell_withdrawn(study, trial, halted_why(halted))
+            elif is_first_live(by_job[key], candidate.number):
                 return Claim(trial, key, token)
-            trial.set_user_attr("outcome", "duplicate")
-            study.tell(trial, state=TrialState.FAIL)
+            else:
+                trial.set_user_attr("outcome", "duplicate")
+                study.tell(trial, state=TrialState.FAIL)
             liveness.release(token)
             break  # read the queue again
         else:
             time.sleep(0.05)  # every waiting trial was being claimed by someone else: look again
+
+
+def halted_why(seed: int) -> dict:
+    """What a withdrawn trial of a variant that successive halving stopped on ``seed`` records
+    (trials.csv's ``retired_why`` and ``retired_after``)."""
+    return {"retired_why": STOPPED, "retired_after": seed}
+
+
+def tell_withdrawn(study: optuna.Study, trial: optuna.Trial, why: dict) -> None:
+    """End a trial that this process holds (it won the compare-and-set) as retired."""
+    trial.set_user_attr("outcome", RETIRED)
+    for name, value in why.items():
+        trial.set_user_attr(name, value)
+    study.tell(trial, state=TrialState.FAIL)
+
+
+def withdraw(study: optuna.Study, liveness, variants: Mapping[str, dict]) -> int:
+    """Tell FAIL, with ``outcome = "retired"`` and the variant's entry of ``variants`` as user
+    attributes, every waiting trial of those variants that this process can take (the same
+    compare-and-set as `claim_next`); how many."""
+    if not variants:
+        return 0
+    n = 0
+    for trial in study.get_trials(deepcopy=False, states=(TrialState.WAITING,)):
+        why = variants.get(trial.user_attrs.get("variant_id"))
+        if why is None:
+            continue
+        token = take(study, liveness, trial._trial_id)
+        if token is not None:
+            tell_withdrawn(study, optuna.Trial(study, trial._trial_id), why)
+            liveness.release(token)
+            n += 1
+    return n
+
+
+def withdraw_halted(study: optuna.Study, liveness) -> int:
+    """Withdraw the waiting trials of every variant that successive halving stopped; how many."""
+    halted = halted_variants(study)
+    n = withdraw(study, liveness, {vid: halted_why(seed) for vid, seed in halted.items()})
+    if n:
+        log.info("halving: %d waiting trial(s) of stopped variants withdrawn", n)
+    return n
 
 
 def next_waiting_key(study: optuna.Study, order: dict[str, int]) -> str | None:

@@ -17,7 +17,10 @@ module runs it on the study, so that every worker and every machine sharing the 
   first undecided round. Seeds therefore still run in rounds, and a run cut short by its
   budget holds a complete comparison of the variants that remain. A retired variant's
   waiting trials (enqueued by an earlier run without racing) are withdrawn: claimed with the
-  storage's compare-and-set and told FAIL with ``outcome = "retired"`` (lifecycle.RETIRED).
+  storage's compare-and-set and told FAIL with ``outcome = "retired"`` (lifecycle.RETIRED;
+  `trials.queue.withdraw`).
+- A variant that successive halving stopped on a seed is out of the race: it gets no more
+  seeds either (trials/halving.py), and rounds are decided without it.
 - A variant added to the sweep after a round was decided joins the race at the first
   undecided round.
 """
@@ -30,13 +33,13 @@ from dataclasses import dataclass
 
 import numpy as np
 import optuna
-from optuna.exceptions import UpdateFinishedTrialError
 from optuna.trial import FrozenTrial, TrialState
 
-from kablate.lifecycle import RETIRED, JobKey, is_finished
+from kablate.lifecycle import JobKey, is_finished
 from kablate.spec.costs import COSTS
+from kablate.trials.halving import halted_variants
 from kablate.trials.jobs import Job
-from kablate.trials.queue import enqueue_missing, job_status, tagged_trials
+from kablate.trials.queue import enqueue_missing, job_status, tagged_trials, withdraw
 
 log = logging.getLogger("kablate")
 
@@ -157,12 +160,12 @@ class Race:
         from kablate.analysis.race import retirements
         from kablate.results.evidence import decode_predictions
 
-        retired = retired_variants(rounds)
+        out = set(retired_variants(rounds)) | set(halted_variants(study))
         seeds = self.seeds[: r + 1]
         by_job = tagged_trials(study)
         compared, correct, predicted = [], [], []
         for vid, _, _ in self.variants:
-            if vid in retired:
+            if vid in out:
                 continue
             keys = [str(JobKey(vid, s)) for s in seeds]
             found = [job_status(by_job[key]) if key in by_job else None for key in keys]
@@ -208,7 +211,7 @@ class Race:
         the jobs of the variants in the race; how many jobs were enqueued. Callers hold
         ``liveness.queue_lock()``."""
         rounds = self.decide_rounds(study)
-        withdraw(study, liveness, set(retired_variants(rounds)))
+        withdraw(study, liveness, dict.fromkeys(retired_variants(rounds), {}))
         return enqueue_missing(study, self.jobs(rounds))
 
 
@@ -217,32 +220,6 @@ def scored(trial: FrozenTrial) -> str | None:
     if trial.state != TrialState.COMPLETE:
         return None
     return (trial.user_attrs.get("predictions") or {}).get("val")
-
-
-def withdraw(study: optuna.Study, liveness, retired: set[str]) -> int:
-    """Tell FAIL, with ``outcome = "retired"``, every waiting trial of a retired variant that
-    this process can claim (the same compare-and-set as `queue.claim_next`); how many."""
-    if not retired:
-        return 0
-    storage = study._storage  # noqa: SLF001 (the compare-and-set lives on the storage)
-    n = 0
-    for trial in study.get_trials(deepcopy=False, states=(TrialState.WAITING,)):
-        if trial.user_attrs.get("variant_id") not in retired:
-            continue
-        token = liveness.hold(trial._trial_id)
-        if token is None:
-            continue
-        try:
-            won = storage.set_trial_state_values(trial._trial_id, TrialState.RUNNING)
-        except UpdateFinishedTrialError:
-            won = False
-        if won:
-            claimed = optuna.Trial(study, trial._trial_id)
-            claimed.set_user_attr("outcome", RETIRED)
-            study.tell(claimed, state=TrialState.FAIL)
-            n += 1
-        liveness.release(token)
-    return n
 
 
 def start_race(study: optuna.Study, catalog, labels, racing: str, budget: float) -> Race | None:

@@ -7,9 +7,20 @@ from __future__ import annotations
 
 import optuna
 
-from kablate.lifecycle import FAILED, MISSING, RETIRED, WAITING, JobKey
+from kablate.lifecycle import (
+    FAILED,
+    MISSING,
+    RETIRED,
+    RUNNING,
+    SETTLED,
+    STOPPED,
+    WAITING,
+    JobKey,
+)
 from kablate.results.columns import CURVE_COLUMNS, TRIAL_COLUMNS
 from kablate.train.record import shown_epoch
+from kablate.trials.halving import halted_variants
+from kablate.trials.jobs import Job
 from kablate.trials.queue import job_status, tagged_trials
 from kablate.trials.race import RULE_ATTR, read_rounds, retired_variants
 
@@ -23,6 +34,7 @@ def collect_trials(study: optuna.Study, plan: dict) -> tuple[list[dict], list[di
     by_job = tagged_trials(study)
     # A race's retirements count while the study races (a run with racing off trains them).
     retired = retired_variants(read_rounds(study)) if study.user_attrs.get(RULE_ATTR) else {}
+    halted = halted_variants(study)  # stopped by successive halving: no more seeds
     rows, curves = [], []
     for seed in plan["seeds"]:
         for v in plan["variants"]:
@@ -77,7 +89,28 @@ def collect_trials(study: optuna.Study, plan: dict) -> tuple[list[dict], list[di
             if v["id"] in retired:  # racing gave it no more seeds: the card says why
                 row["retired"] = retired[v["id"]]
                 row["retired_after"] = retired[v["id"]]["seed"]
+                row["retired_why"] = retired[v["id"]].get("why")
                 if row["status"] in (MISSING, FAILED):
                     row["status"] = RETIRED
+            elif v["id"] in halted and row["status"] in (MISSING, FAILED, WAITING, RETIRED):
+                row["status"] = RETIRED  # its waiting trial is (or is being) withdrawn
+                row["retired_after"] = halted[v["id"]]
+                row["retired_why"] = STOPPED
             rows.append(row)
     return rows, curves
+
+
+def settled_jobs(study: optuna.Study, jobs: list[Job]) -> set[str]:
+    """The keys of ``jobs`` that need no more training, which the estimate, the budget and the
+    ETA leave out: finished, retired, or not running and of a variant that gets no more seeds
+    (racing retired it while the study races; halving stopped it while the study halves)."""
+    by_job = tagged_trials(study)
+    out = set(halted_variants(study))
+    if study.user_attrs.get(RULE_ATTR):
+        out |= set(retired_variants(read_rounds(study)))
+    keys = set()
+    for job in jobs:
+        status = job_status(by_job[job.key])[0] if job.key in by_job else MISSING
+        if status in SETTLED or (job.variant_id in out and status != RUNNING):
+            keys.add(job.key)
+    return keys

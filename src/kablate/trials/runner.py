@@ -21,7 +21,7 @@ from kablate.costs.catalog import Catalog, build_catalog, measure_latencies
 from kablate.costs.plan_output import variant_json
 from kablate.data.prepare import prepare_data
 from kablate.errors import UsageError
-from kablate.lifecycle import FINISHED, is_finished
+from kablate.lifecycle import FINISHED, RETIRED
 from kablate.results.paths import DATA_FILE, JOURNAL, PLAN_FILE, SWEEP_FILE
 from kablate.results.redact import redact, sanitize, strip_password
 from kablate.results.tables import write_trial_tables
@@ -44,9 +44,9 @@ from kablate.trials.pool import (
     setup_logging,
 )
 from kablate.trials.preflight import run_preflight
-from kablate.trials.queue import enqueue_missing, job_status, tagged_trials
-from kablate.trials.race import start_race
-from kablate.trials.rows import collect_trials
+from kablate.trials.queue import enqueue_missing, withdraw_halted
+from kablate.trials.race import racing_wanted, start_race
+from kablate.trials.rows import collect_trials, settled_jobs
 from kablate.trials.search import refuse_search_run
 from kablate.trials.search_run import run_search
 from kablate.trials.store import lock_dir, open_study, resolve_url, storage_exists
@@ -169,15 +169,18 @@ def export_results(results_dir: Path, study, plan: dict) -> dict[str, int]:
     return counts
 
 
-def finished_jobs(study, jobs: list[Job]) -> set[str]:
-    by_job = tagged_trials(study)
-    return {j.key for j in jobs if j.key in by_job and is_finished(job_status(by_job[j.key])[0])}
-
-
 def estimate(
-    catalog: Catalog, data, jobs: list[Job], done: set[str], layout, budget: float, started=None
+    catalog: Catalog,
+    data,
+    jobs: list[Job],
+    done: set[str],
+    layout,
+    budget: float,
+    started=None,
+    bound: str = "",
 ):
     """Calibrate and replay the remaining jobs; (seconds by variant id, printed text).
+    ``bound``: why the figure is only an upper bound (`upper_bound`), or empty.
 
     The replay starts when the workers can take their first job: after what the run has spent
     so far (since ``started``, the run's start time; for a dry run, this calibration and the
@@ -202,8 +205,21 @@ def estimate(
         len(catalog.variants),
         layout,
         already=[j.seed for j in jobs if j.key in done],
+        bound=bound,
     )
     return seconds, text
+
+
+def upper_bound(racing: bool, halving: bool) -> str:
+    """Why an estimate that counts every trial left at full length is an upper bound: the
+    modes that train fewer trials, or shorter ones, as the evidence comes in ('' without)."""
+    modes = [
+        *(["racing may retire variants"] if racing else []),
+        *(["halving may stop trials early, and their variants with them"] if halving else []),
+    ]
+    if not modes:
+        return ""
+    return f"an upper bound: {' and '.join(modes)}, which cannot be known in advance"
 
 
 def brief(text: str) -> str:
@@ -226,9 +242,12 @@ def dry_run(sweep_path: Path, opts: RunOptions) -> RunSummary:
     jobs = sweep_jobs(catalog)
     layout = choose_layout(opts.workers, opts.threads, len(jobs))
     done: set[str] = set()
+    races = sweep.racing == "on" or (sweep.racing == "auto" and bool(opts.budget_seconds))
     if storage_exists(results_dir, url):
         try:
-            done = finished_jobs(open_study(sweep.name, results_dir, url, create=False), jobs)
+            study = open_study(sweep.name, results_dir, url, create=False)
+            done = settled_jobs(study, jobs)
+            races = racing_wanted(sweep.racing, opts.budget_seconds, study)
         except UsageError:
             done = set()
     if jobs and len(done) == len(jobs):  # nothing to calibrate or order
@@ -245,7 +264,8 @@ def dry_run(sweep_path: Path, opts: RunOptions) -> RunSummary:
     step("start-up", f"preparing the data ({sweep.data.source}) and the preflight")
     data = prepare_data(sweep.data)
     run_preflight(catalog, data, layout[0], opts.device)
-    _, text = estimate(catalog, data, jobs, done, layout, opts.budget_seconds)
+    bound = upper_bound(races, sweep.halving.enabled)
+    _, text = estimate(catalog, data, jobs, done, layout, opts.budget_seconds, bound=bound)
     text += "\n" + plan_note(len(data.val.labels), sweep.pick.margin, len(sweep.seeds))
     if opts.echo:
         opts.echo(text)
@@ -317,18 +337,21 @@ def _run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
     liveness.recover(study)
     # Racing (trials/race.py): only the rounds decided so far are enqueued; workers go on.
     race = start_race(study, catalog, data.val.labels, sweep.racing, opts.budget_seconds)
-    start_halving(study, sweep)  # successive halving inside trials (trials/halving.py)
+    halving = start_halving(study, sweep)  # successive halving inside trials (trials/halving.py)
     with liveness.queue_lock():
+        withdraw_halted(study, liveness)  # a variant stopped on a seed gets no more seeds
         n_new = race.advance(study, liveness) if race else enqueue_missing(study, jobs)
     before = export_results(results_dir, study, plan)
     n_finished = sum(before.get(status, 0) for status in FINISHED)
-    to_run = len(jobs) - n_finished
+    n_dropped = before.get(RETIRED, 0)  # racing retired or halving stopped their variant
+    to_run = len(jobs) - n_finished - n_dropped
     log.info(
-        "sweep %s: %d trials, %d already finished, %d to run on %d worker(s) x %d "
-        "thread(s); storage %s",
+        "sweep %s: %d trials, %d already finished, %d not run (variant retired or stopped), "
+        "%d to run on %d worker(s) x %d thread(s); storage %s",
         sweep.name,
         len(jobs),
         n_finished,
+        n_dropped,
         to_run,
         *layout,
         redact(url) if url else results_dir / JOURNAL,
@@ -337,9 +360,10 @@ def _run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
     summary.budget_seconds = opts.budget_seconds
     seconds: dict[str, float] = {}
     if to_run:  # with or without --budget: the estimate, and the predictions the ETA starts from
-        done = finished_jobs(study, jobs)
+        done = settled_jobs(study, jobs)
+        bound = upper_bound(race is not None, halving is not None)
         seconds, summary.estimate = estimate(
-            catalog, data, jobs, done, layout, opts.budget_seconds, started
+            catalog, data, jobs, done, layout, opts.budget_seconds, started, bound
         )
         # Into run.log; on the console only through ``echo`` when there is one (not twice).
         log.info("%s", summary.estimate, extra={FILE_ONLY: opts.echo is not None})
@@ -356,6 +380,7 @@ def _run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
             n_workers=layout[0],
             since=started_at,
         )
+        progress.settle(collect_trials(study, plan)[0])  # a resumed run's jobs that will not run
         pool = run_workers(
             RunContext(
                 sweep_path=sweep_path,
@@ -380,7 +405,7 @@ def _run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
         summary.interrupted, summary.disk_full = pool.interrupted, pool.disk_full
         if deadline:
             summary.budget_left = max(0.0, deadline - time.time())
-            over = finished_jobs(study, jobs)
+            over = settled_jobs(study, jobs)
             waiting = [seconds.get(j.variant_id, 0.0) for j in jobs if j.key not in over]
             summary.shortest_waiting = min(waiting, default=0.0)
     if summary.disk_full:  # the study is consistent; writing the tables may not fit
@@ -388,7 +413,9 @@ def _run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
         return summary
     step("sweep", "writing trials.csv and curves.csv")
     summary.counts = export_results(results_dir, study, plan)
-    summary.failures = dict(failure_reasons(study, [j.key for j in jobs]))
+    # A job whose variant gets no more seeds is not a failure, whatever its last trial did.
+    settled = settled_jobs(study, jobs)
+    summary.failures = dict(failure_reasons(study, [j.key for j in jobs if j.key not in settled]))
     if summary.interrupted:
         log.warning("stopped; resume with the same command: %s", opts.command or "kablate run ...")
     return summary

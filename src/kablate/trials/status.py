@@ -79,12 +79,16 @@ def summarize(
         )
         entry["n_trials"] += 1
         entry[row_state(row["status"])] += 1
+        if row["status"] == RETIRED and row.get("retired_why") == STOPPED:
+            entry["halted_after"] = row.get("retired_after")  # halving stopped the variant
     tagged = [t for t in trials if t.user_attrs.get("job")]
     finished = [t for t in tagged if is_finished(trial_status(t))]
     finished.sort(key=lambda t: t.datetime_complete)
+    # Only trials trained to the end say how long one takes: a stopped or diverged one ended
+    # early (it counts at its actual time in the run's span below).
     durations = [
         (t.datetime_complete - t.datetime_start).total_seconds()
-        for t in finished[-RECENT:]
+        for t in [t for t in finished if trial_status(t) == DONE][-RECENT:]
         if t.datetime_start and t.datetime_complete
     ]
     running = [t for t in tagged if t.state == TrialState.RUNNING]
@@ -146,11 +150,14 @@ def busy_seconds(trials: list[FrozenTrial]) -> float:
 
 def format_status(status: SweepStatus) -> str:
     c = status.counts
+    n_halted = sum(v[RETIRED] for v in status.variants if v.get("halted_after") is not None)
+    n_raced = c[RETIRED] - n_halted
     lines = [
         f"sweep {status.sweep}: {c['done']}/{status.n_trials} done, {c['running']} running, "
         f"{c['waiting']} waiting, {c['failed']} failed, {c['diverged']} diverged"
-        + (f", {c[RETIRED]} not run (variant retired by racing)" if c[RETIRED] else "")
-        + (f", {c[STOPPED]} stopped early (successive halving)" if c[STOPPED] else ""),
+        + (f", {n_raced} not run (variant retired by racing)" if n_raced else "")
+        + (f", {c[STOPPED]} stopped early (successive halving)" if c[STOPPED] else "")
+        + (f", {n_halted} not run (variant stopped by halving)" if n_halted else ""),
     ]
     if status.finished and status.throughput_per_hour:
         lines.append(
@@ -182,11 +189,14 @@ def format_status(status: SweepStatus) -> str:
         acc = accuracy_text(accuracy.get(entry["variant"]))
         if entry[STOPPED] and not acc:  # its early scores are not compared (analysis/halving.py)
             acc = "  stopped early by successive halving: not compared"
+        if entry.get("halted_after") is not None:
+            acc += f"; not run: {entry[RETIRED]} seed(s), variant stopped by halving after seed "
+            acc += str(entry["halted_after"])
         lines.append(f"  {entry['variant']:<{width}}  {cell:<{cell_width}}{acc}".rstrip())
     lines.append("")
     lines.append(
-        "  # done  ~ running  x failed or diverged  . waiting  - retired (racing)  "
-        "/ stopped early (halving)"
+        "  # done  ~ running  x failed or diverged  . waiting  - not run (variant retired by "
+        "racing or stopped by halving)  / stopped early (halving)"
     )
     lines += standing_lines(status)
     return "\n".join(lines)
@@ -194,8 +204,8 @@ def format_status(status: SweepStatus) -> str:
 
 def progress_bar(entry: dict) -> str:
     """One character per trial of a variant: '#' done, '~' running, 'x' failed or diverged,
-    '.' waiting, '-' not run because racing retired the variant, '/' stopped early by
-    successive halving."""
+    '.' waiting, '-' not run because racing retired the variant or halving stopped it on another
+    seed, '/' stopped early by successive halving."""
     return (
         "#" * entry["done"]
         + "~" * entry["running"]

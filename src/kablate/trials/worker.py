@@ -30,7 +30,14 @@ from kablate.trials.eta import time_ratio
 from kablate.trials.halving import judge_for
 from kablate.trials.jobs import Job
 from kablate.trials.liveness import Liveness
-from kablate.trials.queue import Claim, claim_next, clean, next_waiting_key, requeue
+from kablate.trials.queue import (
+    Claim,
+    claim_next,
+    clean,
+    next_waiting_key,
+    requeue,
+    withdraw_halted,
+)
 from kablate.trials.race import race_of_study
 
 log = logging.getLogger("kablate")
@@ -132,7 +139,7 @@ def _train_and_tell(ctx: WorkerContext, trial: optuna.Trial, key: str) -> str:
             threads=ctx.threads,
             device=ctx.device,
             should_stop=ctx.should_stop,
-            judge=judge_for(ctx.study, trial),
+            judge=judge_for(ctx.study, trial, ctx.catalog.baseline.variant.id),
         )
     except TrialInterrupted:
         put_back(ctx, trial, "interrupted")
@@ -160,6 +167,7 @@ def _train_and_tell(ctx: WorkerContext, trial: optuna.Trial, key: str) -> str:
     elif record.status == STOPPED:  # successive halving: an early score, not a result
         trial.set_user_attr("outcome", STOPPED)
         ctx.study.tell(trial, state=TrialState.PRUNED)
+        withdraw_halted(ctx.study, ctx.liveness)  # its variant gets no more seeds
     else:
         ctx.study.tell(trial, values=[record.val_acc, float(item.cost.macs)])
     log.info(
@@ -227,7 +235,7 @@ def work(ctx: WorkerContext, on_finish: Callable[[str, str], None] | None = None
         started = time.time()
         status = run_one(ctx, claim)
         predicted = (ctx.estimates or {}).get(JobKey.parse(claim.key).variant_id)
-        if predicted:
+        if predicted and status == "done":  # a stopped or diverged trial ended early
             took[claim.key], predictions[claim.key] = time.time() - started, predicted
         n += 1
         if on_finish is not None:
