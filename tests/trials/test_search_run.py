@@ -115,7 +115,7 @@ def test_a_search_killed_mid_training_resumes_with_the_same_command(tmp_path):
                     storage=open_storage(results / "tiny", None, read_only=True),
                 )
         states = [t.state for t in study.get_trials(deepcopy=False)] if study else []
-        if TrialState.COMPLETE in states and states[-1] == TrialState.RUNNING:
+        if TrialState.COMPLETE in states and TrialState.RUNNING in states:
             break
         time.sleep(0.02)
     else:

@@ -284,9 +284,18 @@ def _run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
     study = open_study(sweep.name, results_dir, url)
     step("start-up", f"preparing the data ({sweep.data.source})")
     data = prepare_data(sweep.data)
-    if sweep.search is not None:  # search first (one process), then train its finalists
-        threads = choose_layout(1, opts.threads, 1)[1]
-        sweep = run_search(catalog, data, results_dir, url, threads, opts.device)
+    if sweep.search is not None:  # search first, on every worker, then train its finalists
+        search_layout = choose_layout(opts.workers, opts.threads, sweep.search.budget)
+        sweep = run_search(
+            catalog,
+            data,
+            results_dir,
+            url,
+            search_layout,
+            opts.device,
+            sweep_path,
+            opts.results_root,
+        )
         catalog = build_catalog(sweep)
     jobs = sweep_jobs(catalog)
     layout = choose_layout(opts.workers, opts.threads, len(jobs))
