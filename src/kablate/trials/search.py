@@ -117,9 +117,11 @@ def default_population(budget: int) -> int:
     return min(50, max(4, budget // 4))
 
 
-def search_study(seed: int, population: int, **create) -> optuna.Study:
+def search_study(seed: int | None, population: int, **create) -> optuna.Study:
     """A two-objective study (accuracy ↑, cost ↓) sampled by NSGA-II; ``create`` goes to
-    `optuna.create_study` (storage, study_name, load_if_exists)."""
+    `optuna.create_study` (storage, study_name, load_if_exists). Each of several processes
+    that share a study needs its own ``seed`` (None: from the system's entropy), or they
+    propose the same plans in step."""
     sampler = optuna.samplers.NSGAIISampler(population_size=population, seed=seed)
     return optuna.create_study(directions=["maximize", "minimize"], sampler=sampler, **create)
 

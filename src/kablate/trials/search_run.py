@@ -50,7 +50,7 @@ from kablate.trials.search import (
     search_front,
     search_study,
 )
-from kablate.trials.store import lock_dir, open_storage
+from kablate.trials.store import is_local, lock_dir, open_storage
 
 log = logging.getLogger("kablate")
 
@@ -93,8 +93,10 @@ def run_search(
     procs = [ctx.Process(target=_search_worker_main, args=args) for _ in range(workers - 1)]
     for proc in procs:
         proc.start()
+    # One process on one machine proposes from the sampler seed; several need seeds of their own.
+    seed = search.seed if workers == 1 and is_local(url) else None
     try:
-        result = search_in(catalog, data, results_dir, url, threads, device)
+        result = search_in(catalog, data, results_dir, url, threads, device, seed)
     finally:
         for proc in procs:
             proc.join()
@@ -112,14 +114,16 @@ def run_search(
     return finalist_sweep(sweep, record)
 
 
-def search_in(catalog, data, results_dir: Path, url: str | None, threads: int, device: str):
-    """Take part in the search of the sweep's study from this process until it is done; the
-    `SearchResult` of the whole study (every process's proposals)."""
+def search_in(
+    catalog, data, results_dir: Path, url: str | None, threads: int, device: str, seed: int | None
+):
+    """Take part in the search of the sweep's study from this process, its sampler seeded by
+    ``seed``, until the search is done; the `SearchResult` of the whole study (every process's
+    proposals)."""
     sweep = catalog.sweep
     search = sweep.search
-    seed = sweep.seeds[0]
     study = search_study(
-        search.seed,
+        seed,
         default_population(search.budget),
         storage=open_storage(results_dir, url),
         study_name=search_study_name(sweep.name),
@@ -130,8 +134,10 @@ def search_in(catalog, data, results_dir: Path, url: str | None, threads: int, d
     def score(plan: dict[str, str]) -> float:
         variant = Variant(cell_name(plan), plan, resolve_kernels(sweep.network, plan))
         layout = layout_network(sweep.network, variant, catalog.in_shape, catalog.n_classes)
-        step("search", f"training {variant.name} with seed {seed}")
-        record = train_trial(layout, sweep.recipe, data, seed=seed, threads=threads, device=device)
+        step("search", f"training {variant.name} with seed {sweep.seeds[0]}")
+        record = train_trial(
+            layout, sweep.recipe, data, seed=sweep.seeds[0], threads=threads, device=device
+        )
         return record.val_acc
 
     search_front(
@@ -139,7 +145,7 @@ def search_in(catalog, data, results_dir: Path, url: str | None, threads: int, d
         SpaceScreen.of(catalog),
         score,
         search.budget,
-        search.seed,
+        seed,
         study=study,
         first=start_plans(search.choices),
         liveness=liveness,
@@ -157,7 +163,7 @@ def _search_worker_main(
     results_dir = Path(results_root) / sweep.name
     setup_logging(results_dir, to_console=False)
     catalog = build_catalog(sweep)
-    search_in(catalog, prepare_data(sweep.data), results_dir, url, threads, device)
+    search_in(catalog, prepare_data(sweep.data), results_dir, url, threads, device, None)
 
 
 def search_record(result: SearchResult, catalog) -> dict:
