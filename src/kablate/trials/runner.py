@@ -48,6 +48,7 @@ from kablate.trials.queue import enqueue_missing, job_status, tagged_trials
 from kablate.trials.race import start_race
 from kablate.trials.rows import collect_trials
 from kablate.trials.search import refuse_search_run
+from kablate.trials.search_estimate import search_estimate
 from kablate.trials.search_run import run_search
 from kablate.trials.store import lock_dir, open_study, resolve_url, storage_exists
 
@@ -219,7 +220,6 @@ def dry_run(sweep_path: Path, opts: RunOptions) -> RunSummary:
     """Calibrate and print the estimate and order without training or writing results."""
     step("start-up", f"reading {sweep_path} and costing its variants")
     sweep = load_sweep(sweep_path)
-    refuse_search_run(sweep, "with --dry-run")
     catalog = build_catalog(sweep)
     results_dir = opts.results_root / sweep.name
     url = resolve_url(opts.storage)
@@ -244,6 +244,12 @@ def dry_run(sweep_path: Path, opts: RunOptions) -> RunSummary:
         return summary
     step("start-up", f"preparing the data ({sweep.data.source}) and the preflight")
     data = prepare_data(sweep.data)
+    if sweep.search is not None:  # the search and an upper bound for its finalists
+        layout = choose_layout(opts.workers, opts.threads, sweep.search.budget)
+        text = search_estimate(catalog, data, layout)
+        if opts.echo:
+            opts.echo(text)
+        return RunSummary(results_dir, len(jobs), 0, 0, layout=layout, estimate=text)
     run_preflight(catalog, data, layout[0], opts.device)
     _, text = estimate(catalog, data, jobs, done, layout, opts.budget_seconds)
     text += "\n" + plan_note(len(data.val.labels), sweep.pick.margin, len(sweep.seeds))
@@ -273,8 +279,8 @@ def _run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
     started, started_at = time.time(), datetime.now()  # Optuna's trial times are naive local
     step("start-up", f"reading {sweep_path} and costing its variants")
     sweep = load_sweep(sweep_path)
-    if opts.budget_seconds:  # the estimate and the budget do not count the search's trials yet
-        refuse_search_run(sweep, "with --budget")
+    if opts.budget_seconds:  # the budget's schedule does not count the search's trials yet
+        refuse_search_run(sweep)
     catalog = build_catalog(sweep)
     results_dir = opts.results_root / sweep.name
     url = resolve_url(opts.storage)

@@ -237,9 +237,9 @@ def read_candidate(trial: FrozenTrial) -> Candidate | None:
     )
 
 
-def refuse_search_run(sweep, how: str) -> None:
-    """`kablate run` ``how`` (``--dry-run``, ``--budget``) cannot search yet: refuse a
-    ``[search]`` sweep rather than estimate or budget only the finalists' trials.
+def refuse_search_run(sweep) -> None:
+    """`kablate run --budget` cannot schedule a search yet: refuse a ``[search]`` sweep rather
+    than budget only the finalists' trials.
 
     Raises:
         SweepError: naming the ``search`` key of the sweep file.
@@ -248,9 +248,9 @@ def refuse_search_run(sweep, how: str) -> None:
         raise SweepError(
             sweep.source,
             "search",
-            f"declares a space to search, which `kablate run` {how} cannot do yet (its "
-            "estimate would leave out the search's trials): run it without that option; "
-            "`kablate plan` shows the space's size and what the budget covers",
+            "declares a space to search, which `kablate run --budget` cannot schedule yet (its "
+            "schedule would leave out the search's trials): run it without --budget; `kablate "
+            "run --dry-run` estimates the search and bounds its finalists' time",
         )
 
 
