@@ -86,12 +86,20 @@ def test_a_search_sweep_trains_its_finalists_with_every_seed_and_resumes(tmp_pat
     assert status.returncode == 0, status.stderr[-3000:]
 
 
-def test_dry_run_and_budget_still_refuse_a_search_sweep(tmp_path):
-    sweep = search_sweep(tmp_path)
-    for extra in (["--dry-run"], ["--budget", "1h"]):
-        out = run(sweep, tmp_path / "results", *extra)
-        assert out.returncode == 2 and "`search`" in out.stderr, out.stderr[-2000:]
-        assert "Traceback" not in out.stderr
+def test_dry_run_estimates_a_search_sweep_and_budget_refuses_it(tmp_path):
+    sweep = search_sweep(tmp_path)  # budget 3, 2 seeds, no [[plan]]
+    out = run(sweep, tmp_path / "results", "--dry-run", "--workers", "2")
+    assert out.returncode == 0, out.stderr[-3000:]
+    # the search: 3 plans; the finalists: at most 3 on the front + the baseline, × 2 seeds
+    # the space's one uniform plan (all 3×3) is its one start plan
+    assert "search: 3 plans at" in out.stdout and "(timed on the 1 start plan(s))" in out.stdout
+    assert "on 2 worker(s)" in out.stdout
+    assert "finalists: at most 4 plans" in out.stdout and "× 2 seeds = 8 trials" in out.stdout
+    assert not (tmp_path / "results" / "tiny" / SEARCH_FILE).exists()  # nothing trained
+
+    out = run(sweep, tmp_path / "results", "--budget", "1h")
+    assert out.returncode == 2 and "`search`" in out.stderr, out.stderr[-2000:]
+    assert "--dry-run" in out.stderr and "Traceback" not in out.stderr
     assert not (tmp_path / "results" / "tiny" / SEARCH_FILE).exists()
 
 
@@ -115,7 +123,7 @@ def test_a_search_killed_mid_training_resumes_with_the_same_command(tmp_path):
                     storage=open_storage(results / "tiny", None, read_only=True),
                 )
         states = [t.state for t in study.get_trials(deepcopy=False)] if study else []
-        if TrialState.COMPLETE in states and states[-1] == TrialState.RUNNING:
+        if TrialState.COMPLETE in states and TrialState.RUNNING in states:
             break
         time.sleep(0.02)
     else:

@@ -20,6 +20,7 @@ from kablate.plans.grammar import KernelSpecError, parse_kernel
 from kablate.report.halving import halving_section
 from kablate.report.race import race_section
 from kablate.report.search import search_section
+from kablate.report.search_plots import HYPERVOLUME_PLOT
 from kablate.report.stem_card import stem_section
 from kablate.report.tables import (
     ci,
@@ -74,6 +75,8 @@ PLOT_CAPTIONS = {
     "near-duplicate filters framed",
     "stem_spectrum": "Radially averaged power spectrum of the stem's filters (mean over live "
     "filters and seeds) and their energy per frequency band (95% interval over seeds)",
+    HYPERVOLUME_PLOT: "Hypervolume of the plans the search trained (one seed) after each plan, "
+    "with its reference point; a flat stretch is plans that did not move the front",
     "confusion": "Confusion matrices of the recommended plan and the baseline on the validation "
     "images, pooled over seeds",
 }

@@ -22,6 +22,7 @@ from kablate.report.plots import (
     plot_learning_curves,
     plot_rf_vs_accuracy,
 )
+from kablate.report.search_plots import plot_hypervolume
 from kablate.report.stem_card import STEM_FILTERS, STEM_SEEDS_TABLE, STEM_TABLE
 from kablate.report.stem_plots import plot_stem_atlas, plot_stem_spectrum
 from kablate.results.columns import TRIAL_COLUMNS, VARIANT_COLUMNS
@@ -90,6 +91,8 @@ def draw_plots(analysis: Analysis, out: Path, sub: str) -> list[Path]:
         if analysis.stem is not None:
             plots += plot_stem_atlas(analysis.stem, out, sub)
             plots += plot_stem_spectrum(analysis.stem, out, sub)
+        if analysis.search:
+            plots += plot_hypervolume(analysis.search, out, sub)
     return plots
 
 

@@ -48,6 +48,7 @@ from kablate.trials.queue import enqueue_missing, withdraw_halted
 from kablate.trials.race import racing_wanted, start_race
 from kablate.trials.rows import collect_trials, settled_jobs
 from kablate.trials.search import refuse_search_run
+from kablate.trials.search_estimate import search_estimate
 from kablate.trials.search_run import run_search
 from kablate.trials.store import lock_dir, open_study, resolve_url, storage_exists
 
@@ -235,7 +236,6 @@ def dry_run(sweep_path: Path, opts: RunOptions) -> RunSummary:
     """Calibrate and print the estimate and order without training or writing results."""
     step("start-up", f"reading {sweep_path} and costing its variants")
     sweep = load_sweep(sweep_path)
-    refuse_search_run(sweep, "with --dry-run")
     catalog = build_catalog(sweep)
     results_dir = opts.results_root / sweep.name
     url = resolve_url(opts.storage)
@@ -263,6 +263,12 @@ def dry_run(sweep_path: Path, opts: RunOptions) -> RunSummary:
         return summary
     step("start-up", f"preparing the data ({sweep.data.source}) and the preflight")
     data = prepare_data(sweep.data)
+    if sweep.search is not None:  # the search and an upper bound for its finalists
+        layout = choose_layout(opts.workers, opts.threads, sweep.search.budget)
+        text = search_estimate(catalog, data, layout)
+        if opts.echo:
+            opts.echo(text)
+        return RunSummary(results_dir, len(jobs), 0, 0, layout=layout, estimate=text)
     run_preflight(catalog, data, layout[0], opts.device)
     bound = upper_bound(races, sweep.halving.enabled)
     _, text = estimate(catalog, data, jobs, done, layout, opts.budget_seconds, bound=bound)
@@ -293,8 +299,8 @@ def _run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
     started, started_at = time.time(), datetime.now()  # Optuna's trial times are naive local
     step("start-up", f"reading {sweep_path} and costing its variants")
     sweep = load_sweep(sweep_path)
-    if opts.budget_seconds:  # the estimate and the budget do not count the search's trials yet
-        refuse_search_run(sweep, "with --budget")
+    if opts.budget_seconds:  # the budget's schedule does not count the search's trials yet
+        refuse_search_run(sweep)
     catalog = build_catalog(sweep)
     results_dir = opts.results_root / sweep.name
     url = resolve_url(opts.storage)
@@ -304,9 +310,18 @@ def _run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
     study = open_study(sweep.name, results_dir, url)
     step("start-up", f"preparing the data ({sweep.data.source})")
     data = prepare_data(sweep.data)
-    if sweep.search is not None:  # search first (one process), then train its finalists
-        threads = choose_layout(1, opts.threads, 1)[1]
-        sweep = run_search(catalog, data, results_dir, url, threads, opts.device)
+    if sweep.search is not None:  # search first, on every worker, then train its finalists
+        search_layout = choose_layout(opts.workers, opts.threads, sweep.search.budget)
+        sweep = run_search(
+            catalog,
+            data,
+            results_dir,
+            url,
+            search_layout,
+            opts.device,
+            sweep_path,
+            opts.results_root,
+        )
         catalog = build_catalog(sweep)
     jobs = sweep_jobs(catalog)
     layout = choose_layout(opts.workers, opts.threads, len(jobs))

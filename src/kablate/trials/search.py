@@ -31,14 +31,17 @@ evolutionary algorithm does (common practice).
 
 A study that already holds trials (a resumed run) continues where it stopped: its evaluated
 networks count against the budget and are never evaluated again; a trial that a kill left
-RUNNING is told FAIL (``outcome = "interrupted"``) and its plan may be proposed again. One
-process at a time owns a search study (several workers sharing one are not supported yet);
-`kablate.trials.search_run` runs it for `kablate run`.
+RUNNING is told FAIL (``outcome = "interrupted"``) and its plan may be proposed again.
+Several processes, on one machine or several sharing a PostgreSQL storage, may run
+`search_front` on one study at once: `kablate.trials.search_claim` keeps the budget in the
+study and tells which proposals repeat another's. `kablate.trials.search_run` runs it for
+`kablate run`.
 """
 
 from __future__ import annotations
 
 import json
+import time
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 
@@ -50,11 +53,25 @@ from kablate.analysis.pareto import pareto_front
 from kablate.costs.screen import Screen
 from kablate.errors import SweepError
 from kablate.plans.space import Choices, space_size
+from kablate.trials.queue import has_waiting
+from kablate.trials.search_claim import (
+    CLAIMED,
+    INTERRUPTED,
+    TICKET,
+    SoloLiveness,
+    give_back,
+    has_running,
+    holds_ticket,
+    issue_tickets,
+    pop,
+    recover_search,
+    repeats,
+)
 
 optuna.logging.set_verbosity(optuna.logging.WARNING)
 
 EVALUATED, FILTERED, REPEAT = "evaluated", "filtered", "repeat"  # a proposal's outcome
-INTERRUPTED = "interrupted"  # a proposal whose training was cut short by a kill
+POLL_SECONDS = 1.0  # how often a process with nothing to propose looks again
 PROPOSALS_PER_EVALUATION = 20  # the default cap on proposals, per evaluation of the budget
 
 
@@ -67,7 +84,7 @@ class Candidate:
     key: str
     cost: float
     accuracy: float | None  # None unless evaluated
-    outcome: str  # EVALUATED, FILTERED or REPEAT
+    outcome: str  # EVALUATED, FILTERED, REPEAT or INTERRUPTED
     reason: str = ""  # the filter's reason, for FILTERED
 
 
@@ -100,9 +117,11 @@ def default_population(budget: int) -> int:
     return min(50, max(4, budget // 4))
 
 
-def search_study(seed: int, population: int, **create) -> optuna.Study:
+def search_study(seed: int | None, population: int, **create) -> optuna.Study:
     """A two-objective study (accuracy ↑, cost ↓) sampled by NSGA-II; ``create`` goes to
-    `optuna.create_study` (storage, study_name, load_if_exists)."""
+    `optuna.create_study` (storage, study_name, load_if_exists). Each of several processes
+    that share a study needs its own ``seed`` (None: from the system's entropy), or they
+    propose the same plans in step."""
     sampler = optuna.samplers.NSGAIISampler(population_size=population, seed=seed)
     return optuna.create_study(directions=["maximize", "minimize"], sampler=sampler, **create)
 
@@ -116,6 +135,7 @@ def search_front(
     study: optuna.Study | None = None,
     max_proposals: int | None = None,
     first: Sequence[Mapping[str, str]] = (),
+    liveness=None,
 ) -> SearchResult:
     """Evaluate at most ``budget`` distinct allowed networks of the space, chosen by NSGA-II.
 
@@ -128,41 +148,63 @@ def search_front(
         study: where the trials go; a new in-memory one (`search_study`) when None.
         max_proposals: stop after this many proposals in all, even short of the budget.
         first: plans of the space proposed before the sampler's own (a new study only).
+        liveness: how to tell a live proposal from one whose process died
+            (`kablate.trials.liveness`); None when this process alone uses the study.
     """
     study = study or search_study(seed, default_population(budget))
-    fail_interrupted(study)
-    if not study.get_trials(deepcopy=False):
-        for plan in first:
-            study.enqueue_trial(dict(plan))
+    liveness = liveness or SoloLiveness()
     distributions = {group: CategoricalDistribution(specs) for group, specs in choices.items()}
     cap = max_proposals or PROPOSALS_PER_EVALUATION * budget
+    recover_search(study, liveness)
+    while True:
+        with liveness.queue_lock():
+            issue_tickets(study, budget, first)
+        if n_proposed(study) >= cap:
+            break
+        if not has_waiting(study):
+            if not has_running(study):
+                break  # every slot settled
+            time.sleep(POLL_SECONDS)  # others train; a slot may come free again
+            recover_search(study, liveness)
+            continue
+        trial, token = pop(study, liveness, distributions)
+        try:
+            propose(study, trial, choices, screen, score)
+        finally:
+            liveness.release(token)
+    return read_result(study, choices, budget)
+
+
+def propose(study: optuna.Study, trial: optuna.Trial, choices: Choices, screen, score) -> None:
+    """Screen, claim and train one popped proposal, and tell the study what became of it."""
+    ticket = trial.user_attrs.get(TICKET)
+    if not holds_ticket(study.get_trials(deepcopy=False), trial.number, ticket):
+        give_back(study, trial)
+        return
+    plan = {group: trial.params[group] for group in choices}
+    found = screen(plan)
+    number, key, cost = trial.number, found.key, found.cost
+    if found.reason:
+        filtered = Candidate(number, plan, key, cost, None, FILTERED, found.reason)
+        record_candidate(study, trial, filtered)
+        return
+    trial.set_user_attr("key", key)
+    trial.set_user_attr("cost", cost)
+    trial.set_user_attr("outcome", CLAIMED)  # written before the others' claims are read
+    outcome = REPEAT if repeats(study.get_trials(deepcopy=False), number, key) else EVALUATED
+    accuracy = score(plan) if outcome == EVALUATED else None
+    record_candidate(study, trial, Candidate(number, plan, key, cost, accuracy, outcome))
+
+
+def n_proposed(study: optuna.Study) -> int:
+    """Proposals screened so far (evaluated, filtered, repeated, interrupted or in training)."""
+    return sum("key" in t.user_attrs for t in study.get_trials(deepcopy=False))
+
+
+def read_result(study: optuna.Study, choices: Choices, budget: int) -> SearchResult:
+    """The study's finished proposals, in the order proposed."""
     candidates = [c for t in study.get_trials(deepcopy=False) if (c := read_candidate(t))]
-    seen = {c.key for c in candidates if c.outcome == EVALUATED}
-    while len(seen) < budget and len(candidates) < cap:
-        trial = study.ask(distributions)
-        plan = {group: trial.params[group] for group in choices}
-        found = screen(plan)
-        outcome = FILTERED if found.reason else REPEAT if found.key in seen else EVALUATED
-        accuracy = score(plan) if outcome == EVALUATED else None
-        candidate = Candidate(
-            trial.number, plan, found.key, found.cost, accuracy, outcome, found.reason or ""
-        )
-        record_candidate(study, trial, candidate)
-        candidates.append(candidate)
-        if outcome == EVALUATED:
-            seen.add(found.key)
     return SearchResult(candidates, space_size(choices), budget)
-
-
-def fail_interrupted(study: optuna.Study) -> int:
-    """Tell FAIL every trial left RUNNING (its process was killed mid-training), with
-    ``outcome = "interrupted"``, so that the search continues from its finished trials and the
-    plan may be proposed again; return how many. One process owns a search study at a time."""
-    stale = study.get_trials(deepcopy=False, states=(TrialState.RUNNING,))
-    for trial in stale:
-        study._storage.set_trial_user_attr(trial._trial_id, "outcome", INTERRUPTED)
-        study.tell(trial.number, state=TrialState.FAIL)
-    return len(stale)
 
 
 def record_candidate(study: optuna.Study, trial: optuna.Trial, candidate: Candidate) -> None:
@@ -190,14 +232,14 @@ def read_candidate(trial: FrozenTrial) -> Candidate | None:
         attrs["key"],
         float(attrs["cost"]),
         accuracy,
-        attrs["outcome"],
+        attrs["outcome"] if attrs["outcome"] != CLAIMED else INTERRUPTED,
         attrs.get("reason", ""),
     )
 
 
-def refuse_search_run(sweep, how: str) -> None:
-    """`kablate run` ``how`` (``--dry-run``, ``--budget``) cannot search yet: refuse a
-    ``[search]`` sweep rather than estimate or budget only the finalists' trials.
+def refuse_search_run(sweep) -> None:
+    """`kablate run --budget` cannot schedule a search yet: refuse a ``[search]`` sweep rather
+    than budget only the finalists' trials.
 
     Raises:
         SweepError: naming the ``search`` key of the sweep file.
@@ -206,9 +248,9 @@ def refuse_search_run(sweep, how: str) -> None:
         raise SweepError(
             sweep.source,
             "search",
-            f"declares a space to search, which `kablate run` {how} cannot do yet (its "
-            "estimate would leave out the search's trials): run it without that option; "
-            "`kablate plan` shows the space's size and what the budget covers",
+            "declares a space to search, which `kablate run --budget` cannot schedule yet (its "
+            "schedule would leave out the search's trials): run it without --budget; `kablate "
+            "run --dry-run` estimates the search and bounds its finalists' time",
         )
 
 

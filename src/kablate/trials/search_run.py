@@ -3,10 +3,13 @@
 A sweep with a ``[search]`` table runs in two phases:
 
 1. search (`run_search`): NSGA-II (`kablate.trials.search.search_front`) trains ``budget``
-   plans of the space with the sweep's first seed and recipe, in this one process. Its trials
-   live in a second Optuna study, ``<sweep name>.search``, in the sweep's own storage (the
-   journal file, or ``--storage``), so that rerunning the command continues it: evaluated
-   plans are never trained again, and a plan a kill cut short may be proposed again.
+   plans of the space with the sweep's first seed and recipe, in this process and
+   ``--workers`` − 1 worker processes (and in any other `kablate run` of the sweep on a shared
+   PostgreSQL storage). Its trials live in a second Optuna study, ``<sweep name>.search``, in
+   the sweep's own storage (the journal file, or ``--storage``), which keeps the budget
+   (`kablate.trials.search_claim`), so that rerunning the command continues it: evaluated
+   plans are never trained again, and a plan a kill cut short may be proposed again. Only
+   ``--workers 1`` on one machine proposes the same plans from the same sampler seed.
 2. finalists: the plans on the front it found, the baseline and the sweep's explicit
    ``[[plan]]`` tables become explicit plans (`finalist_sweep`), recorded in ``search.json``,
    and the normal runner trains them with every seed (racing unchanged). So the report's
@@ -20,10 +23,13 @@ from __future__ import annotations
 
 import dataclasses
 import logging
+import multiprocessing as mp
 from pathlib import Path
 
 from kablate.console import step
+from kablate.costs.catalog import build_catalog
 from kablate.costs.screen import SpaceScreen
+from kablate.data.prepare import prepare_data
 from kablate.errors import UsageError
 from kablate.nets.layout import layout_network
 from kablate.plans.expand import Variant, cell_name
@@ -32,22 +38,24 @@ from kablate.plans.space import start_plans
 from kablate.results.folder import read_json
 from kablate.results.paths import SEARCH_FILE
 from kablate.results.write import write_json
+from kablate.spec.loader import load_sweep
 from kablate.spec.schema import SweepSpec
 from kablate.spec.search import finalist_sweep
 from kablate.train.loop import train_trial
-from kablate.trials.liveness import host_lock
+from kablate.trials.liveness import liveness_for
 from kablate.trials.search import (
     SearchResult,
     default_population,
+    read_result,
     search_front,
     search_study,
 )
-from kablate.trials.store import lock_dir, open_storage
+from kablate.trials.store import is_local, lock_dir, open_storage
 
 log = logging.getLogger("kablate")
 
 SEARCH_SUFFIX = ".search"  # the search study's name is the sweep's with this suffix
-SEARCH_LOCK = "search.lock"  # held by the process that runs the search, in the locks folder
+SEARCH_LOCKS = "search"  # the search trials' locks, in the locks folder (local storages)
 
 
 def search_study_name(sweep_name: str) -> str:
@@ -56,41 +64,45 @@ def search_study_name(sweep_name: str) -> str:
 
 
 def run_search(
-    catalog, data, results_dir: Path, url: str | None, threads: int, device: str
+    catalog,
+    data,
+    results_dir: Path,
+    url: str | None,
+    layout: tuple[int, int],
+    device: str,
+    sweep_path: Path,
+    results_root: Path,
 ) -> SweepSpec:
-    """Run (or continue) the search of a costed ``[search]`` sweep (`Catalog`); write
-    ``search.json`` and return the sweep of its finalists (`finalist_sweep`)."""
+    """Run (or continue) the search of a costed ``[search]`` sweep (`Catalog`) on ``layout``
+    (workers × threads): this process and ``workers − 1`` worker processes share the study.
+    Write ``search.json`` and return the sweep of its finalists (`finalist_sweep`).
+
+    Raises:
+        KablateError: a worker process failed and the search did not reach its end.
+    """
     sweep = catalog.sweep
     search = sweep.search
-    seed = sweep.seeds[0]
-    study = search_study(
-        search.seed,
-        default_population(search.budget),
-        storage=open_storage(results_dir, url),
-        study_name=search_study_name(sweep.name),
-        load_if_exists=True,
+    workers, threads = layout
+    step(
+        "search",
+        f"NSGA-II over the [search] space: {search.budget} plans with seed {sweep.seeds[0]}, "
+        f"on {workers} worker(s)",
     )
-
-    def score(plan: dict[str, str]) -> float:
-        variant = Variant(cell_name(plan), plan, resolve_kernels(sweep.network, plan))
-        layout = layout_network(sweep.network, variant, catalog.in_shape, catalog.n_classes)
-        step("search", f"training {variant.name} with seed {seed}")
-        record = train_trial(layout, sweep.recipe, data, seed=seed, threads=threads, device=device)
-        return record.val_acc
-
-    step("search", f"NSGA-II over the [search] space: {search.budget} plans with seed {seed}")
-    # One process owns a search study: a second run of the sweep on this machine waits here,
-    # then finds the search done. (Not across machines: see sweeps/README.md.)
-    with host_lock(lock_dir(results_dir, url) / SEARCH_LOCK):
-        result = search_front(
-            search.choices,
-            SpaceScreen.of(catalog),
-            score,
-            search.budget,
-            search.seed,
-            study=study,
-            first=start_plans(search.choices),
-        )
+    ctx = mp.get_context("spawn")
+    args = (str(sweep_path), str(results_root), url, threads, device)
+    procs = [ctx.Process(target=_search_worker_main, args=args) for _ in range(workers - 1)]
+    for proc in procs:
+        proc.start()
+    # One process on one machine proposes from the sampler seed; several need seeds of their own.
+    seed = search.seed if workers == 1 and is_local(url) else None
+    try:
+        result = search_in(catalog, data, results_dir, url, threads, device, seed)
+    finally:
+        for proc in procs:
+            proc.join()
+    failed = [p.exitcode for p in procs if p.exitcode != 0]
+    if failed:  # its trial was recovered by this process's loop; say so, and go on
+        log.warning("search: %d worker process(es) ended with exit codes %s", len(failed), failed)
     log.info(
         "search: %d plans trained of %d proposed; %d on the front",
         len(result.evaluated),
@@ -100,6 +112,58 @@ def run_search(
     record = search_record(result, catalog)
     write_json(results_dir / SEARCH_FILE, record)
     return finalist_sweep(sweep, record)
+
+
+def search_in(
+    catalog, data, results_dir: Path, url: str | None, threads: int, device: str, seed: int | None
+):
+    """Take part in the search of the sweep's study from this process, its sampler seeded by
+    ``seed``, until the search is done; the `SearchResult` of the whole study (every process's
+    proposals)."""
+    sweep = catalog.sweep
+    search = sweep.search
+    study = search_study(
+        seed,
+        default_population(search.budget),
+        storage=open_storage(results_dir, url),
+        study_name=search_study_name(sweep.name),
+        load_if_exists=True,
+    )
+    liveness = liveness_for(study, lock_dir(results_dir, url) / SEARCH_LOCKS)
+
+    def score(plan: dict[str, str]) -> float:
+        variant = Variant(cell_name(plan), plan, resolve_kernels(sweep.network, plan))
+        layout = layout_network(sweep.network, variant, catalog.in_shape, catalog.n_classes)
+        step("search", f"training {variant.name} with seed {sweep.seeds[0]}")
+        record = train_trial(
+            layout, sweep.recipe, data, seed=sweep.seeds[0], threads=threads, device=device
+        )
+        return record.val_acc
+
+    search_front(
+        search.choices,
+        SpaceScreen.of(catalog),
+        score,
+        search.budget,
+        seed,
+        study=study,
+        first=start_plans(search.choices),
+        liveness=liveness,
+    )
+    return read_result(study, search.choices, search.budget)
+
+
+def _search_worker_main(
+    sweep_path: str, results_root: str, url: str | None, threads: int, device: str
+) -> None:
+    """Entry point of a search worker process: the sweep, its data, then `search_in`."""
+    from kablate.trials.pool import setup_logging  # pool imports this module
+
+    sweep = load_sweep(Path(sweep_path))
+    results_dir = Path(results_root) / sweep.name
+    setup_logging(results_dir, to_console=False)
+    catalog = build_catalog(sweep)
+    search_in(catalog, prepare_data(sweep.data), results_dir, url, threads, device, None)
 
 
 def search_record(result: SearchResult, catalog) -> dict:

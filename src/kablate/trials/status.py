@@ -31,6 +31,7 @@ from kablate.lifecycle import (
 )
 from kablate.trials.queue import trial_status
 from kablate.trials.results import StoredResults
+from kablate.trials.search_status import SearchStatus, search_line, search_status
 
 STATES = (DONE, RUNNING, WAITING, FAILED, DIVERGED, RETIRED, STOPPED)
 RECENT = 20  # finished trials that set the expected trial time
@@ -52,6 +53,7 @@ class SweepStatus:
     # how the variants stand (`analysis.standing.Standing`), or None with the reason
     standing: dict | None = None
     standing_error: str | None = None
+    search: dict | None = None  # a [search] sweep's search (`search_status.SearchStatus`)
 
     def to_dict(self) -> dict:
         return asdict(self)
@@ -153,6 +155,7 @@ def format_status(status: SweepStatus) -> str:
     n_halted = sum(v[RETIRED] for v in status.variants if v.get("halted_after") is not None)
     n_raced = c[RETIRED] - n_halted
     lines = [
+        *search_line(SearchStatus(**status.search) if status.search else None),
         f"sweep {status.sweep}: {c['done']}/{status.n_trials} done, {c['running']} running, "
         f"{c['waiting']} waiting, {c['failed']} failed, {c['diverged']} diverged"
         + (f", {n_raced} not run (variant retired by racing)" if n_raced else "")
@@ -276,6 +279,8 @@ def read_status(folder: StoredResults) -> SweepStatus:
     trials = folder.study.get_trials(deepcopy=False)
     layout = {k: folder.meta.get(k) for k in ("workers", "threads")}
     status = summarize(folder.name, rows, trials, datetime.now(), layout)
+    found = search_status(folder.study._storage, folder.name)  # noqa: SLF001
+    status.search = found.to_dict() if found else None
     try:
         data = folder.data()
         pick = pick_settings(folder.meta)
