@@ -414,7 +414,7 @@ def run(
         if code == EXIT_STOPPED:
             click.echo(
                 "stopped: the interrupted trials are back in the queue and resume from their last "
-                f"epoch checkpoint. Resume with the same command: {opts.command}",
+                f"checkpoint. Resume with the same command: {opts.command}",
                 err=True,
             )
         if not no_report and code != EXIT_STOPPED and summary.counts.get("done"):
