@@ -84,3 +84,23 @@ def test_plan_csv_ends_with_its_last_row():
 def test_missing_results_folder_is_a_usage_error(tmp_path):
     out = kablate("status", str(tmp_path / "nothing"))
     assert out.returncode == 2 and "Traceback" not in out.stderr
+
+
+def test_checkpoint_seconds_that_are_not_a_time_are_refused_with_exit_2(tiny_sweep, tmp_path):
+    for bad in ("-1", "nan", "soon", ""):
+        out = kablate(
+            "run", str(tiny_sweep), "--checkpoint-seconds", bad, "--results", str(tmp_path)
+        )
+        assert out.returncode == 2, (bad, out.stderr)
+        assert "--checkpoint-seconds must be a number of seconds" in out.stderr
+        assert "Traceback" not in out.stderr
+    assert not (tmp_path / "tiny").exists()  # refused before anything ran
+
+
+def test_the_checkpoint_seconds_help_gives_the_default_the_run_uses():
+    from kablate.train.checkpoint import DEFAULT_CHECKPOINT_SECONDS
+    from kablate.trials.runner import RunOptions
+
+    assert RunOptions().checkpoint_seconds == DEFAULT_CHECKPOINT_SECONDS
+    help_text = " ".join(kablate("run", "--help").stdout.split())
+    assert f"(default: {DEFAULT_CHECKPOINT_SECONDS:g})" in help_text

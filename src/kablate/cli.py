@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import math
 import os
 import re
 import shlex
@@ -72,6 +73,20 @@ def parse_duration(text: str) -> float:
     if h * 3600 + m * 60 + s == 0:
         raise UsageError(f"--budget must be longer than zero, but got {text!r}")
     return h * 3600 + m * 60 + s
+
+
+def parse_checkpoint_seconds(text: str) -> float:
+    """'30', '0', '2.5' → seconds; a negative number, NaN or a non-number is refused."""
+    try:
+        seconds = float(text)
+    except ValueError:
+        seconds = math.nan
+    if not seconds >= 0:  # also catches NaN
+        raise UsageError(
+            "--checkpoint-seconds must be a number of seconds ≥ 0 (0: after every epoch), "
+            f"but got {text!r}"
+        )
+    return seconds
 
 
 def echo_document(text: str) -> None:
@@ -339,6 +354,15 @@ def speaking(imports: str) -> Steps:
     is_flag=True,
     help="Time a few steps of each variant, print the estimate and the order; train nothing.",
 )
+@click.option(
+    "--checkpoint-seconds",
+    "checkpoint_seconds",
+    default=None,
+    metavar="N",
+    help="Checkpoint each trial when waiting longer would risk more than N seconds of work "
+    "(or one epoch, when an epoch takes longer), always at its end and when stopped; "
+    "0: after every epoch (default: 30).",
+)
 @click.option("--no-report", is_flag=True, help="Skip writing the report at the end.")
 def run(
     sweep: Path,
@@ -349,9 +373,11 @@ def run(
     results_root: Path,
     device: str,
     dry_run: bool,
+    checkpoint_seconds: str | None,
     no_report: bool,
 ) -> None:
     """Train every (variant, seed) trial of a sweep, then write the report."""
+    every = parse_checkpoint_seconds(checkpoint_seconds) if checkpoint_seconds is not None else None
     with speaking("torch, pandas and matplotlib"):
         from kablate.report.compose import write_report
         from kablate.trials.outcome import verdict
@@ -367,6 +393,7 @@ def run(
             device=device,
             budget_seconds=parse_duration(budget) if budget else 0.0,
             dry_run=dry_run,
+            **({"checkpoint_seconds": every} if every is not None else {}),
             command="kablate " + " ".join(shlex.quote(a) for a in sys.argv[1:]),
             echo=click.echo,
         )
@@ -387,7 +414,7 @@ def run(
         if code == EXIT_STOPPED:
             click.echo(
                 "stopped: the interrupted trials are back in the queue and resume from their last "
-                f"epoch checkpoint. Resume with the same command: {opts.command}",
+                f"checkpoint. Resume with the same command: {opts.command}",
                 err=True,
             )
         if not no_report and code != EXIT_STOPPED and summary.counts.get("done"):

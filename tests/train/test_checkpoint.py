@@ -160,3 +160,24 @@ def test_a_full_disk_while_writing_raises_disk_full_and_leaves_the_last_checkpoi
     monkeypatch.undo()
     assert checkpoint.load_checkpoint(path)["epoch"] == 1
     assert [p.name for p in tmp_path.iterdir()] == [CHECKPOINT]
+
+
+@pytest.mark.parametrize(
+    ("epochs", "epoch_seconds", "every", "expected"),
+    [
+        # 4 s epochs under 10 s: after epochs 1, 3, 5, 7 and the last (9); 8 s lost at most.
+        (10, 4.0, 10.0, 5),
+        (10, 4.0, 0.0, 10),  # 0: every epoch
+        (10, 20.0, 10.0, 10),  # an epoch longer than the limit: every epoch
+        (10, 4.0, 1000.0, 1),  # only the last
+        (1, 4.0, 1000.0, 1),
+    ],
+)
+def test_the_checkpoints_a_trial_writes_by_time(epochs, epoch_seconds, every, expected):
+    assert checkpoint.n_checkpoints(epochs, epoch_seconds, every) == expected
+
+
+def test_a_checkpoint_is_due_before_the_next_epoch_would_overrun_the_limit():
+    assert not checkpoint.checkpoint_due(5.0, 4.0, 10.0)  # 9 s unsaved after the next: wait
+    assert checkpoint.checkpoint_due(7.0, 4.0, 10.0)  # 11 s after the next: write now
+    assert checkpoint.checkpoint_due(0.1, 0.1, 0.0)

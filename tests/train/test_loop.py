@@ -242,12 +242,24 @@ def test_an_interrupted_trial_resumes_to_the_numbers_of_an_uninterrupted_one(tin
     workdir = tmp_path / "cut"
     with pytest.raises(TrialInterrupted, match="epoch 3"):  # the third, counted from 1
         train_trial(
-            layouts["all-3"], recipe, data, 3, workdir=workdir, should_stop=stop_in_epoch_two
+            layouts["all-3"],
+            recipe,
+            data,
+            3,
+            workdir=workdir,
+            should_stop=stop_in_epoch_two,
+            checkpoint_seconds=30,
         )
-    assert load_checkpoint(workdir / CHECKPOINT)["epoch"] == 1  # epochs 0 and 1 are safe
+    # Written as it stopped, with no checkpoint due before (30 s): epochs 0 and 1 and two
+    # batches of epoch 2 are safe.
+    saved = load_checkpoint(workdir / CHECKPOINT)
+    assert (saved["epoch"], saved["batch"], saved["step"]) == (1, 2, 2 * math.ceil(160 / 32) + 2)
     resumed = train_trial(layouts["all-3"], recipe, data, seed=3, workdir=workdir)
-    assert resumed.note == "resumed at epoch 3"
+    assert resumed.note == "resumed at epoch 3, 2 of its batches done"
     assert curve_values(resumed) == curve_values(whole)
+    # Bit for bit: the final weights of both (the augmentation's stream stayed in step).
+    final, cut = (load_checkpoint(d / CHECKPOINT)["model"] for d in (tmp_path / "whole", workdir))
+    assert all(torch.equal(final[k], cut[k]) for k in final)
     assert (resumed.best_val_acc, resumed.best_epoch, resumed.test_acc, resumed.steps) == (
         whole.best_val_acc,
         whole.best_epoch,
@@ -257,6 +269,79 @@ def test_an_interrupted_trial_resumes_to_the_numbers_of_an_uninterrupted_one(tin
     # Running a finished trial again trains nothing and reports the same numbers.
     again = train_trial(layouts["all-3"], recipe, data, seed=3, workdir=workdir)
     assert curve_values(again) == curve_values(whole) and again.test_acc == whole.test_acc
+
+
+class Killed(Exception):
+    """Stands for a SIGKILL: the process ends before a checkpoint write."""
+
+
+@pytest.mark.slow
+def test_a_trial_killed_between_checkpoints_resumes_to_the_same_weights(
+    tiny, tmp_path, monkeypatch
+):
+    recipe, data, layouts = tiny
+    whole = train_trial(layouts["all-3"], recipe, data, seed=2, workdir=tmp_path / "whole")
+    real = loop.save_checkpoint
+
+    def killed_at_the_last(path, state):
+        if state["epoch"] == recipe.epochs - 1:
+            raise Killed
+        real(path, state)
+
+    monkeypatch.setattr(loop, "save_checkpoint", killed_at_the_last)
+    workdir = tmp_path / "cut"
+    with pytest.raises(Killed):
+        train_trial(layouts["all-3"], recipe, data, 2, workdir=workdir, checkpoint_seconds=0)
+    monkeypatch.setattr(loop, "save_checkpoint", real)
+    assert load_checkpoint(workdir / CHECKPOINT)["batch"] == 0  # an epoch's end
+    resumed = train_trial(layouts["all-3"], recipe, data, seed=2, workdir=workdir)
+    assert resumed.note == f"resumed at epoch {recipe.epochs}"
+    assert curve_values(resumed) == curve_values(whole) and resumed.test_acc == whole.test_acc
+    final, cut = (load_checkpoint(d / CHECKPOINT)["model"] for d in (tmp_path / "whole", workdir))
+    assert all(torch.equal(final[k], cut[k]) for k in final)
+
+
+def count_checkpoints(monkeypatch) -> list[int]:
+    """The epoch field of every checkpoint the trainer writes from now on."""
+    written: list[int] = []
+    real = loop.save_checkpoint
+    monkeypatch.setattr(
+        loop, "save_checkpoint", lambda p, s: written.append(s["epoch"]) or real(p, s)
+    )
+    return written
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize(
+    ("every", "expected"),
+    [(0, [0, 1, 2]), (3600, [2]), (float("inf"), [2])],
+    ids=["every-epoch", "an-hour", "never-but-the-end"],
+)
+def test_checkpoints_are_written_by_time_and_always_at_the_end(
+    tiny, tmp_path, monkeypatch, every, expected
+):
+    recipe, data, layouts = tiny
+    written = count_checkpoints(monkeypatch)
+    train_trial(layouts["all-3"], recipe, data, 0, workdir=tmp_path, checkpoint_seconds=every)
+    assert written == expected
+
+
+@pytest.mark.slow
+def test_a_checkpoint_is_written_when_due_and_at_the_last_epoch(tiny, tmp_path, monkeypatch):
+    recipe, data, layouts = tiny
+    asked = []
+    answers = iter([False, True, False, False, False])
+
+    def due(unsaved: float, epoch_seconds: float, every: float) -> bool:
+        asked.append((unsaved > 0, epoch_seconds > 0, every))
+        return next(answers)
+
+    monkeypatch.setattr(loop, "checkpoint_due", due)
+    written = count_checkpoints(monkeypatch)
+    five = dataclasses.replace(recipe, epochs=5)
+    train_trial(layouts["all-3"], five, data, 0, workdir=tmp_path, checkpoint_seconds=12.5)
+    assert written == [1, 4]
+    assert asked == [(True, True, 12.5)] * 4  # the last epoch writes without asking
 
 
 def test_a_failed_checkpoint_write_leaves_the_previous_file(tmp_path):

@@ -81,7 +81,19 @@ def kablate(*args: str, storage: str | None, cwd: Path, wait: bool = True):
 
 
 def run_args(sweep: Path, results: Path, *extra: str) -> list[str]:
-    return ["run", str(sweep), "--workers", "2", "--results", str(results), "--no-report", *extra]
+    # Every epoch: a test waits for an early checkpoint and kills the run after it.
+    return [
+        "run",
+        str(sweep),
+        "--workers",
+        "2",
+        "--results",
+        str(results),
+        "--no-report",
+        "--checkpoint-seconds",
+        "0",
+        *extra,
+    ]
 
 
 def study_of(results: Path, storage: str | None):

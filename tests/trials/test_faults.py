@@ -111,10 +111,11 @@ def test_a_full_disk_at_a_checkpoint_stops_the_run_and_puts_the_trial_back(
     tiny_sweep, tmp_path, monkeypatch
 ):
     results = tmp_path / "results"
-    # The tiny recipe has 2 epochs: the third checkpoint is the second trial's first.
+    # The tiny recipe has 2 epochs: with a checkpoint after every epoch, the third checkpoint
+    # is the second trial's first.
     fills = DiskFills(checkpoint.atomic_write, 2, under=results)
     monkeypatch.setattr(checkpoint, "atomic_write", fills)
-    result = run(tiny_sweep, results)
+    result = run(tiny_sweep, results, "--checkpoint-seconds", "0")
     assert result.exit_code == EXIT_DISK_FULL, result.output
     assert "checkpoint.pt: free space and rerun the same command" in result.output
     assert "Traceback" not in result.output and "report:" not in result.output

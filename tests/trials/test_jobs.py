@@ -52,7 +52,7 @@ def test_the_workers_claim_the_longest_trial_of_a_round_first(tmp_path, monkeypa
     # stem-5) differs from the plan's (all-3, stem-5, body-5).
     predicted = {"all-3": 3.0, "stem-5": 1.0, "body-5": 2.0}
 
-    def calibrate(catalog, data, threads):
+    def calibrate(catalog, data, threads, checkpoint_seconds):
         return {
             v.variant.id: Calibration(v.variant.id, 0.0, 0.0, 0.0, predicted[v.name])
             for v in catalog.variants

@@ -1,8 +1,9 @@
 """Reading a trial's checkpoint back: for resuming it, and for the weights it was scored with.
 
 A checkpoint lives at `paths.checkpoint_path` (``trials/<job key>/checkpoint.pt``). The trainer
-writes it after every epoch (`kablate.train.loop.checkpoint_state`, through `write.atomic_write`)
-and keeps it when the trial ends. It is a dict of tensors and plain values, loaded with
+writes it by time and at the trial's end (`kablate.train.checkpoint`; its state is
+`kablate.train.loop.checkpoint_state`, written through `write.atomic_write`) and keeps it when
+the trial ends. It is a dict of tensors and plain values, loaded with
 ``weights_only=True`` so that a file never runs code. Its keys ``model`` (the last epoch's
 weights) and ``best_state`` (the chosen epoch's, kept only with ``test_from = "best"``) give the
 scored weights.

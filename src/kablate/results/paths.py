@@ -24,7 +24,7 @@ LOCKS = "locks"  # per-trial liveness locks of a local storage (trials/liveness.
 REPORT_DIR = "report"  # the model card and plots, unless `kablate report --out DIR`
 CARD_FILE = "model_card.md"
 TRIALS_DIR = "trials"  # one folder per job: its checkpoint and record
-CHECKPOINT = "checkpoint.pt"  # the trial's last epoch (train/checkpoint.py), kept when it ends
+CHECKPOINT = "checkpoint.pt"  # the trial's last checkpoint (train/checkpoint.py), kept when it ends
 RECORD_FILE = "record.json"  # the trial's record (train/record.py), once it ended
 
 

@@ -1,4 +1,10 @@
-"""Per-epoch checkpoints: written atomically, read with ``weights_only=True`` (results/).
+"""Checkpoints: when to write one, written atomically, read with ``weights_only=True`` (results/).
+
+A trial writes a checkpoint at the end of an epoch when waiting for the next epoch (predicted to
+take as long as the last one) would leave more than ``every`` seconds of work unsaved
+(`checkpoint_due`), always at its last epoch, and, mid-epoch, when it is asked to stop. So a kill
+loses at most ``every`` seconds of work, or one epoch when an epoch takes longer; ``every = 0``
+writes after every epoch. Writing after every short epoch would cost more than the work it saves.
 
 A checkpoint that cannot be resumed (torn, garbage, or another trial's) is never deleted: it is
 renamed ``checkpoint.pt.<why>-<n>`` beside the original, and the trial starts from epoch 0.
@@ -22,9 +28,27 @@ from kablate.results.write import atomic_write
 
 log = logging.getLogger("kablate")
 
+DEFAULT_CHECKPOINT_SECONDS = 30.0  # `kablate run --checkpoint-seconds`'s default
 SPACE_FACTOR = 2  # free space wanted per checkpoint: the new file is written beside the old one
 UNREADABLE = "unreadable"
 OTHER_TRIAL = "other-trial"
+
+
+def checkpoint_due(unsaved: float, epoch_seconds: float, every: float) -> bool:
+    """At an epoch's end, with ``unsaved`` seconds of work since the last checkpoint and an
+    epoch of ``epoch_seconds``: whether to write one now (see the module docstring)."""
+    return every == 0 or unsaved + epoch_seconds > every
+
+
+def n_checkpoints(epochs: int, epoch_seconds: float, every: float) -> int:
+    """How many checkpoints a trial of ``epochs`` epochs of ``epoch_seconds`` each writes:
+    `checkpoint_due` replayed, plus the one at the last epoch."""
+    n, unsaved = 0, 0.0
+    for epoch in range(epochs):
+        unsaved += epoch_seconds
+        if epoch == epochs - 1 or checkpoint_due(unsaved, epoch_seconds, every):
+            n, unsaved = n + 1, 0.0
+    return n
 
 
 def state_bytes(state: Any) -> int:

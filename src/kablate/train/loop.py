@@ -1,8 +1,9 @@
 """One trial: train one variant with one seed under one recipe, then evaluate it.
 
 Read top to bottom: build the model, restore a checkpoint if there is one, run the epochs
-(validation after each, a checkpoint after each), then score the chosen weights: validation and
-test accuracy and the class predicted for every validation and test image (the evidence).
+(validation after each, a checkpoint when one is due: `kablate.train.checkpoint`), then score
+the chosen weights: validation and test accuracy and the class predicted for every validation
+and test image (the evidence).
 
 The scored weights are the last epoch's by default. A maximum over epochs of the accuracy on
 the very images it is scored on would be biased upwards, and unequally across variants; so with
@@ -11,7 +12,9 @@ the training pool (``data.stop_size``), never on the validation images.
 
 Everything random is seeded by ``seed`` alone, so the same variant and seed give the same
 numbers on the same machine, and every variant sees the same batches (paired design). A
-resumed trial gives the numbers it would have given uninterrupted.
+resumed trial gives the numbers it would have given uninterrupted: a checkpoint written as the
+trial was asked to stop holds the batches done in its epoch, and the resume rebuilds that
+epoch's batches from (seed, epoch) and skips them.
 
 The hot loop does only tensor work per step, besides three cheap Python checks (stop
 requested, lr, loss finite). On CPU the finiteness check costs no synchronisation.
@@ -39,7 +42,13 @@ from kablate.nets.model_variant import ModelVariant
 from kablate.results.evidence import encode_predictions
 from kablate.results.paths import CHECKPOINT
 from kablate.spec.schema import RecipeSpec
-from kablate.train.checkpoint import read_or_set_aside, resume_problem, save_checkpoint, set_aside
+from kablate.train.checkpoint import (
+    checkpoint_due,
+    read_or_set_aside,
+    resume_problem,
+    save_checkpoint,
+    set_aside,
+)
 from kablate.train.record import EpochRecord, TrialRecord, shown_epoch
 from kablate.train.schedule import get_lr_factor
 
@@ -52,14 +61,20 @@ class TrialInterrupted(Exception):
 
 @dataclass
 class TrialProgress:
-    """Where a trial stands between epochs: everything a resume needs besides the weights."""
+    """Where a trial stands: everything a resume needs besides the weights."""
 
     record: TrialRecord
-    epoch: int = 0  # the next epoch to run
+    epoch: int = 0  # the next epoch to run, or the one in progress
     step: int = 0
     samples: int = 0
     eval_seconds: float = 0.0  # validation time, kept out of samples per second
     best_state: dict[str, torch.Tensor] | None = None
+    # Within ``epoch`` when it was stopped part-way: its batches done, their summed loss and
+    # samples, and its seconds so far.
+    batch: int = 0
+    epoch_loss: torch.Tensor | None = None
+    epoch_seen: int = 0
+    epoch_seconds: float = 0.0
 
 
 def make_optimizer(model: nn.Module, recipe: RecipeSpec) -> torch.optim.Optimizer:
@@ -179,16 +194,26 @@ def train_epoch(
 ) -> float:
     """One pass over the training subset (or up to the step budget); the mean train loss.
 
+    An epoch stopped part-way (``progress.batch`` > 0) goes on after its done batches: they
+    are rebuilt from (seed, epoch), so that the augmentation stream stays in step, and skipped.
     A non-finite loss marks the trial ``diverged`` and ends the epoch before that step's
     update. The loss sum stays a tensor, so the loop never waits for a value it only logs.
+
+    Raises:
+        TrialInterrupted: ``should_stop()`` became true; ``progress`` says how far the epoch got.
     """
     model.train()
     loss_sum, seen = torch.zeros((), device=train.images.device), 0
+    if progress.batch:
+        loss_sum, seen = progress.epoch_loss.to(train.images.device), progress.epoch_seen
     batches = train_batches(
         train.images, train.labels, recipe.batch_size, seed, progress.epoch, recipe.augment
     )
-    for x, y in batches:
+    for batch, (x, y) in enumerate(batches):
+        if batch < progress.batch:
+            continue
         if should_stop is not None and should_stop():
+            progress.batch, progress.epoch_loss, progress.epoch_seen = batch, loss_sum, seen
             raise TrialInterrupted(f"stopped in epoch {shown_epoch(progress.epoch)}")
         if progress.step >= steps.total:
             break
@@ -202,6 +227,7 @@ def train_epoch(
         loss_sum += loss.detach() * len(y)
         seen += len(y)
     progress.samples += seen
+    progress.batch, progress.epoch_loss, progress.epoch_seen = 0, None, 0
     return float(loss_sum) / max(1, seen)
 
 
@@ -237,8 +263,14 @@ def restore(
         samples=saved["samples"],
         eval_seconds=saved.get("eval_seconds", 0.0),
         best_state=saved["best_state"],
+        batch=saved.get("batch", 0),
+        epoch_loss=saved.get("epoch_loss"),
+        epoch_seen=saved.get("epoch_seen", 0),
+        epoch_seconds=saved.get("epoch_seconds", 0.0),
     )
     progress.record.note = f"resumed at epoch {shown_epoch(progress.epoch)}"
+    if progress.batch:
+        progress.record.note += f", {progress.batch} of its batches done"
     return progress
 
 
@@ -258,6 +290,11 @@ def checkpoint_state(
         "samples": progress.samples,
         "eval_seconds": progress.eval_seconds,
         "record": progress.record.to_dict(),
+        # Past that epoch (a stop part-way through the next): its batches done and their sums.
+        "batch": progress.batch,
+        "epoch_loss": progress.epoch_loss,
+        "epoch_seen": progress.epoch_seen,
+        "epoch_seconds": progress.epoch_seconds,
     }
 
 
@@ -271,9 +308,11 @@ def train_trial(
     device: str = "cpu",
     should_stop: Callable[[], bool] | None = None,
     judge: Callable[[int, float], bool] | None = None,
+    checkpoint_seconds: float = 0.0,
 ) -> TrialRecord:
-    """Train the variant ``blueprint`` builds, with ``seed``; checkpoint into ``workdir`` after
-    every epoch.
+    """Train the variant ``blueprint`` builds, with ``seed``; checkpoint into ``workdir`` when
+    one is due under ``checkpoint_seconds`` (`checkpoint.checkpoint_due`; 0: after every
+    epoch), after the last epoch, and when ``should_stop()`` stops the trial.
 
     A NaN or inf loss, in training or validation, ends the trial with status ``diverged``
     (its curve is kept). ``judge`` (successive halving, `kablate.trials.halving`) is asked after
@@ -283,7 +322,8 @@ def train_trial(
     variant). It is asked before the epoch's checkpoint, so a trial killed in between asks again.
 
     Raises:
-        TrialInterrupted: ``should_stop()`` became true; the last epoch checkpoint remains.
+        TrialInterrupted: ``should_stop()`` became true; a checkpoint of the batches done is
+            written first.
         DiskFullError: too little space left for the next checkpoint.
     """
     torch.set_num_threads(threads)
@@ -301,6 +341,15 @@ def train_trial(
         progress = TrialProgress(record=TrialRecord(threads=threads))
     record = progress.record
     clock = time.perf_counter() - record.train_seconds
+    saved_at = time.perf_counter()  # of the last checkpoint (or the start of this process)
+
+    def save() -> None:
+        nonlocal saved_at
+        record.steps = progress.step
+        record.train_seconds = time.perf_counter() - clock
+        if ckpt_path is not None:
+            save_checkpoint(ckpt_path, checkpoint_state(identity, model, optimizer, progress))
+        saved_at = time.perf_counter()
 
     # A checkpoint written as the judge stopped the trial resumes as stopped (no more epochs).
     while (
@@ -308,10 +357,16 @@ def train_trial(
         and progress.epoch < recipe.epochs
         and progress.step < steps.total
     ):
-        epoch_start = time.perf_counter()
-        train_loss = train_epoch(
-            model, optimizer, train, recipe, seed, progress, steps, should_stop
-        )
+        epoch_start = time.perf_counter() - progress.epoch_seconds
+        try:
+            train_loss = train_epoch(
+                model, optimizer, train, recipe, seed, progress, steps, should_stop
+            )
+        except TrialInterrupted:
+            progress.epoch_seconds = time.perf_counter() - epoch_start
+            save()  # the batches done so far: a resume skips them
+            raise
+        progress.epoch_seconds = 0.0
         if record.status == "diverged":
             break
         eval_start = time.perf_counter()
@@ -335,12 +390,13 @@ def train_trial(
             record.status = "stopped"
             record.note = f"stopped by successive halving after epoch {shown_epoch(progress.epoch)}"
         progress.epoch += 1
-        record.steps = progress.step
-        record.train_seconds = time.perf_counter() - clock
-        if ckpt_path is not None:
-            save_checkpoint(ckpt_path, checkpoint_state(identity, model, optimizer, progress))
-        if record.status == "stopped":
-            break
+        last = (
+            record.status == "stopped"
+            or progress.epoch >= recipe.epochs
+            or progress.step >= steps.total
+        )
+        if last or checkpoint_due(time.perf_counter() - saved_at, seconds, checkpoint_seconds):
+            save()
 
     record.steps, record.threads = progress.step, threads
     record.train_seconds = time.perf_counter() - clock

@@ -3,7 +3,9 @@
 Calibration times a few real training steps and one validation pass of every variant, under
 the thread count the workers will use. A trial's time is then predicted as
 
-    steps × step time + epochs × (validation pass + checkpoint write) + test pass
+    steps × step time + epochs × validation pass + checkpoints × checkpoint write + test pass
+
+(the checkpoints the trainer's time-based policy writes, `checkpoint.n_checkpoints`)
 
 and the sweep's time by replaying the job order on the workers, each taking the next job when
 it is free (the way the queue hands them out: seed-major, the longest first within a seed,
@@ -26,7 +28,7 @@ from kablate.costs.catalog import Catalog
 from kablate.data.batches import train_batches
 from kablate.data.prepare import PreparedData
 from kablate.nets.build import build_network
-from kablate.train.checkpoint import save_checkpoint
+from kablate.train.checkpoint import DEFAULT_CHECKPOINT_SECONDS, n_checkpoints, save_checkpoint
 from kablate.train.loop import StepCount, evaluate, make_optimizer, set_lr, step_count, train_step
 from kablate.trials.jobs import Job
 
@@ -67,7 +69,12 @@ def time_steps(
     return times
 
 
-def calibrate(catalog: Catalog, data: PreparedData, threads: int) -> dict[str, Calibration]:
+def calibrate(
+    catalog: Catalog,
+    data: PreparedData,
+    threads: int,
+    checkpoint_seconds: float = DEFAULT_CHECKPOINT_SECONDS,
+) -> dict[str, Calibration]:
     """Time every variant's steps; return predicted trial seconds by variant id."""
     torch.set_num_threads(threads)
     recipe = catalog.sweep.recipe
@@ -97,9 +104,12 @@ def calibrate(catalog: Catalog, data: PreparedData, threads: int) -> dict[str, C
             save_checkpoint(Path(tmp) / "c.pt", dict(state, best_state=model.state_dict()))
             ckpt_seconds = time.perf_counter() - start
             test_seconds = val_seconds * len(data.test.labels) / max(1, len(data.val.labels))
+            epoch_seconds = steps.per_epoch * step_seconds + val_seconds
+            n_saved = n_checkpoints(steps.epochs, epoch_seconds, checkpoint_seconds)
             trial = (
                 steps.total * step_seconds
-                + steps.epochs * (val_seconds + ckpt_seconds)
+                + steps.epochs * val_seconds
+                + n_saved * ckpt_seconds
                 + test_seconds
             )
             out[item.variant.id] = Calibration(

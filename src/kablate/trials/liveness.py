@@ -2,7 +2,7 @@
 
 A worker that dies (SIGKILL, a crash, power loss) leaves its trial RUNNING in storage. Before
 every claim, and when a run starts, workers look for such trials, fail them and put their
-jobs back in the queue; the rerun resumes from the trial's last epoch checkpoint.
+jobs back in the queue; the rerun resumes from the trial's last checkpoint.
 
 Two implementations, one per kind of storage:
 

@@ -1,15 +1,15 @@
 """The workers of one machine: in this process or as processes, their signals, their progress.
 
-Several single-thread processes use a small CPU better than one process with more threads. A
-worker that dies is replaced; its trial is recovered by the next claim (liveness.py). Ctrl-C
-or SIGTERM stops every worker at its next batch, and each puts its trial back in the queue.
+Several single-thread processes use a small CPU better than one process with more threads; they
+are started early and stand by while the runner prepares (standby.py). A worker that dies is
+replaced; its trial is recovered by the next claim (liveness.py). Ctrl-C or SIGTERM stops every
+worker at its next batch: each checkpoints the batches done and puts its trial back in the queue.
 """
 
 from __future__ import annotations
 
 import contextlib
 import logging
-import multiprocessing as mp
 import os
 import signal
 import socket
@@ -38,6 +38,7 @@ from kablate.trials.liveness import Liveness, liveness_for
 from kablate.trials.queue import trial_status
 from kablate.trials.rows import collect_trials
 from kablate.trials.search_run import recorded_finalists
+from kablate.trials.standby import Release, Standby, WorkerSetup, spawn, wait_for_release
 from kablate.trials.status import duration
 from kablate.trials.store import lock_dir, open_study
 from kablate.trials.worker import WorkerContext, work
@@ -118,40 +119,39 @@ class StopFlag:
         signal.signal(signal.SIGTERM, handler)
 
 
-def _worker_main(
-    sweep_path: str,
-    results_root: str,
-    url: str | None,
-    threads: int,
-    device: str,
-    deadline: float,
-    estimates: dict[str, float],
-) -> None:
-    """Entry point of a worker process."""
+def worker_main(setup: WorkerSetup, release: Release | None, conn=None) -> None:
+    """Entry point of a worker process: prepare (imports, sweep, data, torch's warm-up), then,
+    when started early (``release`` None), wait on ``conn`` for the runner's release."""
     from kablate.train.loop import TrialInterrupted, warm_up
 
     stop = StopFlag(escalate=False)
     stop.install()
-    sweep = load_sweep(sweep_path)
-    results_dir = Path(results_root) / sweep.name
+    sweep = load_sweep(setup.sweep_path)
+    results_dir = Path(setup.results_root) / sweep.name
     sweep = recorded_finalists(sweep, results_dir)  # a [search] sweep trains its finalists
     setup_logging(results_dir, to_console=False)
     catalog = build_catalog(sweep)
-    study = open_study(sweep.name, results_dir, url)
+    data = prepare_data(sweep.data)
+    warm_up(sweep.recipe)
+    if release is None:
+        release = wait_for_release(conn)
+        if release is None:  # dismissed, or the runner is gone
+            return
+    study = open_study(sweep.name, results_dir, setup.url)
     ctx = WorkerContext(
         catalog,
-        prepare_data(sweep.data),
+        data,
         study,
         results_dir,
-        threads,
-        device,
+        setup.threads,
+        setup.device,
         should_stop=stop,
-        deadline=deadline,
-        liveness=liveness_for(study, lock_dir(results_dir, url)),
-        order=claim_order(sweep_jobs(catalog), estimates),
-        estimates=estimates,
+        deadline=release.deadline,
+        liveness=liveness_for(study, lock_dir(results_dir, setup.url)),
+        order=claim_order(sweep_jobs(catalog), release.estimates),
+        estimates=release.estimates,
+        checkpoint_seconds=setup.checkpoint_seconds,
     )
-    warm_up(sweep.recipe)
     try:
         work(ctx)
     except TrialInterrupted:
@@ -320,6 +320,8 @@ class RunContext:
     plan: dict  # the variants and seeds whose rows count (`collect_trials`)
     jobs: list[Job]
     progress: SweepProgress
+    checkpoint_seconds: float
+    standby: Standby | None = None  # worker processes started early, waiting for the release
 
 
 @dataclass
@@ -363,6 +365,7 @@ def run_workers(run: RunContext) -> PoolOutcome:
                 liveness=run.liveness,
                 order=claim_order(run.jobs, run.estimates),
                 estimates=run.estimates,
+                checkpoint_seconds=run.checkpoint_seconds,
             )
 
             def on_finish(key: str, status: str) -> None:
@@ -376,16 +379,7 @@ def run_workers(run: RunContext) -> PoolOutcome:
             with contextlib.suppress(TrialInterrupted):
                 work(ctx, on_finish=on_finish)
         else:
-            args = (
-                str(run.sweep_path),
-                str(run.results_root),
-                run.url,
-                threads,
-                run.device,
-                run.deadline,
-                run.estimates,
-            )
-            supervise(procs, args, stop, run, outcome)
+            supervise(procs, stop, run, outcome)
     except DiskFullError as exc:
         log.error("%s", exc)
         outcome.disk_full = str(exc)
@@ -409,30 +403,37 @@ def run_workers(run: RunContext) -> PoolOutcome:
 POLL_SECONDS = 2.0
 
 
-def supervise(procs, args, stop: StopFlag, run: RunContext, outcome: PoolOutcome) -> None:
-    """Start the worker processes, follow their progress, and replace one that dies.
+def supervise(procs, stop: StopFlag, run: RunContext, outcome: PoolOutcome) -> None:
+    """Release the workers standing by (or start them), follow their progress, and replace
+    one that dies.
 
     A worker that ran out of disk space (exit code 4) stops the others: each puts its trial
     back in the queue, and `outcome.disk_full` says so.
     """
     study, plan, progress, workers = run.study, run.plan, run.progress, run.layout[0]
-    ctx = mp.get_context("spawn")
     host = socket.gethostname()
+    setup = WorkerSetup(
+        str(run.sweep_path),
+        str(run.results_root),
+        run.url,
+        run.layout[1],
+        run.device,
+        run.checkpoint_seconds,
+    )
+    release = Release(run.deadline, run.estimates)
 
-    def start() -> None:
-        proc = ctx.Process(target=_worker_main, args=args, daemon=False)
-        # The child inherits an ignored SIGINT (Python keeps it ignored at start-up), so a
-        # Ctrl-C while it imports cannot print a traceback; `_worker_main` then installs its
-        # own handler, and a stop asked for meanwhile is forwarded again below.
-        previous = signal.signal(signal.SIGINT, signal.SIG_IGN)
-        try:
-            proc.start()
-        finally:
-            signal.signal(signal.SIGINT, previous)
+    def follow(proc) -> None:
         procs.append(proc)
         outcome.worker_names.add(f"{host}:{proc.pid}")
 
-    for _ in range(workers):
+    def start() -> None:
+        # A stop asked for while it starts (SIGINT is ignored until it installs its handler)
+        # is forwarded again below.
+        follow(spawn(worker_main, setup, release))
+
+    for proc in run.standby.release(release) if run.standby is not None else []:
+        follow(proc)
+    while len(procs) < workers:
         start()
     n_restarts = 0
     while any(p.is_alive() for p in procs):

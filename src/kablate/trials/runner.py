@@ -27,6 +27,7 @@ from kablate.results.redact import redact, sanitize, strip_password
 from kablate.results.tables import write_trial_tables
 from kablate.results.write import writable_folder, write_json
 from kablate.spec.loader import load_sweep
+from kablate.train.checkpoint import DEFAULT_CHECKPOINT_SECONDS
 from kablate.train.device import check_device
 from kablate.train.loop import warm_up
 from kablate.trials.budget import calibrate, format_plan, schedule
@@ -42,6 +43,7 @@ from kablate.trials.pool import (
     detach_run_log,
     run_workers,
     setup_logging,
+    worker_main,
 )
 from kablate.trials.preflight import run_preflight
 from kablate.trials.queue import enqueue_missing, withdraw_halted
@@ -50,6 +52,7 @@ from kablate.trials.rows import collect_trials, settled_jobs
 from kablate.trials.search import refuse_search_run
 from kablate.trials.search_estimate import search_estimate
 from kablate.trials.search_run import run_search
+from kablate.trials.standby import Standby, WorkerSetup
 from kablate.trials.store import lock_dir, open_study, resolve_url, storage_exists
 
 log = logging.getLogger("kablate")
@@ -64,6 +67,7 @@ class RunOptions:
     device: str = "cpu"
     budget_seconds: float = 0.0
     dry_run: bool = False  # calibrate and print the estimate and order; train nothing
+    checkpoint_seconds: float = DEFAULT_CHECKPOINT_SECONDS  # train/checkpoint.py's policy
     command: str = ""
     show_progress: bool = True
     echo: Callable[[str], None] | None = None  # where the estimate is printed (the CLI's)
@@ -176,7 +180,7 @@ def estimate(
     jobs: list[Job],
     done: set[str],
     layout,
-    budget: float,
+    opts: RunOptions,
     started=None,
     bound: str = "",
 ):
@@ -185,17 +189,19 @@ def estimate(
 
     The replay starts when the workers can take their first job: after what the run has spent
     so far (since ``started``, the run's start time; for a dry run, this calibration and the
-    set-up before it) and, for worker processes, their own start-up. That start-up repeats
-    this process's (imports, sweep, data: its CPU time so far) plus torch's warm-up.
+    set-up before it) or, for worker processes, after their own start-up if that is longer:
+    they start early and prepare meanwhile (standby.py). That start-up repeats this process's
+    (imports, sweep, data: its CPU time so far) plus torch's warm-up.
     """
+    budget = opts.budget_seconds
     step("calibration", "warming torch up")
     before = time.process_time()
     clock = time.perf_counter()
     warm_up(catalog.sweep.recipe)
     startup = before + (time.perf_counter() - clock)
-    calibration = calibrate(catalog, data, layout[1])
+    calibration = calibrate(catalog, data, layout[1], opts.checkpoint_seconds)
     spent = time.time() - started if started is not None else before + time.perf_counter() - clock
-    offset = spent + (startup if layout[0] > 1 else 0.0)
+    offset = max(spent, startup) if layout[0] > 1 else spent
     seconds = {vid: c.trial_seconds for vid, c in calibration.items()}
     remaining = longest_first([j for j in jobs if j.key not in done], seconds)
     plan = schedule(remaining, seconds, layout[0], budget, start=offset)
@@ -271,7 +277,7 @@ def dry_run(sweep_path: Path, opts: RunOptions) -> RunSummary:
         return RunSummary(results_dir, len(jobs), 0, 0, layout=layout, estimate=text)
     run_preflight(catalog, data, layout[0], opts.device)
     bound = upper_bound(races, sweep.halving.enabled)
-    _, text = estimate(catalog, data, jobs, done, layout, opts.budget_seconds, bound=bound)
+    _, text = estimate(catalog, data, jobs, done, layout, opts, bound=bound)
     text += "\n" + plan_note(len(data.val.labels), sweep.pick.margin, len(sweep.seeds))
     if opts.echo:
         opts.echo(text)
@@ -325,112 +331,140 @@ def _run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
         catalog = build_catalog(sweep)
     jobs = sweep_jobs(catalog)
     layout = choose_layout(opts.workers, opts.threads, len(jobs))
-    n_variants = len(catalog.variants)
-    step(
-        "start-up",
-        f"preflight: the memory of {n_variants} variants, and one training step of the most "
-        "expensive",
-    )
-    # Before the definition is recorded: a sweep refused here can be fixed and rerun as is.
-    run_preflight(catalog, data, layout[0], opts.device)
-    check_definition(study, sweep)
-    # Latency once per variant, before training, on [target] (else at the workers' threads):
-    # the report's fronts and `[pick] cost = "latency"` read it from there.
-    threads = catalog.sweep.target.threads or layout[1]
-    step("start-up", f"measuring the latency of {n_variants} variants at {threads} thread(s)")
-    measure_latencies(catalog, threads=threads)
-    write_manifest(results_dir, catalog, url, opts, layout)
-    write_json(results_dir / DATA_FILE, data.manifest())
-    plan = {
-        "seeds": list(sweep.seeds),
-        "variants": [
-            variant_json(v, with_layers=False, baseline=catalog.baseline.latency)
-            for v in catalog.variants
-        ],
-    }
-    liveness = liveness_for(study, lock_dir(results_dir, url))
-    liveness.recover(study)
-    # Racing (trials/race.py): only the rounds decided so far are enqueued; workers go on.
-    race = start_race(study, catalog, data.val.labels, sweep.racing, opts.budget_seconds)
-    halving = start_halving(study, sweep)  # successive halving inside trials (trials/halving.py)
-    with liveness.queue_lock():
-        withdraw_halted(study, liveness)  # a variant stopped on a seed gets no more seeds
-        n_new = race.advance(study, liveness) if race else enqueue_missing(study, jobs)
-    before = export_results(results_dir, study, plan)
-    n_finished = sum(before.get(status, 0) for status in FINISHED)
-    n_dropped = before.get(RETIRED, 0)  # racing retired or halving stopped their variant
-    to_run = len(jobs) - n_finished - n_dropped
-    log.info(
-        "sweep %s: %d trials, %d already finished, %d not run (variant retired or stopped), "
-        "%d to run on %d worker(s) x %d thread(s); storage %s",
-        sweep.name,
-        len(jobs),
-        n_finished,
-        n_dropped,
-        to_run,
-        *layout,
-        redact(url) if url else results_dir / JOURNAL,
-    )
-    summary = RunSummary(results_dir, len(jobs), n_new, 0, layout=layout, n_to_run=to_run)
-    summary.budget_seconds = opts.budget_seconds
-    seconds: dict[str, float] = {}
-    if to_run:  # with or without --budget: the estimate, and the predictions the ETA starts from
-        done = settled_jobs(study, jobs)
-        bound = upper_bound(race is not None, halving is not None)
-        seconds, summary.estimate = estimate(
-            catalog, data, jobs, done, layout, opts.budget_seconds, started, bound
+    # Worker processes start now and prepare while this one checks, measures and calibrates.
+    standby = None
+    if layout[0] > 1 and len(settled_jobs(study, jobs)) < len(jobs):
+        setup = WorkerSetup(
+            str(sweep_path),
+            str(opts.results_root),
+            url,
+            layout[1],
+            opts.device,
+            opts.checkpoint_seconds,
         )
-        # Into run.log; on the console only through ``echo`` when there is one (not twice).
-        log.info("%s", summary.estimate, extra={FILE_ONLY: opts.echo is not None})
-        if opts.echo:  # without --budget, the order is only in run.log
-            opts.echo(summary.estimate if opts.budget_seconds else brief(summary.estimate))
-    if to_run:
-        deadline = started + opts.budget_seconds if opts.budget_seconds else 0.0
-        step("sweep", f"training {to_run} trials on {layout[0]} worker(s)")
-        progress = SweepProgress(
+        standby = Standby(worker_main, setup, layout[0])
+    try:
+        n_variants = len(catalog.variants)
+        step(
+            "start-up",
+            f"preflight: the memory of {n_variants} variants, and one training step of the most "
+            "expensive",
+        )
+        # Before the definition is recorded: a sweep refused here can be fixed and rerun as is.
+        run_preflight(catalog, data, layout[0], opts.device)
+        check_definition(study, sweep)
+        # Latency once per variant, before training, on [target] (else at the workers' threads):
+        # the report's fronts and `[pick] cost = "latency"` read it from there.
+        threads = catalog.sweep.target.threads or layout[1]
+        step("start-up", f"measuring the latency of {n_variants} variants at {threads} thread(s)")
+        measure_latencies(catalog, threads=threads)
+        write_manifest(results_dir, catalog, url, opts, layout)
+        write_json(results_dir / DATA_FILE, data.manifest())
+        plan = {
+            "seeds": list(sweep.seeds),
+            "variants": [
+                variant_json(v, with_layers=False, baseline=catalog.baseline.latency)
+                for v in catalog.variants
+            ],
+        }
+        liveness = liveness_for(study, lock_dir(results_dir, url))
+        liveness.recover(study)
+        # Racing (trials/race.py): only the rounds decided so far are enqueued; workers go on.
+        race = start_race(study, catalog, data.val.labels, sweep.racing, opts.budget_seconds)
+        halving = start_halving(
+            study, sweep
+        )  # successive halving inside trials (trials/halving.py)
+        with liveness.queue_lock():
+            withdraw_halted(study, liveness)  # a variant stopped on a seed gets no more seeds
+            n_new = race.advance(study, liveness) if race else enqueue_missing(study, jobs)
+        before = export_results(results_dir, study, plan)
+        n_finished = sum(before.get(status, 0) for status in FINISHED)
+        n_dropped = before.get(RETIRED, 0)  # racing retired or halving stopped their variant
+        to_run = len(jobs) - n_finished - n_dropped
+        log.info(
+            "sweep %s: %d trials, %d already finished, %d not run (variant retired or stopped), "
+            "%d to run on %d worker(s) x %d thread(s); storage %s",
+            sweep.name,
             len(jobs),
             n_finished,
-            interactive,
-            predicted={j.key: seconds.get(j.variant_id, 0.0) for j in jobs},
-            n_workers=layout[0],
-            since=started_at,
+            n_dropped,
+            to_run,
+            *layout,
+            redact(url) if url else results_dir / JOURNAL,
         )
-        progress.settle(collect_trials(study, plan)[0])  # a resumed run's jobs that will not run
-        pool = run_workers(
-            RunContext(
-                sweep_path=sweep_path,
-                results_root=opts.results_root,
-                results_dir=results_dir,
-                device=opts.device,
-                url=url,
-                layout=layout,
-                deadline=deadline,
-                estimates=seconds,
-                catalog=catalog,
-                data=data,
-                study=study,
-                liveness=liveness,
-                plan=plan,
-                jobs=jobs,
-                progress=progress,
+        summary = RunSummary(results_dir, len(jobs), n_new, 0, layout=layout, n_to_run=to_run)
+        summary.budget_seconds = opts.budget_seconds
+        seconds: dict[str, float] = {}
+        if (
+            to_run
+        ):  # with or without --budget: the estimate, and the predictions the ETA starts from
+            done = settled_jobs(study, jobs)
+            bound = upper_bound(race is not None, halving is not None)
+            seconds, summary.estimate = estimate(
+                catalog, data, jobs, done, layout, opts, started, bound
             )
+            # Into run.log; on the console only through ``echo`` when there is one (not twice).
+            log.info("%s", summary.estimate, extra={FILE_ONLY: opts.echo is not None})
+            if opts.echo:  # without --budget, the order is only in run.log
+                opts.echo(summary.estimate if opts.budget_seconds else brief(summary.estimate))
+        if to_run:
+            deadline = started + opts.budget_seconds if opts.budget_seconds else 0.0
+            step("sweep", f"training {to_run} trials on {layout[0]} worker(s)")
+            progress = SweepProgress(
+                len(jobs),
+                n_finished,
+                interactive,
+                predicted={j.key: seconds.get(j.variant_id, 0.0) for j in jobs},
+                n_workers=layout[0],
+                since=started_at,
+            )
+            progress.settle(
+                collect_trials(study, plan)[0]
+            )  # a resumed run's jobs that will not run
+            pool = run_workers(
+                RunContext(
+                    sweep_path=sweep_path,
+                    results_root=opts.results_root,
+                    results_dir=results_dir,
+                    device=opts.device,
+                    url=url,
+                    layout=layout,
+                    deadline=deadline,
+                    estimates=seconds,
+                    catalog=catalog,
+                    data=data,
+                    study=study,
+                    liveness=liveness,
+                    plan=plan,
+                    jobs=jobs,
+                    progress=progress,
+                    checkpoint_seconds=opts.checkpoint_seconds,
+                    standby=standby,
+                )
+            )
+            own = own_counts(study, pool.worker_names, started_at)
+            summary.n_ran = sum(own[s] for s in FINISHED)
+            summary.interrupted, summary.disk_full = pool.interrupted, pool.disk_full
+            if deadline:
+                summary.budget_left = max(0.0, deadline - time.time())
+                over = settled_jobs(study, jobs)
+                waiting = [seconds.get(j.variant_id, 0.0) for j in jobs if j.key not in over]
+                summary.shortest_waiting = min(waiting, default=0.0)
+        if summary.disk_full:  # the study is consistent; writing the tables may not fit
+            summary.counts = {}
+            return summary
+        step("sweep", "writing trials.csv and curves.csv")
+        summary.counts = export_results(results_dir, study, plan)
+        # A job whose variant gets no more seeds is not a failure, whatever its last trial did.
+        settled = settled_jobs(study, jobs)
+        summary.failures = dict(
+            failure_reasons(study, [j.key for j in jobs if j.key not in settled])
         )
-        own = own_counts(study, pool.worker_names, started_at)
-        summary.n_ran = sum(own[s] for s in FINISHED)
-        summary.interrupted, summary.disk_full = pool.interrupted, pool.disk_full
-        if deadline:
-            summary.budget_left = max(0.0, deadline - time.time())
-            over = settled_jobs(study, jobs)
-            waiting = [seconds.get(j.variant_id, 0.0) for j in jobs if j.key not in over]
-            summary.shortest_waiting = min(waiting, default=0.0)
-    if summary.disk_full:  # the study is consistent; writing the tables may not fit
-        summary.counts = {}
+        if summary.interrupted:
+            log.warning(
+                "stopped; resume with the same command: %s", opts.command or "kablate run ..."
+            )
         return summary
-    step("sweep", "writing trials.csv and curves.csv")
-    summary.counts = export_results(results_dir, study, plan)
-    # A job whose variant gets no more seeds is not a failure, whatever its last trial did.
-    settled = settled_jobs(study, jobs)
-    summary.failures = dict(failure_reasons(study, [j.key for j in jobs if j.key not in settled]))
-    if summary.interrupted:
-        log.warning("stopped; resume with the same command: %s", opts.command or "kablate run ...")
-    return summary
+    finally:
+        if standby is not None:  # the workers not released: a failed or empty preparation
+            standby.close()

@@ -24,6 +24,7 @@ from kablate.errors import DiskFullError, is_disk_full
 from kablate.lifecycle import STOPPED, JobKey
 from kablate.results.paths import RECORD_FILE, trial_dir
 from kablate.results.write import write_text
+from kablate.train.checkpoint import DEFAULT_CHECKPOINT_SECONDS
 from kablate.train.loop import TrialInterrupted, train_trial
 from kablate.train.record import TrialRecord
 from kablate.trials.eta import time_ratio
@@ -58,6 +59,7 @@ class WorkerContext:
     liveness: Liveness | None = None  # liveness.LocalLiveness or HeartbeatLiveness
     order: dict[str, int] | None = None  # job key → position in the sweep's order
     estimates: dict[str, float] | None = None  # variant id → predicted trial seconds
+    checkpoint_seconds: float = DEFAULT_CHECKPOINT_SECONDS  # train/checkpoint.py's policy
 
     @property
     def worker_name(self) -> str:
@@ -140,10 +142,11 @@ def _train_and_tell(ctx: WorkerContext, trial: optuna.Trial, key: str) -> str:
             device=ctx.device,
             should_stop=ctx.should_stop,
             judge=judge_for(ctx.study, trial, ctx.catalog.baseline.variant.id),
+            checkpoint_seconds=ctx.checkpoint_seconds,
         )
     except TrialInterrupted:
         put_back(ctx, trial, "interrupted")
-        log.info("stopped %s; it is back in the queue and resumes from its last epoch", key)
+        log.info("stopped %s; it is back in the queue and resumes from its checkpoint", key)
         raise
     except DiskFullError:
         raise
