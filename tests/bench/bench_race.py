@@ -9,12 +9,12 @@ Targets (issue: racing over seeds, and search when the plan space is too big for
   analysis (`analysis.decide`), not by eye.
 
 Both runs train the same sweep file (default: sweeps/scarce-labels.toml, 12 variants × 3 seeds
-on digits) into fresh results folders, at the default layout, one after the other; only
-``[sweep] racing`` differs ("on" against "off"). Training seconds are each trial's
-``trial_seconds`` (the whole `train_trial` call) summed over the finished trials. The machine
-is shared, so the load moves the seconds of one run against the other's; a second ratio takes
-each trial's time from the full run's mean for its variant, which the load cannot tilt, and
-the load average (1 min, sampled every 5 s) is printed beside both.
+on digits) into fresh results folders, at the default staffing (workers x threads), one
+after the other; only ``[sweep] racing`` differs ("on" against "off"). Training seconds are
+each trial's ``trial_seconds`` (the whole `train_trial` call) summed over the finished trials.
+The machine is shared, so the load moves the seconds of one run against the other's; a
+second ratio takes each trial's time from the full run's mean for its variant, which the load
+cannot tilt, and the load average (1 min, sampled every 5 s) is printed beside both.
 With ``--halving`` the racing run also stops trials early by successive halving
 (``[halving] enabled = true``, its default rungs): its training seconds then include the
 stopped trials' (each stopped trial's ``trial_seconds`` up to its stop), and a variant stopped

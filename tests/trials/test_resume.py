@@ -61,7 +61,7 @@ def test_a_sigkilled_worker_is_detected_and_its_trial_resumes(long_sweep, tmp_pa
     report = json.loads(status.stdout)
     assert report["n_trials"] == JOBS and sum(report["counts"].values()) == JOBS
     assert {v["variant"] for v in report["variants"]} == {"all-3", "stem-5"}
-    assert report["layout"] == {"workers": 2, "threads": 1}
+    assert report["staffing"] == {"workers": 2, "threads": 1}
 
     out, err = proc.communicate(timeout=240)
     assert proc.returncode == 0, err

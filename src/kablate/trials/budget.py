@@ -165,12 +165,12 @@ def schedule(
     return Timetable(jobs, starts, ends, len(jobs) if n_fit is None else n_fit, total, fit_end)
 
 
-def format_plan(
+def format_timetable(
     timetable: Timetable,
     budget: float,
     seeds: list[int],
     n_variants: int,
-    layout,
+    staffing,
     already: list[int],
     bound: str = "",
 ) -> str:
@@ -178,7 +178,7 @@ def format_plan(
     figure is an upper bound) ends the first line, which a run without --budget prints."""
     from kablate.trials.status import duration
 
-    workers, threads = layout
+    workers, threads = staffing
     lines = [
         f"estimate: {len(timetable.jobs)} trials to run take about "
         f"{duration(timetable.total_seconds)} "

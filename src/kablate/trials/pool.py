@@ -20,7 +20,7 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 from datetime import datetime
 from pathlib import Path
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, NamedTuple
 
 from optuna.trial import FrozenTrial
 from tqdm import tqdm
@@ -301,6 +301,14 @@ class SweepProgress:
         self.bar.close()
 
 
+class Staffing(NamedTuple):
+    """How a run is staffed: worker processes, and torch threads in each (not a network's
+    layout: that word is `nets.layout`'s)."""
+
+    workers: int
+    threads: int
+
+
 @dataclass
 class RunContext:
     """What the runner hands its workers: the sweep, where it runs, and how."""
@@ -310,14 +318,14 @@ class RunContext:
     results_dir: Path
     device: str
     url: str | None  # the storage; None: the folder's journal file
-    layout: tuple[int, int]  # (workers, threads per worker)
+    staffing: Staffing
     deadline: float  # time.time() by which every started trial should end; 0: none
     estimates: dict[str, float]  # variant id → predicted trial seconds
     catalog: Catalog
     data: PreparedData
     study: optuna.Study
     liveness: Liveness
-    plan: dict  # the variants and seeds whose rows count (`collect_trials`)
+    roster: dict  # the variants and seeds whose rows count (`collect_trials`)
     jobs: list[Job]
     progress: SweepProgress
     checkpoint_seconds: float
@@ -337,8 +345,8 @@ def run_workers(run: RunContext) -> PoolOutcome:
     """Run the workers (in this process when there is one); a `PoolOutcome`."""
     from kablate.train.loop import TrialInterrupted, warm_up
 
-    catalog, study, plan, progress = run.catalog, run.study, run.plan, run.progress
-    workers, threads = run.layout
+    catalog, study, roster, progress = run.catalog, run.study, run.roster, run.progress
+    workers, threads = run.staffing
     procs: list = []
     outcome = PoolOutcome()
 
@@ -369,7 +377,7 @@ def run_workers(run: RunContext) -> PoolOutcome:
             )
 
             def on_finish(key: str, status: str) -> None:
-                rows, _ = collect_trials(study, plan)
+                rows, _ = collect_trials(study, roster)
                 progress.observe(study.get_trials(deepcopy=False))
                 progress.update(n_finished(r["status"] for r in rows))
                 progress.settle(rows)
@@ -410,13 +418,13 @@ def supervise(procs, stop: StopFlag, run: RunContext, outcome: PoolOutcome) -> N
     A worker that ran out of disk space (exit code 4) stops the others: each puts its trial
     back in the queue, and `outcome.disk_full` says so.
     """
-    study, plan, progress, workers = run.study, run.plan, run.progress, run.layout[0]
+    study, roster, progress, workers = run.study, run.roster, run.progress, run.staffing.workers
     host = socket.gethostname()
     setup = WorkerSetup(
         str(run.sweep_path),
         str(run.results_root),
         run.url,
-        run.layout[1],
+        run.staffing.threads,
         run.device,
         run.checkpoint_seconds,
     )
@@ -440,7 +448,7 @@ def supervise(procs, stop: StopFlag, run: RunContext, outcome: PoolOutcome) -> N
         time.sleep(POLL_SECONDS)
         if stop.stopped and stop.forward is not None:
             stop.forward(signal.SIGINT)  # reaches workers that were still starting (a no-op else)
-        rows, _ = collect_trials(study, plan)
+        rows, _ = collect_trials(study, roster)
         finished = n_finished(r["status"] for r in rows)
         if finished != progress.n:
             progress.observe(study.get_trials(deepcopy=False))

@@ -25,19 +25,20 @@ from kablate.trials.queue import job_status, tagged_trials
 from kablate.trials.race import RULE_ATTR, read_rounds, retired_variants
 
 
-def collect_trials(study: optuna.Study, plan: dict) -> tuple[list[dict], list[dict]]:
-    """Rows of trials.csv and curves.csv for the variants and seeds of ``plan``.
+def collect_trials(study: optuna.Study, roster: dict) -> tuple[list[dict], list[dict]]:
+    """Rows of trials.csv and curves.csv for the variants and seeds of ``roster``.
 
     Args:
-        plan: the content of ``plan.json`` (variants with costs, seeds).
+        roster: the variants (with costs) and seeds whose rows count: the content of
+            ``plan.json``, with or without the layers.
     """
     by_job = tagged_trials(study)
     # A race's retirements count while the study races (a run with racing off trains them).
     retired = retired_variants(read_rounds(study)) if study.user_attrs.get(RULE_ATTR) else {}
     halted = halted_variants(study)  # stopped by successive halving: no more seeds
     rows, curves = [], []
-    for seed in plan["seeds"]:
-        for v in plan["variants"]:
+    for seed in roster["seeds"]:
+        for v in roster["variants"]:
             key = str(JobKey(v["id"], seed))
             row = {c: None for c in TRIAL_COLUMNS}
             row.update(

@@ -30,7 +30,7 @@ from kablate.spec.loader import load_sweep
 from kablate.train.checkpoint import DEFAULT_CHECKPOINT_SECONDS
 from kablate.train.device import check_device
 from kablate.train.loop import warm_up
-from kablate.trials.budget import calibrate, format_plan, schedule
+from kablate.trials.budget import calibrate, format_timetable, schedule
 from kablate.trials.environment import environment
 from kablate.trials.halving import start_halving
 from kablate.trials.jobs import Job, longest_first, sweep_jobs
@@ -39,6 +39,7 @@ from kablate.trials.meta import check_definition, definition, fingerprint
 from kablate.trials.outcome import failure_reasons, own_counts
 from kablate.trials.pool import (
     RunContext,
+    Staffing,
     SweepProgress,
     detach_run_log,
     run_workers,
@@ -81,7 +82,7 @@ class RunSummary:
     n_ran: int
     interrupted: bool = False
     counts: dict[str, int] = field(default_factory=dict)
-    layout: tuple[int, int] = (1, 1)
+    staffing: Staffing = Staffing(1, 1)
     estimate: str = ""  # the printed estimate (--budget, --dry-run)
     n_to_run: int = 0  # trials not finished when the run started
     budget_seconds: float = 0.0
@@ -93,7 +94,7 @@ class RunSummary:
     shortest_waiting: float = 0.0
 
 
-def choose_layout(n_workers: int, n_threads: int, n_jobs: int) -> tuple[int, int]:
+def choose_staffing(n_workers: int, n_threads: int, n_jobs: int) -> Staffing:
     """Workers × threads with workers × threads ≤ cores.
 
     Small models scale badly across threads, so the default is one single-thread worker per
@@ -110,7 +111,7 @@ def choose_layout(n_workers: int, n_threads: int, n_jobs: int) -> tuple[int, int
             threads,
             cores,
         )
-    return workers, threads
+    return Staffing(workers, threads)
 
 
 def file_sha256(path: Path) -> str | None:
@@ -119,7 +120,11 @@ def file_sha256(path: Path) -> str | None:
 
 
 def write_manifest(
-    results_dir: Path, catalog: Catalog, url: str | None, opts: RunOptions, layout: tuple[int, int]
+    results_dir: Path,
+    catalog: Catalog,
+    url: str | None,
+    opts: RunOptions,
+    staffing: tuple[int, int],
 ) -> None:
     sweep = catalog.sweep
     write_json(
@@ -137,8 +142,8 @@ def write_manifest(
             "storage": strip_password(url) if url else JOURNAL,
             "command": redact(sanitize(opts.command)),
             "environment": environment(),
-            "workers": layout[0],
-            "threads": layout[1],
+            "workers": staffing.workers,
+            "threads": staffing.threads,
             "device": opts.device,
             "budget_seconds": opts.budget_seconds,
             "resolved": sweep.raw,
@@ -165,8 +170,8 @@ def write_manifest(
     )
 
 
-def export_results(results_dir: Path, study, plan: dict) -> dict[str, int]:
-    rows, curves = collect_trials(study, plan)
+def export_results(results_dir: Path, study, roster: dict) -> dict[str, int]:
+    rows, curves = collect_trials(study, roster)
     write_trial_tables(results_dir, rows, curves)
     counts: dict[str, int] = {}
     for row in rows:
@@ -179,7 +184,7 @@ def estimate(
     data,
     jobs: list[Job],
     done: set[str],
-    layout,
+    staffing,
     opts: RunOptions,
     started=None,
     bound: str = "",
@@ -199,18 +204,18 @@ def estimate(
     clock = time.perf_counter()
     warm_up(catalog.sweep.recipe)
     startup = before + (time.perf_counter() - clock)
-    calibration = calibrate(catalog, data, layout[1], opts.checkpoint_seconds)
+    calibration = calibrate(catalog, data, staffing.threads, opts.checkpoint_seconds)
     spent = time.time() - started if started is not None else before + time.perf_counter() - clock
-    offset = max(spent, startup) if layout[0] > 1 else spent
+    offset = max(spent, startup) if staffing.workers > 1 else spent
     seconds = {vid: c.trial_seconds for vid, c in calibration.items()}
     remaining = longest_first([j for j in jobs if j.key not in done], seconds)
-    plan = schedule(remaining, seconds, layout[0], budget, start=offset)
-    text = format_plan(
-        plan,
+    timetable = schedule(remaining, seconds, staffing.workers, budget, start=offset)
+    text = format_timetable(
+        timetable,
         budget,
         list(catalog.sweep.seeds),
         len(catalog.variants),
-        layout,
+        staffing,
         already=[j.seed for j in jobs if j.key in done],
         bound=bound,
     )
@@ -246,7 +251,7 @@ def dry_run(sweep_path: Path, opts: RunOptions) -> RunSummary:
     results_dir = opts.results_root / sweep.name
     url = resolve_url(opts.storage)
     jobs = sweep_jobs(catalog)
-    layout = choose_layout(opts.workers, opts.threads, len(jobs))
+    staffing = choose_staffing(opts.workers, opts.threads, len(jobs))
     done: set[str] = set()
     races = sweep.racing == "on" or (sweep.racing == "auto" and bool(opts.budget_seconds))
     if storage_exists(results_dir, url):
@@ -264,24 +269,24 @@ def dry_run(sweep_path: Path, opts: RunOptions) -> RunSummary:
         )
         if opts.echo:
             opts.echo(text)
-        summary = RunSummary(results_dir, len(jobs), 0, 0, layout=layout, estimate=text)
+        summary = RunSummary(results_dir, len(jobs), 0, 0, staffing=staffing, estimate=text)
         summary.counts = {"done": len(done)}
         return summary
     step("start-up", f"preparing the data ({sweep.data.source}) and the preflight")
     data = prepare_data(sweep.data)
     if sweep.search is not None:  # the search and an upper bound for its finalists
-        layout = choose_layout(opts.workers, opts.threads, sweep.search.budget)
-        text = search_estimate(catalog, data, layout)
+        staffing = choose_staffing(opts.workers, opts.threads, sweep.search.budget)
+        text = search_estimate(catalog, data, staffing)
         if opts.echo:
             opts.echo(text)
-        return RunSummary(results_dir, len(jobs), 0, 0, layout=layout, estimate=text)
-    run_preflight(catalog, data, layout[0], opts.device)
+        return RunSummary(results_dir, len(jobs), 0, 0, staffing=staffing, estimate=text)
+    run_preflight(catalog, data, staffing.workers, opts.device)
     bound = upper_bound(races, sweep.halving.enabled)
-    _, text = estimate(catalog, data, jobs, done, layout, opts, bound=bound)
+    _, text = estimate(catalog, data, jobs, done, staffing, opts, bound=bound)
     text += "\n" + plan_note(len(data.val.labels), sweep.pick.margin, len(sweep.seeds))
     if opts.echo:
         opts.echo(text)
-    summary = RunSummary(results_dir, len(jobs), 0, 0, layout=layout, estimate=text)
+    summary = RunSummary(results_dir, len(jobs), 0, 0, staffing=staffing, estimate=text)
     summary.counts = {"done": len(done), "waiting": len(jobs) - len(done)}
     return summary
 
@@ -317,32 +322,32 @@ def _run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
     step("start-up", f"preparing the data ({sweep.data.source})")
     data = prepare_data(sweep.data)
     if sweep.search is not None:  # search first, on every worker, then train its finalists
-        search_layout = choose_layout(opts.workers, opts.threads, sweep.search.budget)
+        search_staffing = choose_staffing(opts.workers, opts.threads, sweep.search.budget)
         sweep = run_search(
             catalog,
             data,
             results_dir,
             url,
-            search_layout,
+            search_staffing,
             opts.device,
             sweep_path,
             opts.results_root,
         )
         catalog = build_catalog(sweep)
     jobs = sweep_jobs(catalog)
-    layout = choose_layout(opts.workers, opts.threads, len(jobs))
+    staffing = choose_staffing(opts.workers, opts.threads, len(jobs))
     # Worker processes start now and prepare while this one checks, measures and calibrates.
     standby = None
-    if layout[0] > 1 and len(settled_jobs(study, jobs)) < len(jobs):
+    if staffing.workers > 1 and len(settled_jobs(study, jobs)) < len(jobs):
         setup = WorkerSetup(
             str(sweep_path),
             str(opts.results_root),
             url,
-            layout[1],
+            staffing.threads,
             opts.device,
             opts.checkpoint_seconds,
         )
-        standby = Standby(worker_main, setup, layout[0])
+        standby = Standby(worker_main, setup, staffing.workers)
     try:
         n_variants = len(catalog.variants)
         step(
@@ -351,16 +356,16 @@ def _run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
             "expensive",
         )
         # Before the definition is recorded: a sweep refused here can be fixed and rerun as is.
-        run_preflight(catalog, data, layout[0], opts.device)
+        run_preflight(catalog, data, staffing.workers, opts.device)
         check_definition(study, sweep)
         # Latency once per variant, before training, on [target] (else at the workers' threads):
         # the report's fronts and `[pick] cost = "latency"` read it from there.
-        threads = catalog.sweep.target.threads or layout[1]
+        threads = catalog.sweep.target.threads or staffing.threads
         step("start-up", f"measuring the latency of {n_variants} variants at {threads} thread(s)")
         measure_latencies(catalog, threads=threads)
-        write_manifest(results_dir, catalog, url, opts, layout)
+        write_manifest(results_dir, catalog, url, opts, staffing)
         write_json(results_dir / DATA_FILE, data.manifest())
-        plan = {
+        roster = {  # the variants and seeds whose rows count: plan.json without the layers
             "seeds": list(sweep.seeds),
             "variants": [
                 variant_json(v, with_layers=False, baseline=catalog.baseline.latency)
@@ -377,7 +382,7 @@ def _run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
         with liveness.queue_lock():
             withdraw_halted(study, liveness)  # a variant stopped on a seed gets no more seeds
             n_new = race.advance(study, liveness) if race else enqueue_missing(study, jobs)
-        before = export_results(results_dir, study, plan)
+        before = export_results(results_dir, study, roster)
         n_finished = sum(before.get(status, 0) for status in FINISHED)
         n_dropped = before.get(RETIRED, 0)  # racing retired or halving stopped their variant
         to_run = len(jobs) - n_finished - n_dropped
@@ -389,10 +394,10 @@ def _run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
             n_finished,
             n_dropped,
             to_run,
-            *layout,
+            *staffing,
             redact(url) if url else results_dir / JOURNAL,
         )
-        summary = RunSummary(results_dir, len(jobs), n_new, 0, layout=layout, n_to_run=to_run)
+        summary = RunSummary(results_dir, len(jobs), n_new, 0, staffing=staffing, n_to_run=to_run)
         summary.budget_seconds = opts.budget_seconds
         seconds: dict[str, float] = {}
         if (
@@ -401,7 +406,7 @@ def _run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
             done = settled_jobs(study, jobs)
             bound = upper_bound(race is not None, halving is not None)
             seconds, summary.estimate = estimate(
-                catalog, data, jobs, done, layout, opts, started, bound
+                catalog, data, jobs, done, staffing, opts, started, bound
             )
             # Into run.log; on the console only through ``echo`` when there is one (not twice).
             log.info("%s", summary.estimate, extra={FILE_ONLY: opts.echo is not None})
@@ -409,17 +414,17 @@ def _run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
                 opts.echo(summary.estimate if opts.budget_seconds else brief(summary.estimate))
         if to_run:
             deadline = started + opts.budget_seconds if opts.budget_seconds else 0.0
-            step("sweep", f"training {to_run} trials on {layout[0]} worker(s)")
+            step("sweep", f"training {to_run} trials on {staffing.workers} worker(s)")
             progress = SweepProgress(
                 len(jobs),
                 n_finished,
                 interactive,
                 predicted={j.key: seconds.get(j.variant_id, 0.0) for j in jobs},
-                n_workers=layout[0],
+                n_workers=staffing.workers,
                 since=started_at,
             )
             progress.settle(
-                collect_trials(study, plan)[0]
+                collect_trials(study, roster)[0]
             )  # a resumed run's jobs that will not run
             pool = run_workers(
                 RunContext(
@@ -428,14 +433,14 @@ def _run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
                     results_dir=results_dir,
                     device=opts.device,
                     url=url,
-                    layout=layout,
+                    staffing=staffing,
                     deadline=deadline,
                     estimates=seconds,
                     catalog=catalog,
                     data=data,
                     study=study,
                     liveness=liveness,
-                    plan=plan,
+                    roster=roster,
                     jobs=jobs,
                     progress=progress,
                     checkpoint_seconds=opts.checkpoint_seconds,
@@ -454,7 +459,7 @@ def _run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
             summary.counts = {}
             return summary
         step("sweep", "writing trials.csv and curves.csv")
-        summary.counts = export_results(results_dir, study, plan)
+        summary.counts = export_results(results_dir, study, roster)
         # A job whose variant gets no more seeds is not a failure, whatever its last trial did.
         settled = settled_jobs(study, jobs)
         summary.failures = dict(

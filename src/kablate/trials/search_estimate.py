@@ -27,15 +27,15 @@ from kablate.trials.budget import calibrate
 from kablate.trials.status import duration
 
 
-def search_estimate(catalog: Catalog, data, layout: tuple[int, int]) -> str:
-    """The printed estimate for a costed ``[search]`` sweep on ``layout`` (workers × threads)."""
+def search_estimate(catalog: Catalog, data, staffing: tuple[int, int]) -> str:
+    """The printed estimate for a costed ``[search]`` sweep on ``staffing`` (workers × threads)."""
     sweep = catalog.sweep
     search = sweep.search
     starts = [{"name": cell_name(p), "plan": p} for p in start_plans(search.choices)]
     record = {"finalists": starts, "baseline": catalog.baseline.variant.name}
     probe = build_catalog(finalist_sweep(sweep, record))
-    seconds = [c.trial_seconds for c in calibrate(probe, data, layout[1]).values()]
-    workers = layout[0]
+    seconds = [c.trial_seconds for c in calibrate(probe, data, staffing.threads).values()]
+    workers = staffing.workers
     rounds = math.ceil(search.budget / workers)  # trials one worker trains at most
     low, high = search.budget * min(seconds) / workers, rounds * max(seconds)
     n_finalists = search.budget + 1 + len(sweep.plans)  # front ≤ budget, baseline, [[plan]]

@@ -68,12 +68,12 @@ def run_search(
     data,
     results_dir: Path,
     url: str | None,
-    layout: tuple[int, int],
+    staffing: tuple[int, int],
     device: str,
     sweep_path: Path,
     results_root: Path,
 ) -> SweepSpec:
-    """Run (or continue) the search of a costed ``[search]`` sweep (`Catalog`) on ``layout``
+    """Run (or continue) the search of a costed ``[search]`` sweep (`Catalog`) on ``staffing``
     (workers × threads): this process and ``workers − 1`` worker processes share the study.
     Write ``search.json`` and return the sweep of its finalists (`finalist_sweep`).
 
@@ -82,7 +82,7 @@ def run_search(
     """
     sweep = catalog.sweep
     search = sweep.search
-    workers, threads = layout
+    workers, threads = staffing
     step(
         "search",
         f"NSGA-II over the [search] space: {search.budget} plans with seed {sweep.seeds[0]}, "

@@ -49,7 +49,7 @@ class SweepStatus:
     throughput_per_hour: float
     eta_seconds: float | None  # None: nothing is running, so no end can be predicted
     finished: bool = False
-    layout: dict = field(default_factory=dict)
+    staffing: dict = field(default_factory=dict)
     # how the variants stand (`analysis.standing.Standing`), or None with the reason
     standing: dict | None = None
     standing_error: str | None = None
@@ -64,7 +64,7 @@ def row_state(status: str) -> str:
 
 
 def summarize(
-    name: str, rows: list[dict], trials: list[FrozenTrial], now: datetime, layout: dict
+    name: str, rows: list[dict], trials: list[FrozenTrial], now: datetime, staffing: dict
 ) -> SweepStatus:
     """Counts, per-variant progress, throughput and ETA.
 
@@ -128,7 +128,7 @@ def summarize(
         throughput_per_hour=round(throughput, 2),
         eta_seconds=round(eta, 1) if eta is not None else None,
         finished=not left,
-        layout=layout,
+        staffing=staffing,
     )
 
 
@@ -277,8 +277,8 @@ def read_status(folder: StoredResults) -> SweepStatus:
 
     rows, curves = folder.rows()
     trials = folder.study.get_trials(deepcopy=False)
-    layout = {k: folder.meta.get(k) for k in ("workers", "threads")}
-    status = summarize(folder.name, rows, trials, datetime.now(), layout)
+    staffing = {k: folder.meta.get(k) for k in ("workers", "threads")}
+    status = summarize(folder.name, rows, trials, datetime.now(), staffing)
     found = search_status(folder.study._storage, folder.name)  # noqa: SLF001
     status.search = found.to_dict() if found else None
     try:
