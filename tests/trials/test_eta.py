@@ -83,8 +83,10 @@ def test_trials_that_will_not_run_leave_the_total_and_the_eta_and_the_log_re_pla
         {"variant_id": v, "seed": 0, "status": status}
         for v, status in (("a", "done"), ("b", "waiting"), ("c", "waiting"), ("d", "retired"))
     ]
-    # An earlier test's pool.setup_logging may have stopped it from propagating to caplog.
-    monkeypatch.setattr(logging.getLogger("kablate"), "propagate", True)
+    # Only caplog's handler on the logger: an earlier test's run may have left its own there
+    # (pool.setup_logging stops propagation, and pytest attaches its capture handlers).
+    monkeypatch.setattr(logging.getLogger("kablate"), "handlers", [caplog.handler])
+    monkeypatch.setattr(logging.getLogger("kablate"), "propagate", False)
     with caplog.at_level(logging.INFO, logger="kablate"):
         progress.settle(rows)
         progress.settle(rows)  # nothing changed: no second line
