@@ -30,6 +30,8 @@ def account() -> HalvingAccount:
         {"first_epoch": 1, "factor": 3, "rungs": [1, 3]},
         stopped,
         5,
+        # b was stopped on seed 0: its seed 2 was never run
+        pd.DataFrame({"variant": ["b"], "seed": [2], "retired_after": [0]}),
         [
             RungAgreement(1, 5, rho, rho_p, tau, tau_p),
             RungAgreement(3, 2, float("nan"), float("nan"), float("nan"), float("nan")),
@@ -63,6 +65,12 @@ def test_the_agreement_rows_give_scipys_correlations_and_n_a_where_there_are_non
     assert rows[0] == ["1", "5", f"{rho:.2f}", f"{rho_p:.3f}", f"{tau:.2f}", f"{tau_p:.3f}"]
     assert rows[0][2:5:2] == ["0.90", "0.80"]
     assert rows[1] == ["3", "2", "n/a", "n/a", "n/a", "n/a"]
+
+
+def test_the_seeds_not_run_after_a_stop_have_a_row_each():
+    text = "\n".join(section())
+    assert "1 trial(s) not run: their variant was stopped on another seed." in text
+    assert md_table(section(), "| variant | seed not run") == [["b", "2", "0"]]
 
 
 def test_no_section_when_the_sweep_did_not_halve():
