@@ -68,6 +68,10 @@ def test_plan_and_run_refuse_bad_input_with_exit_2(tmp_path):
     path = search_sweep(tmp_path, TINY_SEARCH.replace("budget = 3", "budget = 99"))
     out = kablate("plan", str(path), cwd=tmp_path)
     assert out.returncode == 2 and "`search.budget`" in out.stderr and "Traceback" not in out.stderr
-    out = kablate("run", str(search_sweep(tmp_path)), "--dry-run", cwd=tmp_path)
-    assert out.returncode == 2 and "`search`" in out.stderr
-    assert "--dry-run cannot do yet" in out.stderr
+    # --budget cannot schedule the search yet: refused before anything trains, and the
+    # message points to --dry-run, which estimates a search (trials/search_estimate.py).
+    out = kablate("run", str(search_sweep(tmp_path)), "--budget", "1h", cwd=tmp_path)
+    assert out.returncode == 2 and "`search`" in out.stderr and "Traceback" not in out.stderr
+    assert "`kablate run --budget` cannot schedule yet" in out.stderr
+    assert "--dry-run` estimates the search" in out.stderr
+    assert not (tmp_path / "results").exists()
