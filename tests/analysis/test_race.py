@@ -11,7 +11,7 @@ from statsmodels.stats.multitest import multipletests
 
 from kablate.analysis.decide import decide
 from kablate.analysis.evidence import Evidence
-from kablate.analysis.race import FUTILE, compare_pairs, retirements
+from kablate.analysis.race import DOMINATED, FUTILE, INFERIOR, compare_pairs, retirements
 
 
 def evidence_of(correct: dict[str, np.ndarray]) -> Evidence:
@@ -147,7 +147,8 @@ def test_futility_hand_worked_round():
     #   kept.
     # "gain" (cost 30) gets 20 more right (+10 pp): kept. (It costs more than "edge", which it
     #   would otherwise dominate.)
-    # "cheap" (cost 5) costs less than the baseline: never tested for futility.
+    # "cheap" (cost 5) costs less than the baseline: never tested for futility; it is tested
+    #   for inferiority to the baseline instead (d = 0 in every resample, p = 1: kept).
     ev = evidence_of(
         {
             "base": first_right(180),
@@ -203,3 +204,77 @@ def test_futility_never_changes_the_margin_rules_pick(world):
     raced = decide(kept, costs, "v0", margin=0.01, n_resamples=1000, leave_one_out=False)
     assert raced.recommended == full.recommended
     assert set(raced.qualifying) == set(full.qualifying) - set(retired)
+
+
+def test_the_margin_rules_family_holds_the_tests_that_bear_on_its_pick():
+    # Under the margin rule a variant costlier than the baseline is tested for futility only
+    # (none of its domination pairs), and a cheaper one keeps its domination pairs and gains a
+    # test against the baseline. 200 images, one seed: "base" (cost 10) 180 right, "dear"
+    # (cost 20) and "dearer" (cost 30) 180 right, "cheap" (cost 5) and "cheaper" (cost 2) 180
+    # and 179 right.
+    ev = evidence_of(
+        {
+            "base": first_right(180),
+            "dear": first_right(180),
+            "dearer": first_right(180),
+            "cheap": first_right(180),
+            "cheaper": first_right(179),
+        }
+    )
+    costs = {"base": 10, "dear": 20, "dearer": 30, "cheap": 5, "cheaper": 2}
+    tested = {(d.name, d.by): d.why for d in compare_pairs(ev, costs, "base", 0.01, 500, True)}
+    assert tested == {
+        ("dear", "base"): FUTILE,
+        ("dearer", "base"): FUTILE,
+        ("cheap", "cheaper"): DOMINATED,
+        ("cheap", "base"): INFERIOR,
+        ("cheaper", "base"): INFERIOR,
+    }
+    # The one-standard-error rule's race (no futility) tests every domination pair instead.
+    every = {(d.name, d.by) for d in compare_pairs(ev, costs, "base", 0.01, 500)}
+    assert every == {
+        (v, w) for v in costs for w in costs if v != "base" and w != v and costs[w] <= costs[v]
+    }
+
+
+def test_inferiority_hand_worked_round():
+    # 200 images, one seed, 1 pp margin. "base" (cost 10) gets 190 right; "lean" (cost 4) gets
+    # 180 of the same right (10 discordant images, all against it: 5 pp behind). Its
+    # resampled deficit is the count of those 10 images drawn, Binomial(200, 0.05): d ≥ −1 pp
+    # when the count is ≤ 2, p = P(count ≤ 2) ≈ 0.0023 (scipy.stats.binom). It is the only
+    # test, so Holm leaves p as it is: retired as inferior, by the baseline that costs more.
+    # "slim" (cost 3) gets 189 right: 1 image behind, P(count of 1/200 ≤ 2) ≈ 0.92: kept.
+    ev = evidence_of({"base": first_right(190), "lean": first_right(180)})
+    (pair,) = compare_pairs(ev, {"base": 10, "lean": 4}, "base", 0.01, 8000, futility=True)
+    assert (pair.name, pair.by, pair.why) == ("lean", "base", INFERIOR)
+    assert pair.diff == pytest.approx(-0.05)
+    assert pair.p_value == pytest.approx(stats.binom.cdf(2, 200, 0.05), abs=0.002)
+    assert pair.retires
+    ev = evidence_of({"base": first_right(190), "slim": first_right(189)})
+    (pair,) = compare_pairs(ev, {"base": 10, "slim": 3}, "base", 0.01, 4000, futility=True)
+    assert pair.p_value == pytest.approx(stats.binom.cdf(2, 200, 0.005), abs=0.02)
+    assert not pair.retires
+
+
+@pytest.mark.parametrize("world", range(6))
+def test_inferiority_never_retires_the_margin_rules_pick(world):
+    # Known ground truth: plans cheaper than the baseline v0 (true accuracy 0.85) lie anywhere
+    # from 6 pp below it to 1 pp above, 3 seeds × 1,000 images, each plan erring on 1% of
+    # images of its own. Racing on seed 0 must not retire the plan the full sweep's margin
+    # rule recommends; what it retires as inferior truly loses more than the margin and is
+    # not in the full sweep's qualifying set. (Three of the six worlds retire a plan as
+    # inferior, the others by domination.)
+    rng = np.random.default_rng(300 + world)
+    names = [f"v{i}" for i in range(6)]
+    costs = dict(zip(names, (10.0, 2.0, 3.0, 5.0, 7.0, 9.0), strict=True))
+    truth = {n: 0.85 + (0 if n == "v0" else rng.uniform(-0.06, 0.01)) for n in names}
+    shared = rng.random((3, 1000))
+    correct = {n: (shared < t) ^ (rng.random((3, 1000)) < 0.01) for n, t in truth.items()}
+    ev = evidence_of(correct)
+    full = decide(ev, costs, "v0", margin=0.01, n_resamples=1000, leave_one_out=False)
+    retired = retirements(ev.without_seed(1).without_seed(2), costs, "v0", 0.01, 1000, True)
+    assert retired  # the rule is exercised in every world
+    assert full.recommended not in retired
+    inferior = {n for n, d in retired.items() if d.why == INFERIOR}
+    assert all(truth[n] < truth["v0"] - 0.01 for n in inferior)
+    assert not set(full.qualifying) & inferior

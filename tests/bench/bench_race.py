@@ -38,7 +38,9 @@ from pathlib import Path
 
 from optuna.trial import TrialState
 
+from kablate.analysis.race import compare_pairs
 from kablate.analysis.summary import analyze, pick_settings
+from kablate.spec.costs import COSTS
 from kablate.trials import open_results
 
 REPO = Path(__file__).resolve().parents[2]
@@ -115,6 +117,7 @@ def read_run(path: Path, wall: float, load: str) -> dict:
     data = folder.data()
     analysis = analyze(rows, curves, folder.plan, folder.meta.get("grids", []), data,
                        pick_settings(folder.meta))  # fmt: skip
+    analysis.race = folder.race()  # as the report reads it (report/compose.py)
     seconds = defaultdict(list)
     for t in done:
         seconds[t.user_attrs["variant"]].append(t.user_attrs["trial_seconds"])
@@ -127,6 +130,7 @@ def read_run(path: Path, wall: float, load: str) -> dict:
         "statuses": statuses,
         "decision": analysis.decision,
         "variants": analysis.variants,
+        "analysis": analysis,
     }
 
 
@@ -186,6 +190,7 @@ def compare(sweep: Path, race: dict, full: dict) -> None:
         f"{'the same' if ours.recommended == theirs.recommended else 'different'}, and the full "
         f"sweep's rule {'accepts' if accepted else 'does NOT accept'} it"
     )
+    print(confirmed_line(race["analysis"], full["analysis"]))
     n_seeds = max(len(s) for s in full["seconds"].values())
     kept = race["variants"].loc[race["variants"]["retired_after"].isna(), "variant"]
     kept_share = sum(sum(full["seconds"].get(v, [])) for v in kept) / full["total"]
@@ -200,11 +205,37 @@ def compare(sweep: Path, race: dict, full: dict) -> None:
     print(
         f"{len(costlier)} variants cost more {theirs.cost} than the baseline {theirs.baseline}: "
         f"the margin rule never recommends them, and racing retires one when it loses more "
-        f"than the margin to a variant that costs no more or (futility) is shown to gain less "
-        f"than the margin over the baseline; they take "
+        f"than the margin to a variant that costs no more or (futility, under the margin rule) "
+        f"is shown to gain less than the margin over the baseline; they take "
         f"{sum(sum(full['seconds'].get(v, [])) for v in costlier) / full['total']:.0%} of the "
         f"full sweep's training seconds"
     )
+
+
+def confirmed_line(raced, full) -> str:
+    """How many of the race's retirements (each on the seeds up to its round) the same test,
+    in the same Holm family of every variant, also makes on the full sweep's evidence (every
+    seed of every variant)."""
+    rule = raced.race["rule"] if raced.race else None
+    retired = raced.variants[raced.variants["retired_after"].notna()]
+    if rule is None or full.evidence is None or not len(retired):
+        return "retirements confirmed on the full sweep's evidence: none to confirm"
+    column = COSTS[rule["cost"]].column
+    costs = full.variants.set_index("variant")[column].astype(float).to_dict()
+    tested = compare_pairs(
+        full.evidence, costs, full.baseline, rule["margin_pp"] / 100,
+        futility=bool(rule.get("futility")),
+    )  # fmt: skip
+    again = {(d.name, d.by, d.why) for d in tested if d.retires}
+    confirmed = [
+        r.variant for r in retired.itertuples() if (r.variant, r.retired_by, r.retired_why) in again
+    ]
+    return (
+        f"retirements confirmed on the full sweep's evidence (the same test, all "
+        f"{len(full.evidence.seeds)} seeds): {len(confirmed)} of {len(retired)}"
+        + (f"; not: {', '.join(sorted(set(retired['variant']) - set(confirmed)))}"
+           if len(confirmed) < len(retired) else "")
+    )  # fmt: skip
 
 
 if __name__ == "__main__":

@@ -6,7 +6,7 @@ from __future__ import annotations
 
 import pandas as pd
 
-from kablate.analysis.race import DOMINATED, FUTILE, put_retired
+from kablate.analysis.race import DOMINATED, FUTILE, INFERIOR, put_retired
 from kablate.analysis.summary import Analysis
 from kablate.report.race import race_section
 from kablate.results.columns import RETIRED_COLUMNS
@@ -77,9 +77,18 @@ def test_a_race_recorded_before_futility_reads_as_dominated():
 
 def test_the_futility_rule_is_stated_only_when_the_race_used_it():
     text = "\n".join(race_section(analysis("margin", True, ENTRIES)))
-    assert "Futility (the margin rule only)" in text and "Jennison & Turnbull 2000" in text
-    assert "Caution" not in text
-    assert "Futility" not in "\n".join(race_section(analysis("margin", False, {})))
+    assert "(futility)" in text and "Jennison & Turnbull 2000" in text
+    assert "(inferior)" in text and "Caution" not in text
+    plain = "\n".join(race_section(analysis("margin", False, {})))
+    assert "futility" not in plain and "inferior" not in plain
+    assert "Every variant was tested on whether it **loses > 1 pp**" in plain
+
+
+def test_a_variant_retired_as_inferior_names_the_baseline():
+    entry = {"why": INFERIOR, "by_name": "all-3", "diff": -0.03, "upper": -0.015, "p_holm": 0.02}
+    table = rows(race_section(analysis("margin", True, {"c": entry})))
+    assert table["blind"][4:6] == ["loses > 1 pp to the baseline", "all-3"]
+    assert table["blind"][6:] == ["-3.00 pp", "-1.50 pp", "0.020"]
 
 
 def test_a_one_se_report_on_a_race_that_retired_for_futility_is_cautioned():

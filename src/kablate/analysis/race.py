@@ -6,36 +6,48 @@ approximation"; Birattari, Stützle, Paquete & Varrentrapp 2002, "A racing algor
 configuring metaheuristics", the F-race). Here the candidates are the variants, the evidence
 is their per-image predictions, and a seed round is one step of the race.
 
-The rule, applied after every complete seed round to the variants still in the race:
+The rule, applied after every complete seed round to the variants still in the race, tests
+a family of one-sided hypotheses on the report's paired two-level bootstrap
+(`bootstrap.resample_accuracies`: seeds, then images, the same draw for every variant), with
+d = acc(v) − acc(w) in each resample:
 
-- For every ordered pair (v, w) with v not the baseline, w ≠ v and cost(w) ≤ cost(v) (the
-  sweep's ``[pick] cost``), d = acc(v) − acc(w) in each resample of the report's paired
-  two-level bootstrap (`bootstrap.resample_accuracies`: seeds, then images, the same draw for
-  every variant).
-- The one-sided bootstrap p-value of "v loses at most the margin to w" (H0: d ≥ −margin) is
-  the share of resamples with d ≥ −margin. Without adjustment, p < 0.05 is the same as "the
-  upper one-sided 95% percentile bound of d lies below −margin".
-- The p-values of every pair of the round are Holm-adjusted together (Holm 1979, through
+- **dominated**: v (not the baseline) against each w ≠ v that costs no more (the sweep's
+  ``[pick] cost``); H0 "v loses at most the margin to w" (d ≥ −margin), p = the share of
+  resamples with d ≥ −margin. Without adjustment, p < 0.05 is the same as "the upper
+  one-sided 95% percentile bound of d lies below −margin".
+- The p-values of the round's family are Holm-adjusted together (Holm 1979, through
   ``statsmodels.stats.multitest.multipletests``, as the report adjusts its comparisons).
-- v is **retired** when some pair's adjusted p-value is below 0.05: it is shown to lose more
-  than the margin to a variant that costs no more. Its dominator is the w with the smallest
-  adjusted p-value (ties: the cheaper, then the name). The baseline is never retired.
-- **Futility** (only under the margin rule, which never recommends a plan that costs more
-  than the baseline): a variant v that costs more than the baseline b is also tested on
-  d = acc(v) − acc(b) for H0: d ≥ +margin ("v gains at least the margin"), p = the share of
-  resamples with d ≥ margin, in the same Holm family. v is retired for futility when that
-  adjusted p lies below 0.05: it is shown to gain less than the margin, the difference the
-  user said matters, for a higher cost. This is stopping a comparison early for futility, as
-  group-sequential trials do (Jennison & Turnbull 2000, *Group Sequential Methods with
-  Applications to Clinical Trials*, ch. 10; cited from memory).
+- v is **retired** when one of its adjusted p-values is below 0.05. Its reason and reference
+  are those of its smallest adjusted p-value (ties: the cheaper reference, then the name). The
+  baseline is never retired.
+
+Under the margin rule (``futility``), the default, the family holds only the tests that can
+bear on that rule's pick, since every extra test in a Holm family costs the others power:
+
+- a variant v that costs **more** than the baseline b is never recommended by the margin rule,
+  so it is tested once, for **futility**: H0 "v gains at least the margin over b" (d ≥
+  +margin with w = b), p = the share of resamples with d ≥ margin. Retired, it is shown to gain
+  less than the margin, the difference the user said matters, for a higher cost. This is
+  stopping a comparison early for futility, as group-sequential trials do (Jennison &
+  Turnbull 2000, *Group Sequential Methods with Applications to Clinical Trials*, ch. 10;
+  cited from memory).
+- a variant v that costs **no more** than b keeps its domination tests against the variants
+  that cost no more than it, and is also tested against b itself (**inferior**): H0 "v loses
+  at most the margin to b", the non-inferiority question the margin rule asks, turned round.
+  Retired, it is shown to lose more than the margin to the baseline, so the final sweep's
+  lower bound would have to rise above the upper bound seen so far for it to qualify.
+
+Under the one-standard-error rule (no ``futility``) the family is every domination pair: that
+rule's reference is the best variant, and a costlier plan can be its pick.
 
 Why the final pick does not change: if w costs no more than v and is better by more than the
 margin, then w passes every test v passes (non-inferiority to the baseline, or being within a
 tolerance of the best) and costs no more, so neither the margin rule nor the one-standard-error
 rule (`decide`) would recommend v over w; a retired dominator is itself dominated by a cheaper,
 better one, so the chain ends at a variant still in the race. Futility retires only variants
-that cost more than the baseline, which the margin rule never recommends; the one-standard-
-error rule could (its reference is the best variant), so a race under it has no futility.
+that cost more than the baseline, which the margin rule never recommends; an inferior variant
+fails the very test the margin rule applies. These are statements about the truth behind the
+evidence: each retirement is a test at the family's 5% level, not a certainty.
 
 Known biases, stated on the card: a retired variant has fewer seeds, so its interval is wider;
 after one seed the bootstrap has no seed level to resample, so the bound counts the images'
@@ -59,15 +71,17 @@ from kablate.lifecycle import RETIRED, STOPPED
 from kablate.results.columns import RETIRED_COLUMNS
 from kablate.results.data_record import DataRecord
 
-# Why a variant was retired: it loses more than the margin to a variant that costs no more, or
-# (futility) it costs more than the baseline and gains less than the margin over it.
-DOMINATED, FUTILE = "dominated", "futile"
+# Why a variant was retired: it loses more than the margin to a variant that costs no more;
+# (futility) it costs more than the baseline and gains less than the margin over it; or
+# (inferior) it costs no more than the baseline and loses more than the margin to it.
+DOMINATED, FUTILE, INFERIOR = "dominated", "futile", "inferior"
 
 
 @dataclass(frozen=True)
 class Domination:
-    """One tested pair: is ``name`` worse than ``by`` (which costs no more) by the margin, or
-    (``why`` = FUTILE, ``by`` the cheaper baseline) better than it by less than the margin?"""
+    """One tested pair: is ``name`` worse than ``by`` (which costs no more) by the margin;
+    (``why`` = FUTILE, ``by`` the cheaper baseline) better than it by less than the margin; or
+    (``why`` = INFERIOR, ``by`` the baseline, which costs more) worse than it by the margin?"""
 
     name: str
     by: str
@@ -96,8 +110,9 @@ def compare_pairs(
         evidence: the variants still in the race, on the seeds of the rounds so far.
         costs: each variant's cost; a variant whose cost is not finite is left out.
         margin: as a fraction (0.01 = 1 pp).
-        futility: also test each variant costlier than the baseline for a gain under the
-            margin (the margin rule's race; never under the one-standard-error rule).
+        futility: the margin rule's race: test each variant costlier than the baseline for
+            futility only, and each other variant for inferiority to the baseline besides its
+            domination tests (never under the one-standard-error rule; module docstring).
     """
     names = [n for n in evidence.names if math.isfinite(costs.get(n, math.nan))]
     if len(names) < 2:
@@ -105,24 +120,28 @@ def compare_pairs(
     boot = resample_accuracies(evidence.correct, n_resamples)
     accuracy = evidence.accuracy
     pairs = []
+
+    def test(v: str, w: str, bound: float, why: str) -> None:
+        """H0: acc(v) − acc(w) ≥ bound; p = the share of resamples on H0's side."""
+        i, j = evidence.index(v), evidence.index(w)
+        d = boot[:, i] - boot[:, j]
+        # The slack keeps a resample exactly at the bound (up to rounding) on H0's side.
+        p = float(np.mean(d >= bound - 1e-12))
+        upper = float(np.quantile(d, 1 - ALPHA))
+        pairs.append((v, w, float(accuracy[i] - accuracy[j]), upper, p, why))
+
+    decision = futility and baseline in names  # the margin rule's family (module docstring)
     for v in names:
         if v == baseline:
             continue
+        if decision and costs[v] > costs[baseline]:
+            test(v, baseline, margin, FUTILE)
+            continue
         for w in names:
-            if w == v or costs[w] > costs[v]:
-                continue
-            i, j = evidence.index(v), evidence.index(w)
-            d = boot[:, i] - boot[:, j]
-            # The slack keeps a resample exactly at −margin (up to rounding) in H0's side.
-            p = float(np.mean(d >= -margin - 1e-12))
-            upper = float(np.quantile(d, 1 - ALPHA))
-            pairs.append((v, w, float(accuracy[i] - accuracy[j]), upper, p, DOMINATED))
-        if futility and baseline in names and costs[v] > costs[baseline]:
-            i, j = evidence.index(v), evidence.index(baseline)
-            d = boot[:, i] - boot[:, j]
-            p = float(np.mean(d >= margin - 1e-12))
-            upper = float(np.quantile(d, 1 - ALPHA))
-            pairs.append((v, baseline, float(accuracy[i] - accuracy[j]), upper, p, FUTILE))
+            if w != v and costs[w] <= costs[v]:
+                test(v, w, -margin, DOMINATED)
+        if decision and costs[baseline] > costs[v]:
+            test(v, baseline, -margin, INFERIOR)
     if not pairs:
         return []
     adjusted = multipletests([pair[4] for pair in pairs], method="holm")[1]

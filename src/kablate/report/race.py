@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import math
 
-from kablate.analysis.race import FUTILE
+from kablate.analysis.race import FUTILE, INFERIOR
 from kablate.analysis.summary import Analysis
 from kablate.report.tables import ci
 from kablate.report.verdict import pp
@@ -26,16 +26,12 @@ def race_section(a: Analysis) -> list[str]:
         "",
         "This sweep raced its variants over seeds (sequential elimination: Maron & Moore 1994, "
         '"Hoeffding races"; Birattari et al. 2002, the F-race). After each complete seed '
-        "round, a variant was retired, and got no more seeds, when the paired two-level "
-        f"bootstrap showed it to lose more than the margin of {margin:g} pp against a variant "
-        f'that costs no more {cost}: the one-sided p-value of "it loses at most {margin:g} pp", '
-        "Holm-adjusted over every pair compared in the round, lay below 0.05 (without the "
-        f"adjustment: the upper one-sided 95% bound of the difference below −{margin:g} pp). "
-        "The baseline is never retired. Retired variants are left out of the recommendation "
-        "above: a variant that costs no more and is better by more than the margin would be "
-        "picked before them by the rule.",
+        "round, the paired two-level bootstrap of the seeds and images so far tested the "
+        "variants still in the race; the round's one-sided p-values were Holm-adjusted "
+        "together, and a variant was retired, and got no more seeds, when one of its adjusted "
+        "p-values lay below 0.05. The baseline is never retired.",
         "",
-        *futility_words(a, margin),
+        *rule_words(a, margin, cost),
         "Rounds decided: "
         + "; ".join(
             f"after seed {seed}, {len(r['compared'])} variants compared, "
@@ -56,11 +52,10 @@ def race_section(a: Analysis) -> list[str]:
             "|---|---:|---:|---|---|---|---:|---:|---:|",
         ]
         for r in retired.itertuples():
-            why = (
-                f"gains < {margin:g} pp, costs more"
-                if r.retired_why == FUTILE
-                else f"loses > {margin:g} pp"
-            )
+            why = {
+                FUTILE: f"gains < {margin:g} pp, costs more",
+                INFERIOR: f"loses > {margin:g} pp to the baseline",
+            }.get(r.retired_why, f"loses > {margin:g} pp")
             out.append(
                 f"| {r.variant} | {int(r.retired_after)} | {int(r.n_seeds)} | "
                 f"{ci(r.val_acc_ci_low, r.val_acc_ci_high)} | {why} | {r.retired_by} | "
@@ -77,19 +72,34 @@ def race_section(a: Analysis) -> list[str]:
     return out
 
 
-def futility_words(a: Analysis, margin: float) -> list[str]:
-    """The futility part of the rule, when the race used it, and what it means for a report
-    that picks by the one-standard-error rule instead."""
+def rule_words(a: Analysis, margin: float, cost: str) -> list[str]:
+    """What the race tested, by the rule it ran under, and the caution for a report that picks
+    by the one-standard-error rule after a race under the margin rule."""
+    loses = (
+        f"**loses > {margin:g} pp** to a variant that costs no more {cost}: the one-sided "
+        f'p-value of "it loses at most {margin:g} pp" (without the adjustment: the upper '
+        f"one-sided 95% bound of the difference below −{margin:g} pp)"
+    )
     if not a.race["rule"].get("futility"):
-        return []
+        return [
+            f"Every variant was tested on whether it {loses}. "
+            "No rule recommends a variant over one that costs no more and is better by more "
+            "than the margin, so retired variants are left out of the recommendation above.",
+            "",
+        ]
     out = [
-        "Futility (the margin rule only): a variant that costs more than the baseline was "
-        "also retired when the same bootstrap showed it to gain less than the margin over "
-        f'the baseline: the one-sided p-value of "it gains at least {margin:g} pp", in the '
-        "same Holm family, lay below 0.05. The margin rule never recommends a plan that costs "
-        "more than the baseline, so this cannot change its pick; it stops spending seeds on a "
-        "gain smaller than the one you said matters (stopping for futility, as group-"
-        "sequential trials do: Jennison & Turnbull 2000).",
+        "Under the margin rule the round tested only what can bear on that rule's pick (each "
+        "extra test in a Holm family costs the others power):",
+        "",
+        f"- a variant that costs more than the baseline: whether it **gains < {margin:g} pp** "
+        f'over the baseline (futility): the one-sided p-value of "it gains at least '
+        f'{margin:g} pp". The margin rule never recommends a plan that costs more than the '
+        "baseline, so this cannot change its pick; it stops spending seeds on a gain smaller "
+        "than the one you said matters (stopping for futility, as group-sequential trials do: "
+        "Jennison & Turnbull 2000).",
+        f"- a variant that costs no more than the baseline: whether it {loses}, or loses more "
+        f"than {margin:g} pp to the baseline itself (inferior): it would then fail the "
+        "non-inferiority test the margin rule applies.",
         "",
     ]
     v = a.variants

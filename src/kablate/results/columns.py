@@ -25,8 +25,8 @@ TRIAL_COLUMNS = (
     "trial",
     "n_attempts",
     "retired_after",  # racing: the seed after which the variant was retired (trials/race.py)
-    # why a retired trial was not run: racing's (dominated, futile), or stopped (successive
-    # halving stopped its variant on the seed ``retired_after``: trials/halving.py)
+    # why a retired trial was not run: racing's (dominated, futile, inferior), or stopped
+    # (successive halving stopped its variant on the seed ``retired_after``: trials/halving.py)
     "retired_why",
 )
 # curves.csv: one row per (variant, seed, epoch)
@@ -35,9 +35,9 @@ CURVE_COLUMNS = ("variant", "seed", "epoch", "train_loss", "val_loss", "val_acc"
 # ``index`` is the image's index in its source, as listed under ``indices`` in data.json
 PREDICTION_COLUMNS = ("variant", "seed", "split", "index", "label", "predicted")
 # variants.csv after racing (analysis/race.py fills them from each variant's race entry, whose
-# key is the value): the seed after which racing retired a variant, why (dominated or futile),
-# the variant it was compared with, their difference and its one-sided 95% upper bound
-# (fractions), the Holm-adjusted p-value
+# key is the value): the seed after which racing retired a variant, why (dominated, futile or
+# inferior), the variant it was compared with, their difference and its one-sided 95% upper
+# bound (fractions), the Holm-adjusted p-value
 RETIRED_COLUMNS = {
     "retired_after": "seed",
     "retired_why": "why",

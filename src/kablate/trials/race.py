@@ -4,7 +4,8 @@ The rule itself is `kablate.analysis.race` (Maron & Moore 1994; Birattari et al.
 module runs it on the study, so that every worker and every machine sharing the study agrees:
 
 - ``race`` (`RULE_ATTR`), a study user attribute, holds the race's settings (margin in pp,
-  cost, baseline variant id, and whether it retires for futility: under the margin rule).
+  cost, baseline variant id, and ``futility``: whether it tests the margin rule's family,
+  futility and inferiority, `kablate.analysis.race`).
   The first runner that races writes it; a started race keeps it.
   Without it (or with it set to None by a run with ``racing = "off"``) nothing is raced.
 - Round r is the r-th seed of the sweep. It can be decided once every variant still in the
@@ -60,7 +61,8 @@ def racing_wanted(setting: str, budget_seconds: float, study: optuna.Study) -> b
 
 def race_rule(sweep, baseline_id: str) -> dict:
     """The race's settings from the sweep's ``[pick]``: margin (pp), cost, baseline id, and
-    futility (only the margin rule never recommends a plan costlier than the baseline)."""
+    futility (the margin rule's family of tests: that rule never recommends a plan costlier than
+    the baseline, and never one that loses more than the margin to it)."""
     cost = RACE_FALLBACK_COST if COSTS[sweep.pick.cost].timed else sweep.pick.cost
     return {
         "margin_pp": float(sweep.pick.margin),
