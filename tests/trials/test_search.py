@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import itertools
 
+import optuna
 import pytest
 from optuna.trial import TrialState
 
@@ -17,9 +18,11 @@ from kablate.trials.search import (
     INTERRUPTED,
     REPEAT,
     plan_key,
+    read_candidate,
     search_front,
     search_study,
 )
+from kablate.trials.search_claim import CLAIMED
 
 GROUPS = ("stem", "stage1.0", "stage2.0", "stage3.0")
 CHOICES = {group: ("3", "5", "7") for group in GROUPS}
@@ -179,3 +182,27 @@ def test_a_search_killed_mid_training_resumes_to_its_budget(tmp_path):
     assert not set(trained) & set(again.keys)  # the 5 finished plans never train again
     assert study.get_trials(states=(TrialState.RUNNING,)) == []
     assert study.trials[stale[0].number].user_attrs["outcome"] == INTERRUPTED
+
+
+@pytest.mark.parametrize(
+    "written, expected",
+    [
+        ({"cost": 7.0, "key": "k"}, INTERRUPTED),  # cut between its key and its outcome
+        ({"cost": 7.0, "key": "k", "outcome": CLAIMED}, INTERRUPTED),  # cut in training
+        ({"cost": 7.0, "key": "k", "outcome": REPEAT}, REPEAT),
+        ({"key": "k"}, None),  # cut before its cost, in a study written before it came first
+        ({"cost": 7.0}, None),  # cut before its key: never proposed
+    ],
+)
+def test_a_claim_cut_between_two_writes_reads_as_interrupted_or_not_at_all(written, expected):
+    # A kill can fall between any two user-attribute writes (each is one write to the storage);
+    # the recovery then tells the trial FAIL. Whatever was written, reading it never fails.
+    study = optuna.create_study(directions=["maximize", "minimize"])
+    trial = study.ask({"stem": optuna.distributions.CategoricalDistribution(["3", "5"])})
+    for name, value in written.items():
+        trial.set_user_attr(name, value)
+    study.tell(trial, state=TrialState.FAIL)
+    found = read_candidate(study.trials[0])
+    assert (found.outcome if found else None) == expected
+    if found:
+        assert (found.key, found.cost, found.accuracy) == ("k", 7.0, None)

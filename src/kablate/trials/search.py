@@ -188,8 +188,10 @@ def propose(study: optuna.Study, trial: optuna.Trial, choices: Choices, screen, 
         filtered = Candidate(number, plan, key, cost, None, FILTERED, found.reason)
         record_candidate(study, trial, filtered)
         return
-    trial.set_user_attr("key", key)
+    # One attribute per write, and a kill may fall between two: the cost goes first, so that a
+    # trial with a key always has its cost, and a key without an outcome reads as interrupted.
     trial.set_user_attr("cost", cost)
+    trial.set_user_attr("key", key)
     trial.set_user_attr("outcome", CLAIMED)  # written before the others' claims are read
     outcome = REPEAT if repeats(study.get_trials(deepcopy=False), number, key) else EVALUATED
     accuracy = score(plan) if outcome == EVALUATED else None
@@ -209,8 +211,8 @@ def read_result(study: optuna.Study, choices: Choices, budget: int) -> SearchRes
 
 def record_candidate(study: optuna.Study, trial: optuna.Trial, candidate: Candidate) -> None:
     """Store what the candidate was (user attributes) and tell the sampler its values."""
+    trial.set_user_attr("cost", candidate.cost)  # before the key: see `propose`
     trial.set_user_attr("key", candidate.key)
-    trial.set_user_attr("cost", candidate.cost)
     trial.set_user_attr("outcome", candidate.outcome)
     if candidate.reason:
         trial.set_user_attr("reason", candidate.reason)
@@ -221,10 +223,14 @@ def record_candidate(study: optuna.Study, trial: optuna.Trial, candidate: Candid
 
 
 def read_candidate(trial: FrozenTrial) -> Candidate | None:
-    """A finished trial of a search study as a `Candidate`; None for one still open."""
-    if trial.state not in (TrialState.COMPLETE, TrialState.FAIL) or "key" not in trial.user_attrs:
-        return None
+    """A finished trial of a search study as a `Candidate`; None for one still open, or for a
+    claim cut by a kill before its cost was written (possible in studies written before the
+    cost came first, `propose`): it had not started training."""
     attrs = trial.user_attrs
+    if trial.state not in (TrialState.COMPLETE, TrialState.FAIL) or "key" not in attrs:
+        return None
+    if "cost" not in attrs:
+        return None
     accuracy = trial.values[0] if trial.state == TrialState.COMPLETE else None
     return Candidate(
         trial.number,
@@ -232,7 +238,8 @@ def read_candidate(trial: FrozenTrial) -> Candidate | None:
         attrs["key"],
         float(attrs["cost"]),
         accuracy,
-        attrs["outcome"] if attrs["outcome"] != CLAIMED else INTERRUPTED,
+        # a claim cut between its key and its outcome, or during its training: interrupted
+        attrs["outcome"] if attrs.get("outcome", CLAIMED) != CLAIMED else INTERRUPTED,
         attrs.get("reason", ""),
     )
 
