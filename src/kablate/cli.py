@@ -438,11 +438,10 @@ def run(
 )
 def status(results: Path, fmt: str, storage: str | None) -> None:
     """Show progress and how the variants stand so far (safe while a run is going)."""
-    from kablate.trials.results import open_results
-    from kablate.trials.status import format_status, read_status
+    from kablate.trials.status import folder_status, format_status
 
     started()
-    summary = read_status(open_results(results, storage))
+    summary = folder_status(results, storage)
     if fmt == "json":
         click.echo(json.dumps(summary.to_dict(), indent=2))
     else:
