@@ -43,6 +43,8 @@ Example:
   kablate status results/quickstart --format json
 Accuracy so far and the leader under the sweep's [pick] rule come from the same analysis as
 the report; the leader is provisional until every planned trial has a result.
+A [search] sweep shows its search; until it has chosen its finalists, that is all there is
+(json "phase": "search", the trials' figures null).
 """
 EPILOG_EXPORT = """\b
 Example:

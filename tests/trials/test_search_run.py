@@ -10,6 +10,7 @@ import json
 import os
 import re
 import signal
+import socket
 import time
 from pathlib import Path
 
@@ -20,6 +21,7 @@ from kablate.analysis.hypervolume import hypervolume, reference_point
 from kablate.results.paths import CARD_FILE, JOURNAL, REPORT_DIR, SEARCH_FILE, TRIALS_FILE
 from kablate.trials.results import open_results
 from kablate.trials.search import INTERRUPTED
+from kablate.trials.search_claim import CLAIMED
 from kablate.trials.search_run import search_study_name
 from kablate.trials.store import open_storage
 from tests.conftest import kablate, search_sweep
@@ -122,8 +124,9 @@ def test_a_search_killed_mid_training_resumes_with_the_same_command(tmp_path):
                     study_name=search_study_name("tiny"),
                     storage=open_storage(results / "tiny", None, read_only=True),
                 )
-        states = [t.state for t in study.get_trials(deepcopy=False)] if study else []
-        if TrialState.COMPLETE in states and TrialState.RUNNING in states:
+        trials = study.get_trials(deepcopy=False) if study else []
+        training = [t.state == TrialState.RUNNING and t.user_attrs.get("outcome") for t in trials]
+        if any(t.state == TrialState.COMPLETE for t in trials) and CLAIMED in training:
             break
         time.sleep(0.02)
     else:
@@ -131,6 +134,14 @@ def test_a_search_killed_mid_training_resumes_with_the_same_command(tmp_path):
     os.killpg(proc.pid, signal.SIGKILL)
     proc.wait()
     before = {t.number: t.values for t in searched_trials(results) if t.values}
+    # Killed in its search phase: no sweep.json yet, and status shows the search as it stopped.
+    status = kablate("status", str(results / "tiny"), "--format", "json", cwd=tmp_path)
+    assert status.returncode == 0, status.stderr[-3000:]
+    shown = json.loads(status.stdout)
+    assert (shown["phase"], shown["finalists"], shown["n_trials"]) == ("search", None, None)
+    assert shown["search"]["n_trained"] == len(before) == 1
+    killed = f"{socket.gethostname()}:{proc.pid}"  # the run's own process trained it
+    assert [(e["worker"], e["alive"]) for e in shown["search"]["training"]] == [(killed, False)]
 
     again = runs.kablate(*args, storage=None, cwd=tmp_path)
     assert again.returncode == 0, again.stderr[-3000:]
@@ -143,3 +154,6 @@ def test_a_search_killed_mid_training_resumes_with_the_same_command(tmp_path):
     with (results / "tiny" / TRIALS_FILE).open() as f:
         done = {(r["variant"], r["seed"]) for r in csv.DictReader(f) if r["status"] == "done"}
     assert done == {(f["name"], s) for f in record["finalists"] for s in ("0", "1")}
+    shown = json.loads(kablate("status", str(results / "tiny"), "--format", "json").stdout)
+    assert shown["phase"] == "trials" and shown["n_trials"] == len(done)
+    assert shown["finalists"] == [f["name"] for f in record["finalists"]]
