@@ -299,6 +299,7 @@ def test_a_search_sweep_in_its_search_phase_shows_the_search_and_no_trials(tmp_p
     storage.set_trial_user_attr(running._trial_id, "worker", gone)  # noqa: SLF001
     text = format_status(folder_status(folder))
     assert f"on {gone} for " in text and "(its process has ended" in text
+    assert "3/8 plans trained, 1 training (1 of them by a process that has ended), " in text
     assert "no plan is training: rerun the sweep's `kablate run` command to continue" in text
 
     # The search has ended (search.json) but the finalists are not recorded yet.

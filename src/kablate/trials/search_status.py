@@ -80,9 +80,11 @@ def search_line(status: SearchStatus | None) -> list[str]:
     if status is None:
         return []
     ref = status.reference
+    n_ended = sum(entry["alive"] is False for entry in status.training)
+    ended = f" ({n_ended} of them by a process that has ended)" if n_ended else ""
     return [
         f"search (NSGA-II): {status.n_trained}/{status.budget} plans trained, "
-        f"{status.n_training} training, {status.n_proposed} proposed (filtered and repeated "
+        f"{status.n_training} training{ended}, {status.n_proposed} proposed (filtered and repeated "
         f"ones cost no budget); {status.n_front} on the front so far, hypervolume "
         f"{status.hypervolume:.6g} (reference: accuracy {ref['accuracy']:g}, cost "
         f"{ref['cost']:,.0f}, the largest trained)"
