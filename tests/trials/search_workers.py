@@ -68,12 +68,13 @@ class Stopped(Exception):
     """Raised by `stopped_search`'s objective: the run stops here, its trial left RUNNING."""
 
 
-def stopped_search(folder: Path, name: str, budget: int, n_trained: int):
-    """The search study ``<name>.search`` in ``folder``'s journal, stopped in its search phase:
+def stopped_search(folder: Path, name: str, budget: int, n_trained: int, url: str | None = None):
+    """The search study ``<name>.search`` in ``url`` (None: ``folder``'s journal), stopped in its
+    search phase:
     ``n_trained`` of ``budget`` plans trained and one more in training, as a kill leaves it
     (its trial RUNNING and claimed, the other slots' tickets WAITING). Returns the study."""
     study = search_study(
-        0, 4, storage=open_storage(folder, None), study_name=search_study_name(name)
+        0, 4, storage=open_storage(folder, url), study_name=search_study_name(name)
     )
 
     def score(plan: dict[str, str]) -> float:

@@ -180,10 +180,11 @@ def reference(folder: Path, rows: list[dict] | None = None):
     return analyze(rows or found, curves, results.plan, [], data, pick)
 
 
-def status_json(folder: Path) -> dict:
-    """`kablate status FOLDER --format json`, run as a user runs it, parsed."""
+def status_json(folder: Path, storage: str | None = None) -> dict:
+    """`kablate status FOLDER --format json [--storage URL]`, run as a user runs it, parsed."""
+    extra = ["--storage", storage] if storage else []
     out = subprocess.run(
-        [sys.executable, "-m", "kablate", "status", str(folder), "--format", "json"],
+        [sys.executable, "-m", "kablate", "status", str(folder), "--format", "json", *extra],
         capture_output=True,
         text=True,
         timeout=300,
@@ -259,13 +260,14 @@ def test_without_a_finished_baseline_there_is_no_leader_and_status_says_why(part
     assert text.endswith(standing.note) and "leader:" not in text
 
 
-def test_a_search_sweep_in_its_search_phase_shows_the_search_and_no_trials(tmp_path):
+def test_a_search_sweep_in_its_search_phase_shows_the_search_and_no_trials(tmp_path, storage):
     """Before a [search] sweep's finalists are chosen there is no sweep.json: status reads the
     search study; its figures are checked against Optuna's view of the same study."""
     folder = tmp_path / "tiny"
-    study = stopped_search(folder, "tiny", budget=8, n_trained=3)
+    folder.mkdir()
+    study = stopped_search(folder, "tiny", budget=8, n_trained=3, url=storage)
     assert not (folder / SWEEP_FILE).exists()
-    shown = status_json(folder)
+    shown = status_json(folder, storage)
     assert set(shown) == {f.name for f in fields(SweepStatus)}  # the keys of any status
     assert (shown["phase"], shown["sweep"], shown["finalists"]) == ("search", "tiny", None)
     for key in ("n_trials", "counts", "throughput_per_hour", "eta_seconds", "standing"):
@@ -285,7 +287,7 @@ def test_a_search_sweep_in_its_search_phase_shows_the_search_and_no_trials(tmp_p
         (plan, worker, True)
     ]
 
-    text = format_status(folder_status(folder))
+    text = format_status(folder_status(folder, storage))
     assert "sweep tiny: searching; the finalists" in text and "are not chosen yet" in text
     assert f"3/8 plans trained, 1 training, {search['n_proposed']} proposed" in text
     assert f"  training {plan} on {worker} for " in text
@@ -294,17 +296,17 @@ def test_a_search_sweep_in_its_search_phase_shows_the_search_and_no_trials(tmp_p
     # Killed: the plan's process is gone, so nothing trains until the run is rerun.
     dead = subprocess.Popen([sys.executable, "-c", "pass"])
     dead.wait()
-    storage = study._storage  # noqa: SLF001
+    backend = study._storage  # noqa: SLF001
     gone = f"{socket.gethostname()}:{dead.pid}"
-    storage.set_trial_user_attr(running._trial_id, "worker", gone)  # noqa: SLF001
-    text = format_status(folder_status(folder))
+    backend.set_trial_user_attr(running._trial_id, "worker", gone)  # noqa: SLF001
+    text = format_status(folder_status(folder, storage))
     assert f"on {gone} for " in text and "(its process has ended" in text
     assert "3/8 plans trained, 1 training (1 of them by a process that has ended), " in text
     assert "no plan is training: rerun the sweep's `kablate run` command to continue" in text
 
     # The search has ended (search.json) but the finalists are not recorded yet.
     (folder / SEARCH_FILE).write_text(json.dumps({"finalists": [{"name": "a"}, {"name": "b"}]}))
-    status = folder_status(folder)
+    status = folder_status(folder, storage)
     assert (status.phase, status.finalists) == ("search", ["a", "b"])
     assert "the search has ended with 2 finalist(s)" in format_status(status)
 
