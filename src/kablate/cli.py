@@ -43,6 +43,8 @@ Example:
   kablate status results/quickstart --format json
 Accuracy so far and the leader under the sweep's [pick] rule come from the same analysis as
 the report; the leader is provisional until every planned trial has a result.
+A [search] sweep shows its search; until it has chosen its finalists, that is all there is
+(json "phase": "search", the trials' figures null).
 """
 EPILOG_EXPORT = """\b
 Example:
@@ -438,11 +440,10 @@ def run(
 )
 def status(results: Path, fmt: str, storage: str | None) -> None:
     """Show progress and how the variants stand so far (safe while a run is going)."""
-    from kablate.trials.results import open_results
-    from kablate.trials.status import format_status, read_status
+    from kablate.trials.status import folder_status, format_status
 
     started()
-    summary = read_status(open_results(results, storage))
+    summary = folder_status(results, storage)
     if fmt == "json":
         click.echo(json.dumps(summary.to_dict(), indent=2))
     else:

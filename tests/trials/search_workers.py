@@ -1,6 +1,7 @@
 """Processes that share one search study, for tests: a synthetic objective (no training) over
 27 plans, written down as it is trained, so that a test can tell what trained to the end and
-how often. A plain helper module, started by `multiprocessing` in a fresh interpreter."""
+how often. A plain helper module, started by `multiprocessing` in a fresh interpreter; it also
+builds a search stopped in its search phase (`stopped_search`)."""
 
 from __future__ import annotations
 
@@ -9,9 +10,12 @@ import signal
 import time
 from pathlib import Path
 
+from optuna.trial import TrialState
+
 from kablate.costs.screen import Screen
 from kablate.trials.liveness import liveness_for
 from kablate.trials.search import plan_key, search_front, search_study
+from kablate.trials.search_run import search_study_name
 from kablate.trials.store import lock_dir, open_storage
 
 CHOICES = {group: ("3", "5", "7") for group in ("stem", "stage1", "stage2")}
@@ -58,3 +62,28 @@ def search_worker(
 def trained_keys(folder: Path) -> list[str]:
     """Every plan trained to the end, by any process, as many times as it was."""
     return [line for f in sorted(folder.glob("trained-*")) for line in f.read_text().splitlines()]
+
+
+class Stopped(Exception):
+    """Raised by `stopped_search`'s objective: the run stops here, its trial left RUNNING."""
+
+
+def stopped_search(folder: Path, name: str, budget: int, n_trained: int, url: str | None = None):
+    """The search study ``<name>.search`` in ``url`` (None: ``folder``'s journal), stopped in its
+    search phase:
+    ``n_trained`` of ``budget`` plans trained and one more in training, as a kill leaves it
+    (its trial RUNNING and claimed, the other slots' tickets WAITING). Returns the study."""
+    study = search_study(
+        0, 4, storage=open_storage(folder, url), study_name=search_study_name(name)
+    )
+
+    def score(plan: dict[str, str]) -> float:
+        if len(study.get_trials(deepcopy=False, states=(TrialState.COMPLETE,))) == n_trained:
+            raise Stopped
+        return accuracy_of(plan)
+
+    try:
+        search_front(CHOICES, screen, score, budget, study=study)
+    except Stopped:
+        return study
+    raise AssertionError(f"the search trained all {budget} plans")

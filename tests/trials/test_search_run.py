@@ -10,6 +10,7 @@ import json
 import os
 import re
 import signal
+import socket
 import time
 from pathlib import Path
 
@@ -21,6 +22,7 @@ from kablate.analysis.hypervolume import hypervolume, reference_point
 from kablate.results.paths import CARD_FILE, JOURNAL, REPORT_DIR, SEARCH_FILE, TRIALS_FILE
 from kablate.trials.results import open_results
 from kablate.trials.search import FILTERED, INTERRUPTED, REPEAT
+from kablate.trials.search_claim import CLAIMED
 from kablate.trials.search_run import search_study_name
 from kablate.trials.store import open_storage
 from tests.conftest import kablate, search_sweep
@@ -126,8 +128,9 @@ def test_a_search_killed_mid_training_resumes_with_the_same_command(tmp_path, wo
                     study_name=search_study_name("tiny"),
                     storage=open_storage(results / "tiny", None, read_only=True),
                 )
-        states = [t.state for t in study.get_trials(deepcopy=False)] if study else []
-        if TrialState.COMPLETE in states and TrialState.RUNNING in states:
+        trials = study.get_trials(deepcopy=False) if study else []
+        training = [t.state == TrialState.RUNNING and t.user_attrs.get("outcome") for t in trials]
+        if any(t.state == TrialState.COMPLETE for t in trials) and CLAIMED in training:
             break
         time.sleep(0.02)
     else:
@@ -135,6 +138,16 @@ def test_a_search_killed_mid_training_resumes_with_the_same_command(tmp_path, wo
     os.killpg(proc.pid, signal.SIGKILL)
     proc.wait()
     before = {t.number: t.values for t in searched_trials(results) if t.values}
+    # Killed in its search phase: no sweep.json yet, and status shows the search as it stopped.
+    status = kablate("status", str(results / "tiny"), "--format", "json", cwd=tmp_path)
+    assert status.returncode == 0, status.stderr[-3000:]
+    shown = json.loads(status.stdout)
+    assert (shown["phase"], shown["finalists"], shown["n_trials"]) == ("search", None, None)
+    assert shown["search"]["n_trained"] == len(before) >= 1
+    training = shown["search"]["training"]  # one plan at most per killed process, none alive
+    assert 1 <= len(training) <= workers and not any(e["alive"] for e in training)
+    if workers == 1:  # the run's own process trained it
+        assert training[0]["worker"] == f"{socket.gethostname()}:{proc.pid}"
 
     again = runs.kablate(*args, storage=None, cwd=tmp_path)
     assert again.returncode == 0, again.stderr[-3000:]
@@ -150,3 +163,6 @@ def test_a_search_killed_mid_training_resumes_with_the_same_command(tmp_path, wo
     with (results / "tiny" / TRIALS_FILE).open() as f:
         done = {(r["variant"], r["seed"]) for r in csv.DictReader(f) if r["status"] == "done"}
     assert done == {(f["name"], s) for f in record["finalists"] for s in ("0", "1")}
+    shown = json.loads(kablate("status", str(results / "tiny"), "--format", "json").stdout)
+    assert shown["phase"] == "trials" and shown["n_trials"] == len(done)
+    assert shown["finalists"] == [f["name"] for f in record["finalists"]]

@@ -1,23 +1,31 @@
-"""`kablate status`: counts, per-variant progress, throughput and ETA from the study."""
+"""`kablate status`: counts, per-variant progress, throughput and ETA from the study; a
+[search] sweep's search while it has no trials yet."""
 
 from __future__ import annotations
 
 import json
+import os
+import socket
 import subprocess
 import sys
-from dataclasses import asdict
+from dataclasses import asdict, fields
 from datetime import datetime, timedelta
 from pathlib import Path
 
+import numpy as np
 import pytest
+from optuna._hypervolume import compute_hypervolume
 from optuna.trial import TrialState, create_trial
 
 from kablate.analysis.standing import stand
 from kablate.analysis.summary import analyze
+from kablate.errors import UsageError
+from kablate.results.paths import SEARCH_FILE, SWEEP_FILE
 from kablate.spec.schema import PickSpec
 from kablate.trials import RunOptions, open_results, run_sweep
-from kablate.trials.status import format_status, summarize
+from kablate.trials.status import SweepStatus, folder_status, format_status, summarize
 from tests.conftest import TINY_SWEEP, write_sweep
+from tests.trials.search_workers import CHOICES, stopped_search
 
 NOW = datetime(2026, 1, 1, 12, 0, 0)
 
@@ -172,16 +180,22 @@ def reference(folder: Path, rows: list[dict] | None = None):
     return analyze(rows or found, curves, results.plan, [], data, pick)
 
 
-@pytest.mark.slow
-def test_status_of_a_partial_sweep_gives_the_analysis_leader_and_accuracies(partial_sweep):
+def status_json(folder: Path, storage: str | None = None) -> dict:
+    """`kablate status FOLDER --format json [--storage URL]`, run as a user runs it, parsed."""
+    extra = ["--storage", storage] if storage else []
     out = subprocess.run(
-        [sys.executable, "-m", "kablate", "status", str(partial_sweep), "--format", "json"],
+        [sys.executable, "-m", "kablate", "status", str(folder), "--format", "json", *extra],
         capture_output=True,
         text=True,
         timeout=300,
     )
     assert out.returncode == 0, out.stderr
-    standing = json.loads(out.stdout)["standing"]
+    return json.loads(out.stdout)
+
+
+@pytest.mark.slow
+def test_status_of_a_partial_sweep_gives_the_analysis_leader_and_accuracies(partial_sweep):
+    standing = status_json(partial_sweep)["standing"]
     # The reference is the analysis the report runs (kablate.analysis.summary.analyze: per-image
     # evidence, two-level bootstrap, non-inferiority pick), on the same rows.
     analysis = reference(partial_sweep)
@@ -244,3 +258,62 @@ def test_without_a_finished_baseline_there_is_no_leader_and_status_says_why(part
     status.standing = asdict(standing)
     text = format_status(status)
     assert text.endswith(standing.note) and "leader:" not in text
+
+
+def test_a_search_sweep_in_its_search_phase_shows_the_search_and_no_trials(tmp_path, storage):
+    """Before a [search] sweep's finalists are chosen there is no sweep.json: status reads the
+    search study; its figures are checked against Optuna's view of the same study."""
+    folder = tmp_path / "tiny"
+    folder.mkdir()
+    study = stopped_search(folder, "tiny", budget=8, n_trained=3, url=storage)
+    assert not (folder / SWEEP_FILE).exists()
+    shown = status_json(folder, storage)
+    assert set(shown) == {f.name for f in fields(SweepStatus)}  # the keys of any status
+    assert (shown["phase"], shown["sweep"], shown["finalists"]) == ("search", "tiny", None)
+    for key in ("n_trials", "counts", "throughput_per_hour", "eta_seconds", "standing"):
+        assert shown[key] is None, key
+    assert shown["variants"] == shown["running"] == [] and shown["finished"] is False
+    search = shown["search"]
+    complete = study.get_trials(states=(TrialState.COMPLETE,))
+    (running,) = study.get_trials(states=(TrialState.RUNNING,))
+    assert (search["budget"], search["n_trained"], search["n_training"]) == (8, len(complete), 1)
+    assert search["n_front"] == len({tuple(t.values) for t in study.best_trials})
+    losses = np.array([[-t.values[0], t.values[1]] for t in complete])
+    reference = np.array([0.0, max(t.values[1] for t in complete)])
+    assert search["hypervolume"] == pytest.approx(compute_hypervolume(losses, reference))
+    plan = "+".join(f"{g}={running.params[g]}" for g in CHOICES)
+    worker = f"{socket.gethostname()}:{os.getpid()}"
+    assert [(e["plan"], e["worker"], e["alive"]) for e in search["training"]] == [
+        (plan, worker, True)
+    ]
+
+    text = format_status(folder_status(folder, storage))
+    assert "sweep tiny: searching; the finalists" in text and "are not chosen yet" in text
+    assert f"3/8 plans trained, 1 training, {search['n_proposed']} proposed" in text
+    assert f"  training {plan} on {worker} for " in text
+    assert "no plan is training" not in text
+
+    # Killed: the plan's process is gone, so nothing trains until the run is rerun.
+    dead = subprocess.Popen([sys.executable, "-c", "pass"])
+    dead.wait()
+    backend = study._storage  # noqa: SLF001
+    gone = f"{socket.gethostname()}:{dead.pid}"
+    backend.set_trial_user_attr(running._trial_id, "worker", gone)  # noqa: SLF001
+    text = format_status(folder_status(folder, storage))
+    assert f"on {gone} for " in text and "(its process has ended" in text
+    assert "3/8 plans trained, 1 training (1 of them by a process that has ended), " in text
+    assert "no plan is training: rerun the sweep's `kablate run` command to continue" in text
+
+    # The search has ended (search.json) but the finalists are not recorded yet.
+    (folder / SEARCH_FILE).write_text(json.dumps({"finalists": [{"name": "a"}, {"name": "b"}]}))
+    status = folder_status(folder, storage)
+    assert (status.phase, status.finalists) == ("search", ["a", "b"])
+    assert "the search has ended with 2 finalist(s)" in format_status(status)
+
+
+def test_a_folder_without_records_or_a_search_is_refused(tmp_path):
+    with pytest.raises(UsageError, match=r"sweep\.json is missing.*--storage or \$KABLATE_STORAGE"):
+        folder_status(tmp_path)  # no journal: a search could only be on a server storage
+    stopped_search(tmp_path, "other", budget=8, n_trained=1)  # a journal without tiny.search
+    with pytest.raises(UsageError, match=r"sweep\.json is missing"):
+        folder_status(tmp_path)

@@ -23,19 +23,56 @@ from __future__ import annotations
 import fcntl
 import logging
 import os
+import socket
 import threading
 from collections.abc import Iterator
 from contextlib import AbstractContextManager, contextmanager, nullcontext
+from datetime import datetime
 from pathlib import Path
 from typing import Protocol, runtime_checkable
 
 import optuna
 from optuna.exceptions import UpdateFinishedTrialError
-from optuna.trial import TrialState
+from optuna.trial import FrozenTrial, TrialState
 
 from kablate.trials.queue import requeue_lost
 
 log = logging.getLogger("kablate")
+
+
+WORKER = "worker"  # a trial's user attribute naming the process that runs it (`process_name`)
+
+
+def process_name(pid: int | None = None) -> str:
+    """How a trial names the process that runs it: ``host:pid`` (this process by default)."""
+    return f"{socket.gethostname()}:{os.getpid() if pid is None else pid}"
+
+
+def process_alive(name: str) -> bool | None:
+    """Whether the process a trial names (`process_name`) is running; None when it runs on
+    another machine, or the name is not one of ours. Read-only: a reader such as `status` must
+    not take a trial's lock, which a claim may be about to take. A pid the system has given to
+    a new process since reads as alive (rare: pids are reused only after the range wraps)."""
+    host, _, pid = name.rpartition(":")
+    if host != socket.gethostname() or not pid.isdigit():
+        return None
+    try:
+        os.kill(int(pid), 0)  # signal 0: only checks that the process exists
+    except ProcessLookupError:
+        return False
+    except PermissionError:  # it exists, under another user
+        return True
+    return True
+
+
+def running_since(trial: FrozenTrial, now: datetime) -> dict:
+    """When a running trial was claimed (``started``, ISO) and for how many ``seconds`` it has
+    run at ``now`` (naive local time, as Optuna's); both None when it has no start."""
+    start = trial.datetime_start
+    return {
+        "started": start.isoformat(timespec="seconds") if start else None,
+        "seconds": round((now - start).total_seconds(), 1) if start else None,
+    }
 
 
 @contextmanager

@@ -18,6 +18,7 @@ import optuna
 
 from kablate.errors import EXIT_DISK_FULL, EXIT_OK, EXIT_STOPPED, EXIT_TRIALS
 from kablate.lifecycle import FAILED
+from kablate.trials.liveness import WORKER
 from kablate.trials.queue import job_status, tagged_trials, trial_status
 
 REASON_CHARS = 100  # a reason is cut to this length, so that the summary stays one line
@@ -32,7 +33,7 @@ def own_counts(study: optuna.Study, worker_names: set[str], since: datetime) -> 
     counts: Counter = Counter()
     for trial in study.get_trials(deepcopy=False):
         started = trial.datetime_start
-        if trial.user_attrs.get("worker") in worker_names and started and started >= since:
+        if trial.user_attrs.get(WORKER) in worker_names and started and started >= since:
             counts[trial_status(trial)] += 1
     return counts
 

@@ -12,7 +12,6 @@ import contextlib
 import logging
 import os
 import signal
-import socket
 import sys
 import threading
 import time
@@ -34,7 +33,7 @@ from kablate.results.paths import RUN_LOG
 from kablate.spec.loader import load_sweep
 from kablate.trials.eta import eta_seconds
 from kablate.trials.jobs import Job, claim_order, sweep_jobs
-from kablate.trials.liveness import Liveness, liveness_for
+from kablate.trials.liveness import Liveness, liveness_for, process_name
 from kablate.trials.queue import trial_status
 from kablate.trials.rows import collect_trials
 from kablate.trials.search_run import recorded_finalists
@@ -419,7 +418,6 @@ def supervise(procs, stop: StopFlag, run: RunContext, outcome: PoolOutcome) -> N
     back in the queue, and `outcome.disk_full` says so.
     """
     study, roster, progress, workers = run.study, run.roster, run.progress, run.staffing.workers
-    host = socket.gethostname()
     setup = WorkerSetup(
         str(run.sweep_path),
         str(run.results_root),
@@ -432,7 +430,7 @@ def supervise(procs, stop: StopFlag, run: RunContext, outcome: PoolOutcome) -> N
 
     def follow(proc) -> None:
         procs.append(proc)
-        outcome.worker_names.add(f"{host}:{proc.pid}")
+        outcome.worker_names.add(process_name(proc.pid))
 
     def start() -> None:
         # A stop asked for while it starts (SIGINT is ignored until it installs its handler)

@@ -21,6 +21,7 @@ from kablate.results.columns import CURVE_COLUMNS, TRIAL_COLUMNS
 from kablate.train.record import shown_epoch
 from kablate.trials.halving import halted_variants
 from kablate.trials.jobs import Job
+from kablate.trials.liveness import WORKER
 from kablate.trials.queue import job_status, tagged_trials
 from kablate.trials.race import RULE_ATTR, read_rounds, retired_variants
 
@@ -59,7 +60,7 @@ def collect_trials(study: optuna.Study, roster: dict) -> tuple[list[dict], list[
                     status=status,
                     trial=trial.number,
                     n_attempts=len(trials),
-                    worker=attrs.get("worker"),
+                    worker=attrs.get(WORKER),
                 )
                 for name in (
                     "val_acc",

@@ -234,7 +234,7 @@ def read_candidate(trial: FrozenTrial) -> Candidate | None:
     accuracy = trial.values[0] if trial.state == TrialState.COMPLETE else None
     return Candidate(
         trial.number,
-        {group: str(spec) for group, spec in trial.params.items()},
+        trial_plan(trial),
         attrs["key"],
         float(attrs["cost"]),
         accuracy,
@@ -242,6 +242,11 @@ def read_candidate(trial: FrozenTrial) -> Candidate | None:
         attrs["outcome"] if attrs.get("outcome", CLAIMED) != CLAIMED else INTERRUPTED,
         attrs.get("reason", ""),
     )
+
+
+def trial_plan(trial: FrozenTrial) -> dict[str, str]:
+    """The plan a search trial proposed: layer group → kernel spec."""
+    return {group: str(spec) for group, spec in trial.params.items()}
 
 
 def refuse_search_run(sweep) -> None:

@@ -41,7 +41,7 @@ import optuna
 from optuna.exceptions import UpdateFinishedTrialError
 from optuna.trial import FrozenTrial, TrialState
 
-from kablate.trials.liveness import HeartbeatLiveness, LocalLiveness
+from kablate.trials.liveness import WORKER, HeartbeatLiveness, LocalLiveness, process_name
 
 TICKET = "ticket"  # user attribute: the budget slot a trial holds
 CLAIMED = "claimed"  # the outcome of a trial while its plan trains
@@ -156,6 +156,7 @@ def pop(study: optuna.Study, liveness, distributions: dict) -> tuple[optuna.Tria
         trial = study.ask(distributions)
         token = liveness.hold(trial._trial_id)  # noqa: SLF001
     liveness.started(study, trial._trial_id)  # noqa: SLF001
+    trial.set_user_attr(WORKER, process_name())  # for `status`: who trains it
     return trial, token
 
 

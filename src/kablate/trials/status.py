@@ -7,6 +7,12 @@ when the study also holds trials from earlier nights. Once every trial has finis
 throughput is that of the whole run: finished trials per hour of the time during which at
 least one trial was running (the union of their claim-to-tell spans, so the gaps between
 nights do not count).
+
+A ``[search]`` sweep has no trials of its own while it searches: ``kablate run`` records the
+sweep (``sweep.json``, ``plan.json``) only once the search has chosen its finalists, since
+both describe them. Until then (``phase`` "search") the status is read from the search study
+alone (`search_status`), found by the folder's name, which is the sweep's
+(``results/<name>``), in the storage given, else the folder's journal.
 """
 
 from __future__ import annotations
@@ -14,10 +20,11 @@ from __future__ import annotations
 from collections import Counter
 from dataclasses import asdict, dataclass, field
 from datetime import datetime
+from pathlib import Path
 
 from optuna.trial import FrozenTrial, TrialState
 
-from kablate.errors import KablateError
+from kablate.errors import KablateError, UsageError
 from kablate.lifecycle import (
     DIVERGED,
     DONE,
@@ -29,31 +36,43 @@ from kablate.lifecycle import (
     WAITING,
     is_finished,
 )
+from kablate.results.folder import read_json
+from kablate.results.paths import SEARCH_FILE, SWEEP_FILE
+from kablate.trials.liveness import WORKER, running_since
 from kablate.trials.queue import trial_status
-from kablate.trials.results import StoredResults
+from kablate.trials.results import StoredResults, open_results
 from kablate.trials.search_status import SearchStatus, search_line, search_status
+from kablate.trials.store import STORAGE_ENV, open_storage, resolve_url, storage_exists
 
 STATES = (DONE, RUNNING, WAITING, FAILED, DIVERGED, RETIRED, STOPPED)
 RECENT = 20  # finished trials that set the expected trial time
+SEARCH, TRIALS = "search", "trials"  # a status's phase: a [search] sweep searching; trials run
 
 
 @dataclass
 class SweepStatus:
+    """A sweep's progress. In phase "search" the sweep's trials are not known yet: ``n_trials``,
+    ``counts``, ``mean_trial_seconds``, ``throughput_per_hour``, ``eta_seconds``, ``staffing``
+    and ``standing`` are None, ``variants`` and ``running`` empty, and ``search`` says how far
+    the search is."""
+
     sweep: str
-    n_trials: int
-    counts: dict[str, int]
+    n_trials: int | None
+    counts: dict[str, int] | None
     variants: list[dict]  # per variant: name, n_trials and a count per state
     running: list[dict]  # job, worker, started (ISO time)
     mean_trial_seconds: float | None  # recent finished trials, claim to tell
     # trials per hour at the current number of running workers; once finished, over the run span
-    throughput_per_hour: float
+    throughput_per_hour: float | None
     eta_seconds: float | None  # None: nothing is running, so no end can be predicted
     finished: bool = False
-    staffing: dict = field(default_factory=dict)
+    staffing: dict | None = field(default_factory=dict)
     # how the variants stand (`analysis.standing.Standing`), or None with the reason
     standing: dict | None = None
     standing_error: str | None = None
     search: dict | None = None  # a [search] sweep's search (`search_status.SearchStatus`)
+    phase: str = TRIALS  # SEARCH: a [search] sweep whose finalists are not recorded yet
+    finalists: list[str] | None = None  # their names once the search chose them (search.json)
 
     def to_dict(self) -> dict:
         return asdict(self)
@@ -114,13 +133,8 @@ def summarize(
                 "job": t.user_attrs["job"],
                 "variant": t.user_attrs.get("variant", t.user_attrs["job"]),
                 "seed": t.user_attrs.get("seed"),
-                "worker": t.user_attrs.get("worker"),
-                "started": t.datetime_start.isoformat(timespec="seconds")
-                if t.datetime_start
-                else None,
-                "seconds": round((now - t.datetime_start).total_seconds(), 1)
-                if t.datetime_start
-                else None,
+                "worker": t.user_attrs.get(WORKER),
+                **running_since(t, now),
             }
             for t in sorted(running, key=lambda t: t.number)
         ],
@@ -151,6 +165,8 @@ def busy_seconds(trials: list[FrozenTrial]) -> float:
 
 
 def format_status(status: SweepStatus) -> str:
+    if status.phase == SEARCH:
+        return format_searching(status)
     c = status.counts
     n_halted = sum(v[RETIRED] for v in status.variants if v.get("halted_after") is not None)
     n_raced = c[RETIRED] - n_halted
@@ -202,6 +218,34 @@ def format_status(status: SweepStatus) -> str:
         "racing or stopped by halving)  / stopped early (halving)"
     )
     lines += standing_lines(status)
+    return "\n".join(lines)
+
+
+def format_searching(status: SweepStatus) -> str:
+    """The status of a [search] sweep whose finalists are not recorded yet."""
+    found = SearchStatus(**status.search)
+    if status.finalists is None:
+        state = (
+            "searching; the finalists (the front the search ends with, and the baseline) are not "
+            "chosen yet, so none of their trials is queued"
+        )
+    else:
+        state = (
+            f"the search has ended with {len(status.finalists)} finalist(s) ({SEARCH_FILE}); "
+            "`kablate run` is preparing their trials"
+        )
+    lines = [*search_line(found), f"sweep {status.sweep}: {state}"]
+    for entry in found.training:
+        gone = ""
+        if entry["alive"] is False:
+            gone = " (its process has ended: the next `kablate run` frees its slot)"
+        lines.append(
+            f"  training {entry['plan']} on {entry['worker'] or '?'} for "
+            f"{duration(entry['seconds'] or 0)}{gone}"
+        )
+    alive = [e for e in found.training if e["alive"] is not False]
+    if status.finalists is None and not alive:
+        lines.append("no plan is training: rerun the sweep's `kablate run` command to continue")
     return "\n".join(lines)
 
 
@@ -281,6 +325,7 @@ def read_status(folder: StoredResults) -> SweepStatus:
     status = summarize(folder.name, rows, trials, datetime.now(), staffing)
     found = search_status(folder.study._storage, folder.name)  # noqa: SLF001
     status.search = found.to_dict() if found else None
+    status.finalists = finalist_names(folder.search())
     try:
         data = folder.data()
         pick = pick_settings(folder.meta)
@@ -289,3 +334,59 @@ def read_status(folder: StoredResults) -> SweepStatus:
     except KablateError as exc:
         status.standing_error = str(exc)
     return status
+
+
+def folder_status(path: Path, storage: str | None = None) -> SweepStatus:
+    """The status of the results folder ``path``: `read_status` once ``kablate run`` has
+    recorded the sweep, else that of the search of a [search] sweep still in its search phase.
+
+    Raises:
+        UsageError: not a results folder, or one whose storage cannot be found or opened.
+    """
+    if not (path / SWEEP_FILE).is_file() and path.is_dir():
+        searching = search_phase(path, storage)
+        if searching is not None:
+            return searching
+    return read_status(open_results(path, storage))
+
+
+def search_phase(path: Path, storage: str | None) -> SweepStatus | None:
+    """The status of the search stored for the folder ``path`` (sweep name: the folder's),
+    with no sweep record yet; None when no search study is found there.
+
+    Raises:
+        UsageError: ``path`` holds no storage and none is given (a search on a server storage
+            is found only through --storage or $KABLATE_STORAGE until it records the sweep).
+    """
+    url = resolve_url(storage)
+    if not storage_exists(path, url):
+        raise UsageError(
+            f"{path / SWEEP_FILE} is missing: is {path} a kablate results folder? (A [search] "
+            "sweep on a server storage writes it once its search ends; until then give that "
+            f"storage with --storage or ${STORAGE_ENV} to see the search.)"
+        )
+    found = search_status(open_storage(path, url, read_only=True), path.name)
+    if found is None:
+        return None
+    search_file = path / SEARCH_FILE
+    record = read_json(search_file) if search_file.is_file() else None  # the search has ended
+    return SweepStatus(
+        sweep=path.name,
+        n_trials=None,
+        counts=None,
+        variants=[],
+        running=[],
+        mean_trial_seconds=None,
+        throughput_per_hour=None,
+        eta_seconds=None,
+        staffing=None,
+        standing_error="the sweep's trials are not known until the search chooses its finalists",
+        search=found.to_dict(),
+        phase=SEARCH,
+        finalists=finalist_names(record),
+    )
+
+
+def finalist_names(record: dict | None) -> list[str] | None:
+    """The finalists' names in a search record (``search.json``); None without one."""
+    return [f["name"] for f in record["finalists"]] if record else None

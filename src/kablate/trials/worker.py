@@ -8,8 +8,6 @@ from __future__ import annotations
 
 import json
 import logging
-import os
-import socket
 import time
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -30,7 +28,7 @@ from kablate.train.record import TrialRecord
 from kablate.trials.eta import time_ratio
 from kablate.trials.halving import judge_for
 from kablate.trials.jobs import Job
-from kablate.trials.liveness import Liveness
+from kablate.trials.liveness import WORKER, Liveness, process_name
 from kablate.trials.queue import (
     Claim,
     claim_next,
@@ -63,7 +61,7 @@ class WorkerContext:
 
     @property
     def worker_name(self) -> str:
-        return f"{socket.gethostname()}:{os.getpid()}"
+        return process_name()
 
 
 def record_attrs(record: TrialRecord) -> dict:
@@ -128,7 +126,7 @@ def _train_and_tell(ctx: WorkerContext, trial: optuna.Trial, key: str) -> str:
     job = Job.from_attrs(trial.user_attrs)
     item = next(v for v in ctx.catalog.variants if v.variant.id == job.variant_id)
     workdir = trial_dir(ctx.results_dir, key)
-    trial.set_user_attr("worker", ctx.worker_name)
+    trial.set_user_attr(WORKER, ctx.worker_name)
     log.info("start %s (variant %s, seed %d) on %s", key, job.variant, job.seed, ctx.worker_name)
     started = time.perf_counter()
     try:
