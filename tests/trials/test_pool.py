@@ -3,11 +3,14 @@
 from __future__ import annotations
 
 import multiprocessing as mp
+import subprocess
+import sys
 import time
 
 import pytest
 
 from kablate.trials.pool import wait_for_exit
+from tests.conftest import REPO
 
 
 @pytest.mark.timeout(60)
@@ -29,3 +32,23 @@ def test_the_supervisor_wakes_on_a_worker_exit_not_on_a_clock():
     finally:
         stays.kill()
         stays.join()
+
+
+HEAVY = ("torchvision", "scipy.stats", "statsmodels", "pandas", "matplotlib")
+
+
+def test_a_worker_imports_none_of_what_only_the_report_and_the_analysis_need():
+    # Each of these costs a worker (and the command, which imports the same) CPU seconds of its
+    # start, while the cores are shared with the other workers' starts and the runner's checks.
+    code = (
+        "import sys, kablate.trials.pool, kablate.trials.runner;"
+        f"print(','.join(m for m in {HEAVY!r} if m in sys.modules))"
+    )
+    done = subprocess.run(
+        [sys.executable, "-c", code],
+        capture_output=True,
+        text=True,
+        env={"PYTHONPATH": str(REPO / "src")},
+        check=True,
+    )
+    assert done.stdout.strip() == ""
