@@ -380,8 +380,7 @@ def run(
 ) -> None:
     """Train every (variant, seed) trial of a sweep, then write the report."""
     every = parse_checkpoint_seconds(checkpoint_seconds) if checkpoint_seconds is not None else None
-    with speaking("torch, pandas and matplotlib"):
-        from kablate.report.compose import write_report
+    with speaking("torch and optuna"):
         from kablate.trials.outcome import verdict
         from kablate.trials.results import open_results
         from kablate.trials.runner import RunOptions, run_sweep
@@ -420,6 +419,9 @@ def run(
                 err=True,
             )
         if not no_report and code != EXIT_STOPPED and summary.counts.get("done"):
+            # Imported only now: matplotlib would take seconds of the start-up from the workers.
+            from kablate.report.compose import write_report
+
             path = write_report(open_results(summary.results_dir, storage))
             click.echo(f"report: {path}")
         if why:

@@ -290,3 +290,11 @@ def test_an_upsampling_makes_the_rf_unknown_and_says_where():
     cost = graph_cost(model, (1, 8, 8), batch_size=None)
     assert cost.rf is None
     assert any("Upsample" in note for note in cost.notes), cost.notes
+
+
+def test_stochastic_depth_passes_the_reach_through_without_importing_torchvision_for_it():
+    # ConvNeXt's blocks end in torchvision's stochastic_depth (drops whole samples), which
+    # reach.py looks up only once torchvision is imported, as it is here by the model.
+    model, crop = build_on_meta("convnext_tiny")
+    cost = graph_cost(model, (3, crop, crop), batch_size=None)
+    assert cost.rf is not None and cost.jump == 32

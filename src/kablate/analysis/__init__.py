@@ -1,28 +1,35 @@
 """Analysis: tables, per-image evidence, the paired bootstrap, the recommended plan, Pareto
 fronts and the effective receptive field. Everything here returns data; `kablate.report` only
-draws and writes it."""
+draws and writes it.
 
-from kablate.analysis.decide import Accuracy, Contrast, Decision, decide
-from kablate.analysis.erf import ErfMap, centre_geometry, effective_rf
-from kablate.analysis.evidence import Evidence, gather_evidence
-from kablate.analysis.pareto import pareto_front
-from kablate.analysis.stats import Interval, t_interval, t_interval_from_summary
-from kablate.analysis.summary import Analysis, analyze
+The names below are re-exported lazily (PEP 562 ``__getattr__``): importing one module of the
+package (`pareto`, `halving`, as a sweep's workers do) does not import the others, which bring
+scipy.stats, statsmodels and pandas, more than a CPU second of every worker's start.
+"""
 
-__all__ = [
-    "Accuracy",
-    "Analysis",
-    "Contrast",
-    "Decision",
-    "ErfMap",
-    "Evidence",
-    "Interval",
-    "analyze",
-    "centre_geometry",
-    "decide",
-    "effective_rf",
-    "gather_evidence",
-    "pareto_front",
-    "t_interval",
-    "t_interval_from_summary",
-]
+from importlib import import_module
+
+HOMES = {  # name → the module of this package that defines it
+    "Accuracy": "decide",
+    "Contrast": "decide",
+    "Decision": "decide",  # the function `decide` shares its module's name: import it from there
+    "ErfMap": "erf",
+    "centre_geometry": "erf",
+    "effective_rf": "erf",
+    "Evidence": "evidence",
+    "gather_evidence": "evidence",
+    "pareto_front": "pareto",
+    "Interval": "stats",
+    "t_interval": "stats",
+    "t_interval_from_summary": "stats",
+    "Analysis": "summary",
+    "analyze": "summary",
+}
+
+__all__ = sorted(HOMES)
+
+
+def __getattr__(name: str):
+    if name in HOMES:
+        return getattr(import_module(f"kablate.analysis.{HOMES[name]}"), name)
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")

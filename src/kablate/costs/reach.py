@@ -20,12 +20,12 @@ in input pixels, and where its spatial axes are. The rules:
 from __future__ import annotations
 
 import operator
+import sys
 from dataclasses import dataclass, field, replace
 
 import torch
 import torch.nn.functional as F
 from torch import fx, nn
-from torchvision.ops import stochastic_depth
 
 Pair = tuple[int, int]
 
@@ -108,7 +108,6 @@ POINTWISE_FUNCTIONS = {
     F.pad,
     F.batch_norm,  # traced in eval mode: running statistics, so per position
     F.group_norm,  # norms are rf-neutral by the project's convention, as nn.GroupNorm above
-    stochastic_depth,  # drops whole samples
 }
 POINTWISE_METHODS = {
     "add",
@@ -126,6 +125,24 @@ POINTWISE_METHODS = {
 }
 LAYOUT_OPS = {"view", "reshape", torch.reshape, "flatten", torch.flatten, nn.Flatten}
 REDUCE_OPS = {"mean", torch.mean, "amax", torch.amax, "sum", torch.sum}
+
+
+def is_pointwise_function(target) -> bool:
+    """Whether ``target`` (a call_function node's) is one of `POINTWISE_FUNCTIONS` or
+    torchvision's ``stochastic_depth`` (it drops whole samples).
+
+    That one is looked up only where torchvision is already imported: a traced graph can only
+    hold it if its model imported it. Importing torchvision pulls in torch._dynamo, about
+    2 CPU-s in all, which a command that trains nothing (`kablate plan`) saves; a process that
+    trains imports torch._dynamo at its first optimizer step anyway (torch 2.14's
+    ``torch._disable_dynamo``), so there only torchvision's own 0.15 CPU-s is saved.
+    """
+    if target in POINTWISE_FUNCTIONS:
+        return True
+    ops = sys.modules.get("torchvision.ops")
+    return ops is not None and target is getattr(ops, "stochastic_depth", None)
+
+
 ADAPTIVE_POOLS = (nn.AdaptiveAvgPool2d, nn.AdaptiveMaxPool2d)
 ADAPTIVE_FUNCTIONS = {F.adaptive_avg_pool2d, F.adaptive_max_pool2d}
 SIZE_OPS = {"size", "dim", getattr, operator.floordiv, len}
@@ -330,7 +347,7 @@ class _Walker:
             return self.lost(node, first)
         if target is F.layer_norm:
             return self.normalized_over(node, first, len(args[1]))
-        if target in POINTWISE_FUNCTIONS or target in POINTWISE_METHODS:
+        if is_pointwise_function(target) or target in POINTWISE_METHODS:
             if target is torch.cat and first.axes:
                 dim = node.kwargs.get("dim", args[1] if len(args) > 1 else 0)
                 if dim % 4 in first.axes:

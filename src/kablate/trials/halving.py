@@ -43,7 +43,6 @@ from dataclasses import dataclass
 import optuna
 from optuna.trial import FrozenTrial, TrialState
 
-from kablate.analysis.halving import promoted, rung_epochs
 from kablate.lifecycle import STOPPED
 from kablate.spec.schema import HalvingSpec
 
@@ -56,6 +55,8 @@ RUNG_PREFIX = "halving-rung-"
 
 def halving_rule(spec: HalvingSpec, epochs: int) -> dict:
     """The settings stored in the study: first epoch, factor and the rungs' epochs."""
+    from kablate.analysis.halving import rung_epochs  # with pandas and scipy: see `Judge`
+
     return {
         "first_epoch": spec.first_epoch,
         "factor": spec.factor,
@@ -125,6 +126,10 @@ class Judge:
         storage = self.study._storage  # noqa: SLF001 (a claimed trial's attributes)
         storage.set_trial_user_attr(self.trial_id, f"{SCORE_PREFIX}{k}", val_acc)
         competing = rung_scores(self.study.get_trials(deepcopy=False), self.seed, k, self.job)
+        # Imported here, with the pandas and scipy of the rule's module: a worker of a sweep
+        # without halving never needs them, and their import costs it a second of its start.
+        from kablate.analysis.halving import promoted
+
         kept = self.baseline or promoted(val_acc, competing, int(self.rule["factor"]))
         decision = {
             "epoch": epochs_done,

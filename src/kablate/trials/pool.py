@@ -14,10 +14,10 @@ import os
 import signal
 import sys
 import threading
-import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from datetime import datetime
+from multiprocessing.connection import wait as wait_any
 from pathlib import Path
 from typing import TYPE_CHECKING, NamedTuple
 
@@ -31,6 +31,7 @@ from kablate.errors import EXIT_DISK_FULL, EXIT_STOPPED, DiskFullError, is_disk_
 from kablate.lifecycle import DONE, RETIRED, RUNNING, SETTLED, JobKey, is_finished, n_finished
 from kablate.results.paths import RUN_LOG
 from kablate.spec.loader import load_sweep
+from kablate.teardown import exit_without_teardown
 from kablate.trials.eta import eta_seconds
 from kablate.trials.jobs import Job, claim_order, sweep_jobs
 from kablate.trials.liveness import Liveness, liveness_for, process_name
@@ -151,13 +152,17 @@ def worker_main(setup: WorkerSetup, release: Release | None, conn=None) -> None:
         estimates=release.estimates,
         checkpoint_seconds=setup.checkpoint_seconds,
     )
+    code = 0
     try:
         work(ctx)
     except TrialInterrupted:
-        sys.exit(EXIT_STOPPED)
+        code = EXIT_STOPPED
     except DiskFullError as exc:
         log.error("%s", exc)
-        sys.exit(EXIT_DISK_FULL)
+        code = EXIT_DISK_FULL
+    # Its trials are told and its log is written: the runner waits on this process's exit
+    # (`supervise`), so it leaves without seconds of torch's teardown.
+    exit_without_teardown(code)
 
 
 # tqdm's default bar without its own remaining time and rate: the ETA shown is kablate's.
@@ -407,7 +412,20 @@ def run_workers(run: RunContext) -> PoolOutcome:
     return outcome
 
 
-POLL_SECONDS = 2.0
+POLL_SECONDS = 2.0  # the supervisor's look at the study while no worker ends
+
+
+def wait_for_exit(procs, timeout: float) -> list:
+    """Block until one of ``procs`` ends, or ``timeout`` seconds pass; the ones that ended.
+
+    It waits on the processes' sentinels, so the supervisor learns of an exit at once: the
+    last worker's exit ends the sweep without waiting out a polling period.
+    """
+    running = {proc.sentinel: proc for proc in procs if proc.exitcode is None}
+    ended = [running[sentinel] for sentinel in wait_any(list(running), timeout)]
+    for proc in ended:
+        proc.join()  # reaped: its exit code is known from here on
+    return ended
 
 
 def supervise(procs, stop: StopFlag, run: RunContext, outcome: PoolOutcome) -> None:
@@ -443,7 +461,7 @@ def supervise(procs, stop: StopFlag, run: RunContext, outcome: PoolOutcome) -> N
         start()
     n_restarts = 0
     while any(p.is_alive() for p in procs):
-        time.sleep(POLL_SECONDS)
+        wait_for_exit(procs, POLL_SECONDS)
         if stop.stopped and stop.forward is not None:
             stop.forward(signal.SIGINT)  # reaches workers that were still starting (a no-op else)
         rows, _ = collect_trials(study, roster)

@@ -15,7 +15,6 @@ from dataclasses import dataclass, field
 from datetime import datetime
 from pathlib import Path
 
-from kablate.analysis.power import plan_note
 from kablate.console import FILE_ONLY, step
 from kablate.costs.catalog import Catalog, build_catalog, measure_latencies
 from kablate.costs.plan_output import variant_json
@@ -281,6 +280,8 @@ def dry_run(sweep_path: Path, opts: RunOptions) -> RunSummary:
             opts.echo(text)
         return RunSummary(results_dir, len(jobs), 0, 0, staffing=staffing, estimate=text)
     run_preflight(catalog, data, staffing.workers, opts.device)
+    from kablate.analysis.power import plan_note  # statsmodels: only a dry run needs it here
+
     bound = upper_bound(races, sweep.halving.enabled)
     _, text = estimate(catalog, data, jobs, done, staffing, opts, bound=bound)
     text += "\n" + plan_note(len(data.val.labels), sweep.pick.margin, len(sweep.seeds))
