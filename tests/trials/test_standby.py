@@ -47,25 +47,31 @@ def test_a_release_reaches_the_worker_and_a_closed_pipe_dismisses_it():
 
 
 @pytest.mark.slow
-def test_workers_started_early_are_killed_when_the_preparation_fails(
+def test_workers_start_after_the_latencies_and_are_killed_when_the_preparation_fails(
     tiny_sweep, tmp_path, monkeypatch
 ):
     started: list = []
+    timed = []
 
     class Recorded(runner.Standby):
         def __init__(self, *args) -> None:
             super().__init__(*args)
             started.extend(proc for proc, _ in self.waiting)
 
+    def measure(*args, **kwargs):
+        timed.append(list(started))  # no worker imports torch on the cores being timed
+
     def fail(*args, **kwargs):
         assert started and all(p.is_alive() for p in started)  # they prepare meanwhile
-        raise UsageError("the latency of a variant could not be measured")
+        raise UsageError("the calibration could not time a variant")
 
     monkeypatch.setattr(runner, "Standby", Recorded)
-    monkeypatch.setattr(runner, "measure_latencies", fail)
+    monkeypatch.setattr(runner, "measure_latencies", measure)
+    monkeypatch.setattr(runner, "calibrate", fail)
     opts = RunOptions(results_root=tmp_path / "results", workers=2, show_progress=False)
-    with pytest.raises(UsageError, match="latency"):
+    with pytest.raises(UsageError, match="calibration"):
         run_sweep(tiny_sweep, opts)
+    assert timed == [[]]
     assert len(started) == 2
     assert [p.exitcode for p in started] == [-signal.SIGKILL] * 2
 

@@ -337,18 +337,7 @@ def _run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
         catalog = build_catalog(sweep)
     jobs = sweep_jobs(catalog)
     staffing = choose_staffing(opts.workers, opts.threads, len(jobs))
-    # Worker processes start now and prepare while this one checks, measures and calibrates.
     standby = None
-    if staffing.workers > 1 and len(settled_jobs(study, jobs)) < len(jobs):
-        setup = WorkerSetup(
-            str(sweep_path),
-            str(opts.results_root),
-            url,
-            staffing.threads,
-            opts.device,
-            opts.checkpoint_seconds,
-        )
-        standby = Standby(worker_main, setup, staffing.workers)
     try:
         n_variants = len(catalog.variants)
         step(
@@ -364,6 +353,18 @@ def _run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
         threads = catalog.sweep.target.threads or staffing.threads
         step("start-up", f"measuring the latency of {n_variants} variants at {threads} thread(s)")
         measure_latencies(catalog, threads=threads)
+        # Worker processes start now, on cores no latency is timed on any more, and prepare
+        # (imports, data) while this one records the sweep and calibrates.
+        if staffing.workers > 1 and len(settled_jobs(study, jobs)) < len(jobs):
+            setup = WorkerSetup(
+                str(sweep_path),
+                str(opts.results_root),
+                url,
+                staffing.threads,
+                opts.device,
+                opts.checkpoint_seconds,
+            )
+            standby = Standby(worker_main, setup, staffing.workers)
         write_manifest(results_dir, catalog, url, opts, staffing)
         write_json(results_dir / DATA_FILE, data.manifest())
         roster = {  # the variants and seeds whose rows count: plan.json without the layers
