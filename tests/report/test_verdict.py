@@ -17,6 +17,7 @@ from kablate.report.verdict import (
     diff_prose,
     pct,
     pp,
+    raced_sentence,
     resolution_sentence,
     stability_sentence,
 )
@@ -69,3 +70,14 @@ def test_the_resolution_sentence_quotes_the_resolution_and_what_the_margin_needs
     assert f"with {r.n_images} validation images" in text
     assert f"needs about {r.images_for(d.margin):,} validation images" in text
     assert ("so this sweep can resolve it" in text) == (r.images_for(d.margin) <= r.n_images)
+
+
+def test_the_headline_counts_the_plans_racing_retired(analysis):
+    assert raced_sentence(analysis) == []  # no race: nothing said
+    variants = analysis.variants.copy()
+    variants["retired_after"] = [None, 0, None, 1][: len(variants)]
+    raced = replace(analysis, variants=variants)
+    assert raced_sentence(raced) == [
+        f"Racing retired 2 of the {len(variants)} plans after fewer seeds (see Racing over "
+        "seeds): they are left out of this comparison."
+    ]

@@ -34,7 +34,7 @@ def race_section(a: Analysis) -> list[str]:
         *rule_words(a, margin, cost),
         "Rounds decided: "
         + "; ".join(
-            f"after seed {seed}, {len(r['compared'])} variants compared, "
+            f"after seed {seed}, {len(r['compared'])} variant(s) compared, "
             f"{len(r['retired'])} retired"
             for seed, r in sorted(rounds.items(), key=lambda item: len(item[1]["seeds"]))
         )

@@ -92,6 +92,7 @@ def headline(a: Analysis, cost_label: str) -> list[str]:
             f"{diff_prose(c)}, over {where}."
         )
     out = [first + f" Rule: {rule_sentence(d, cost_label)}."]
+    out += raced_sentence(a)
     out.append(stability_sentence(d))
     flags = a.flags.get(rec) or []
     if flags:
@@ -99,6 +100,21 @@ def headline(a: Analysis, cost_label: str) -> list[str]:
     if a.resolution is not None:
         out.append(resolution_sentence(a))
     return [" ".join(out), ""]
+
+
+def raced_sentence(a: Analysis) -> list[str]:
+    """How many plans racing retired before their last seed, left out of the comparison
+    above; nothing without a retirement."""
+    v = a.variants
+    if "retired_after" not in v:
+        return []
+    n = int(v["retired_after"].notna().sum())
+    if not n:
+        return []
+    return [
+        f"Racing retired {n} of the {len(v)} plans after fewer seeds (see Racing over seeds): "
+        "they are left out of this comparison."
+    ]
 
 
 def closest_cheaper(a: Analysis) -> Contrast | None:

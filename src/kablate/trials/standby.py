@@ -3,9 +3,9 @@
 A worker process spends seconds importing torch, costing the sweep and preparing its data. The
 runner starts its workers once it has measured the variants' latencies (a latency timed while
 other processes import torch on the same cores would be inflated, and it is a figure of the
-card), so that they do this while it records the sweep and calibrates. Each then stands by, blocked on its end of a pipe, until the runner releases it
-with what only that preparation tells (`Release`); from then on it claims trials like any
-worker (`pool.worker_main`).
+card), so that they do this while it records the sweep and calibrates. Each then stands by,
+blocked on its end of a pipe, until the runner releases it with what only that preparation
+tells (`Release`); from then on it claims trials like any worker (`pool.worker_main`).
 
 - The preparation fails, or finds nothing to train: `Standby.close` kills the workers that
   were never released, and the run ends as it would have without them.
