@@ -438,3 +438,26 @@ def test_a_split_that_leaves_no_training_image_is_refused_by_plan(tmp_path, sour
     with pytest.raises(DataError, match=r"leaves no training image"):
         prepare_data(spec)
     check_splits(DataSpec(source=source, root=str(tmp_path), val_size=val_size - 10))
+
+
+@pytest.mark.parametrize("file_found", [True, False])
+def test_digits_are_scikit_learns_load_digits_image_for_image(monkeypatch, file_found):
+    # Reference: scikit-learn's own `load_digits`. The source reads the same bundled file
+    # without importing scikit-learn, and falls back to `load_digits` where that file is not.
+    from kablate.data import sources
+
+    if not file_found:
+        monkeypatch.setattr(sources.importlib.util, "find_spec", lambda name: None)
+    sources.digits_table.cache_clear()
+    try:
+        pools = SOURCES["digits"].read(DataSpec(source="digits"))
+        labels, _ = SOURCES["digits"].labels(DataSpec(source="digits"))
+    finally:
+        sources.digits_table.cache_clear()  # later tests read the file again, as shipped
+    bunch = load_digits()
+    expected = torch.from_numpy(bunch.images.astype(np.float32) / 16.0).unsqueeze(1)
+    assert pools.train.images.dtype == torch.float32
+    assert torch.equal(pools.train.images, expected)
+    assert torch.equal(pools.train.labels, torch.from_numpy(bunch.target.astype(np.int64)))
+    assert np.array_equal(labels, bunch.target)
+    assert pools.test is None

@@ -34,14 +34,17 @@ def test_the_supervisor_wakes_on_a_worker_exit_not_on_a_clock():
         stays.join()
 
 
-HEAVY = ("torchvision", "scipy.stats", "statsmodels", "pandas", "matplotlib")
+HEAVY = ("torchvision", "scipy.stats", "statsmodels", "pandas", "matplotlib", "sklearn")
 
 
 def test_a_worker_imports_none_of_what_only_the_report_and_the_analysis_need():
     # Each of these costs a worker (and the command, which imports the same) CPU seconds of its
     # start, while the cores are shared with the other workers' starts and the runner's checks.
+    # The worker's own start-up is done too: the sweep, its costs and the digits data.
     code = (
-        "import sys, kablate.trials.pool, kablate.trials.runner;"
+        "import sys, kablate.trials.pool as p, kablate.trials.runner;"
+        f"s = p.load_sweep({str(REPO / 'sweeps' / 'quickstart.toml')!r});"
+        "p.build_catalog(s); p.prepare_data(s.data);"
         f"print(','.join(m for m in {HEAVY!r} if m in sys.modules))"
     )
     done = subprocess.run(
