@@ -52,7 +52,7 @@ from kablate.trials.rows import collect_trials, settled_jobs
 from kablate.trials.search import refuse_search_run
 from kablate.trials.search_estimate import search_estimate
 from kablate.trials.search_run import run_search
-from kablate.trials.standby import Standby, WorkerSetup
+from kablate.trials.standby import READY_TIMEOUT, Standby, WorkerSetup
 from kablate.trials.store import lock_dir, open_study, resolve_url, storage_exists
 
 log = logging.getLogger("kablate")
@@ -193,9 +193,9 @@ def estimate(
 
     The replay starts when the workers can take their first job: after what the run has spent
     so far (since ``started``, the run's start time; for a dry run, this calibration and the
-    set-up before it) or, for worker processes, after their own start-up if that is longer:
-    they start early and prepare meanwhile (standby.py). That start-up repeats this process's
-    (imports, sweep, data: its CPU time so far) plus torch's warm-up.
+    set-up before it) or, for worker processes, after their own start-up if that is longer
+    (in a run they are ready by now: `wait_for_workers`; a dry run starts none). That start-up
+    repeats this process's (imports, sweep, data: its CPU time so far) plus torch's warm-up.
     """
     budget = opts.budget_seconds
     step("calibration", "warming torch up")
@@ -219,6 +219,22 @@ def estimate(
         bound=bound,
     )
     return seconds, text
+
+
+def wait_for_workers(standby: Standby) -> None:
+    """Wait until the workers started early have prepared: the latencies and the calibration
+    that follow are timed on cores where no process imports torch any more."""
+    n = len(standby.waiting)
+    step("start-up", f"waiting for {n} worker processes to prepare before timing anything")
+    late = standby.wait_until_idle()
+    if late:
+        log.warning(
+            "%d of %d workers still preparing after %.0f s; the latencies and the estimate are "
+            "timed anyway and may be inflated",
+            len(late),
+            n,
+            READY_TIMEOUT,
+        )
 
 
 def upper_bound(racing: bool, halving: bool) -> str:
@@ -339,6 +355,18 @@ def _run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
     staffing = choose_staffing(opts.workers, opts.threads, len(jobs))
     standby = None
     try:
+        # Worker processes start now and prepare (imports, sweep, data) while this one runs the
+        # preflight; nothing is timed until they are ready (standby.py).
+        if staffing.workers > 1 and len(settled_jobs(study, jobs)) < len(jobs):
+            setup = WorkerSetup(
+                str(sweep_path),
+                str(opts.results_root),
+                url,
+                staffing.threads,
+                opts.device,
+                opts.checkpoint_seconds,
+            )
+            standby = Standby(worker_main, setup, staffing.workers)
         n_variants = len(catalog.variants)
         step(
             "start-up",
@@ -351,20 +379,10 @@ def _run_sweep(sweep_path: Path, opts: RunOptions) -> RunSummary:
         # Latency once per variant, before training, on [target] (else at the workers' threads):
         # the report's fronts and `[pick] cost = "latency"` read it from there.
         threads = catalog.sweep.target.threads or staffing.threads
+        if standby is not None:
+            wait_for_workers(standby)
         step("start-up", f"measuring the latency of {n_variants} variants at {threads} thread(s)")
         measure_latencies(catalog, threads=threads)
-        # Worker processes start now, on cores no latency is timed on any more, and prepare
-        # (imports, data) while this one records the sweep and calibrates.
-        if staffing.workers > 1 and len(settled_jobs(study, jobs)) < len(jobs):
-            setup = WorkerSetup(
-                str(sweep_path),
-                str(opts.results_root),
-                url,
-                staffing.threads,
-                opts.device,
-                opts.checkpoint_seconds,
-            )
-            standby = Standby(worker_main, setup, staffing.workers)
         write_manifest(results_dir, catalog, url, opts, staffing)
         write_json(results_dir / DATA_FILE, data.manifest())
         roster = {  # the variants and seeds whose rows count: plan.json without the layers

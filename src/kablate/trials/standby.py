@@ -1,11 +1,14 @@
 """Worker processes started early, while the runner still prepares the run.
 
 A worker process spends seconds importing torch, costing the sweep and preparing its data. The
-runner starts its workers once it has measured the variants' latencies (a latency timed while
-other processes import torch on the same cores would be inflated, and it is a figure of the
-card), so that they do this while it records the sweep and calibrates. Each then stands by,
-blocked on its end of a pipe, until the runner releases it with what only that preparation
+runner starts its workers as soon as it has read the sweep, so that they do this while it
+prepares the data and runs the preflight. Each worker then reports that it is ready and stands
+by, blocked on its end of a pipe, until the runner releases it with what only the preparation
 tells (`Release`); from then on it claims trials like any worker (`pool.worker_main`).
+
+The runner times the variants' latencies (a figure of the card) and their training steps (the
+estimate, the order and ``--budget``) only once every worker is ready (`Standby.wait_until_idle`):
+a time taken while other processes import torch on the same cores would be inflated.
 
 - The preparation fails, or finds nothing to train: `Standby.close` kills the workers that
   were never released, and the run ends as it would have without them.
@@ -19,12 +22,17 @@ from __future__ import annotations
 import logging
 import multiprocessing as mp
 import signal
+import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from multiprocessing.connection import Connection
+from multiprocessing.connection import wait as wait_any
 from multiprocessing.process import BaseProcess
 
 log = logging.getLogger("kablate")
+
+READY = "ready"  # what a worker sends once it has prepared, before it waits for its release
+READY_TIMEOUT = 300.0  # seconds the runner waits for its workers to prepare, at most
 
 
 @dataclass(frozen=True)
@@ -63,9 +71,11 @@ def spawn(target: Callable, *args) -> BaseProcess:
 
 
 def wait_for_release(conn: Connection) -> Release | None:
-    """In a worker standing by: block until the runner releases it. None when the runner
-    dismissed it, or died (its end of the pipe closed): the worker then exits."""
+    """In a worker standing by, prepared: report that it is ready, then block until the runner
+    releases it. None when the runner dismissed it, or died (its end of the pipe closed): the
+    worker then exits."""
     try:
+        conn.send(READY)
         release = conn.recv()
     except (EOFError, OSError):
         return None
@@ -81,11 +91,31 @@ class Standby:
         """Start ``n_workers`` processes running ``target(setup, None, conn)``, where ``conn``
         is the worker's end of its pipe (for `wait_for_release`)."""
         self.waiting: list[tuple[BaseProcess, Connection]] = []
+        self.ready: set[int] = set()  # pids of the workers that reported READY
         for _ in range(n_workers):
-            reader, writer = mp.get_context("spawn").Pipe(duplex=False)
-            proc = spawn(target, setup, None, reader)
-            reader.close()  # the child has its own copy; the runner keeps only the writer
-            self.waiting.append((proc, writer))
+            ours, theirs = mp.get_context("spawn").Pipe()
+            proc = spawn(target, setup, None, theirs)
+            theirs.close()  # the child has its own copy
+            self.waiting.append((proc, ours))
+
+    def wait_until_idle(self, timeout: float = READY_TIMEOUT) -> list[BaseProcess]:
+        """Block until every worker standing by has prepared (it reported READY and now only
+        waits) or has died. Returns the workers still preparing after ``timeout`` seconds."""
+        preparing = {conn: proc for proc, conn in self.waiting if proc.pid not in self.ready}
+        deadline = time.monotonic() + timeout
+        while preparing and (left := deadline - time.monotonic()) > 0:
+            by_sentinel = {proc.sentinel: conn for conn, proc in preparing.items()}
+            for ended in wait_any([*preparing, *by_sentinel], timeout=left):
+                conn = by_sentinel.get(ended, ended)
+                proc = preparing.pop(conn, None)
+                if proc is None:  # its pipe and its sentinel both answered
+                    continue
+                try:
+                    if conn.recv() == READY:
+                        self.ready.add(proc.pid)
+                except (EOFError, OSError):  # it died while preparing
+                    pass
+        return list(preparing.values())
 
     def release(self, release: Release) -> list[BaseProcess]:
         """Let every waiting worker claim trials; the processes, now the caller's to follow.
