@@ -7,6 +7,7 @@ import secrets
 from urllib.parse import quote
 
 import pytest
+from optuna.trial import TrialState
 
 from kablate.costs.catalog import build_catalog
 from kablate.errors import UsageError
@@ -82,3 +83,16 @@ def test_status_and_report_reconnect_without_the_password_the_run_was_given(
     (folder / "sweep.json").write_text(json.dumps(meta))
     monkeypatch.setenv("PGPASSWORD", secret)
     assert open_results(folder).name == "tiny"
+
+
+@pytest.mark.postgres
+def test_asking_a_postgres_study_outside_optimize_warns_nothing(postgres_url, tmp_path):
+    # kablate claims with ask/tell and beats each trial's heartbeat itself; Optuna's warning that
+    # the heartbeat is meant for `Study.optimize` would print once per search proposal.
+    import warnings
+
+    study = open_study("asks", tmp_path, postgres_url)
+    with warnings.catch_warnings(record=True) as seen:
+        trial = study.ask()
+    study.tell(trial, state=TrialState.FAIL)
+    assert [str(w.message) for w in seen] == []

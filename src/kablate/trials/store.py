@@ -106,6 +106,12 @@ def _rdb_storage(url: str) -> RDBStorage:
         return RDBStorage(url)
     interval = heartbeat_seconds()
     warnings.filterwarnings("ignore", category=optuna.exceptions.ExperimentalWarning)
+    # The search claims its proposals with `ask` and beats each trial's heartbeat itself
+    # (liveness.HeartbeatLiveness); Optuna warns on every `ask` outside `Study.optimize` that the
+    # heartbeat is meant for `optimize`: a line per proposal that no user can act on.
+    warnings.filterwarnings(
+        "ignore", message="Heartbeat of storage is supposed to be used", category=UserWarning
+    )
     # Optuna fails a trial whose heartbeat is older than the grace period; the one process
     # whose update wins (SELECT ... FOR UPDATE) runs the callback, so a job is requeued once.
     return RDBStorage(
