@@ -60,8 +60,8 @@ def process_alive(name: str) -> bool | None:
         os.kill(int(pid), 0)  # signal 0: only checks that the process exists
     except ProcessLookupError:
         return False
-    except PermissionError:  # it exists, under another user
-        return True
+    except PermissionError:  # it exists, under another user: alive all the same
+        pass
     return True
 
 
