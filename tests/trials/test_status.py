@@ -317,3 +317,30 @@ def test_a_folder_without_records_or_a_search_is_refused(tmp_path):
     stopped_search(tmp_path, "other", budget=8, n_trained=1)  # a journal without tiny.search
     with pytest.raises(UsageError, match=r"sweep\.json is missing"):
         folder_status(tmp_path)
+
+
+def test_a_running_trial_whose_process_has_ended_is_named_and_left_out_of_the_eta():
+    # Liveness by the operating system's own pid check: a process that has exited is gone,
+    # this test's own process is alive.
+    dead = subprocess.Popen([sys.executable, "-c", "pass"])
+    dead.wait()
+    host = socket.gethostname()
+    rows = [row("a", 0, "done"), row("a", 1, "running"), row("b", 1, "running")]
+    rows += [row("a", 2, "waiting")]
+    trials = [trial("a-s0", TrialState.COMPLETE, -10, -5)]
+    for job, pid in (("a-s1", os.getpid()), ("b-s1", dead.pid)):
+        running = trial(job, TrialState.RUNNING, -2)
+        running.user_attrs["worker"] = f"{host}:{pid}"
+        trials.append(running)
+    status = summarize("demo", rows, trials, NOW, {"workers": 2, "threads": 1})
+    assert [(e["job"], e["alive"]) for e in status.running] == [("a-s1", True), ("b-s1", False)]
+    # 3 trials left (2 running, 1 waiting) at 5 min each, on the one worker still alive.
+    assert status.eta_seconds == 3 * 300 / 1 and status.throughput_per_hour == 1 / 300 * 3600
+    text = format_status(status)
+    assert "with 1 running (a trial takes ~300s)" in text
+    assert f"  running b seed 1 on {host}:{dead.pid} for 2m00s (its process has ended" in text
+    assert f"  running a seed 1 on {host}:{os.getpid()} for 2m00s\n" in text + "\n"
+    # With every running trial's process ended, nothing is running: say how to go on.
+    status = summarize("demo", rows, [trials[0], trials[2]], NOW, {"workers": 2, "threads": 1})
+    assert status.eta_seconds is None
+    assert "no trial is running: rerun the sweep's `kablate run` command" in format_status(status)

@@ -38,7 +38,7 @@ from kablate.lifecycle import (
 )
 from kablate.results.folder import read_json
 from kablate.results.paths import SEARCH_FILE, SWEEP_FILE
-from kablate.trials.liveness import WORKER, running_since
+from kablate.trials.liveness import WORKER, process_alive, running_since
 from kablate.trials.queue import trial_status
 from kablate.trials.results import StoredResults, open_results
 from kablate.trials.search_status import SearchStatus, search_line, search_status
@@ -60,7 +60,7 @@ class SweepStatus:
     n_trials: int | None
     counts: dict[str, int] | None
     variants: list[dict]  # per variant: name, n_trials and a count per state
-    running: list[dict]  # job, worker, started (ISO time)
+    running: list[dict]  # job, variant, seed, worker, alive, started (ISO time), seconds
     mean_trial_seconds: float | None  # recent finished trials, claim to tell
     # trials per hour at the current number of running workers; once finished, over the run span
     throughput_per_hour: float | None
@@ -112,13 +112,19 @@ def summarize(
         for t in [t for t in finished if trial_status(t) == DONE][-RECENT:]
         if t.datetime_start and t.datetime_complete
     ]
-    running = [t for t in tagged if t.state == TrialState.RUNNING]
+    running = sorted((t for t in tagged if t.state == TrialState.RUNNING), key=lambda t: t.number)
+    alive = [
+        process_alive(t.user_attrs[WORKER]) if WORKER in t.user_attrs else None for t in running
+    ]
+    # A trial whose process has ended trains no more: it counts neither in the throughput nor
+    # in the workers the ETA divides by (the next `kablate run` recovers it).
+    live = [t for t, up in zip(running, alive, strict=True) if up is not False]
     mean = sum(durations) / len(durations) if durations else None
     left = counts["waiting"] + counts["running"]
     throughput, eta = 0.0, None
-    if mean and running:
-        throughput = len(running) / mean * 3600
-        eta = left * mean / len(running)
+    if mean and live:
+        throughput = len(live) / mean * 3600
+        eta = left * mean / len(live)
     elif not left:
         eta = 0.0
         span = busy_seconds(finished)
@@ -134,9 +140,10 @@ def summarize(
                 "variant": t.user_attrs.get("variant", t.user_attrs["job"]),
                 "seed": t.user_attrs.get("seed"),
                 "worker": t.user_attrs.get(WORKER),
+                "alive": up,  # true, false, or null (on another machine, or no worker recorded)
                 **running_since(t, now),
             }
-            for t in sorted(running, key=lambda t: t.number)
+            for t, up in zip(running, alive, strict=True)
         ],
         mean_trial_seconds=round(mean, 3) if mean else None,
         throughput_per_hour=round(throughput, 2),
@@ -170,6 +177,7 @@ def format_status(status: SweepStatus) -> str:
     c = status.counts
     n_halted = sum(v[RETIRED] for v in status.variants if v.get("halted_after") is not None)
     n_raced = c[RETIRED] - n_halted
+    n_live = sum(e.get("alive") is not False for e in status.running)  # processes still running
     lines = [
         *search_line(SearchStatus(**status.search) if status.search else None),
         f"sweep {status.sweep}: {c['done']}/{status.n_trials} done, {c['running']} running, "
@@ -187,17 +195,20 @@ def format_status(status: SweepStatus) -> str:
         lines.append("every trial has finished")
     elif status.throughput_per_hour:
         lines.append(
-            f"throughput {status.throughput_per_hour:.1f} trials/h with {c['running']} "
+            f"throughput {status.throughput_per_hour:.1f} trials/h with {n_live} "
             f"running (a trial takes ~{status.mean_trial_seconds:.0f}s)   "
             f"ETA {duration(status.eta_seconds)}"
         )
-    elif not status.running:
+    elif not n_live:
         lines.append("no trial is running: rerun the sweep's `kablate run` command to continue")
     for entry in status.running:
         seed = f" seed {entry['seed']}" if entry.get("seed") is not None else ""
+        gone = ""
+        if entry.get("alive") is False:
+            gone = " (its process has ended: the next `kablate run` resumes it from its checkpoint)"
         lines.append(
             f"  running {entry['variant']}{seed} on {entry['worker'] or '?'} for "
-            f"{duration(entry['seconds'] or 0)}"
+            f"{duration(entry['seconds'] or 0)}{gone}"
         )
     width = max((len(v["variant"]) for v in status.variants), default=8)
     cells = [f"[{progress_bar(v)}]  {v['done']}/{v['n_trials']}" for v in status.variants]
