@@ -203,3 +203,22 @@ def test_onnx_runtime_figures_sit_beside_torchs_or_the_table_says_why_not(tmp_pa
     lines = catalog_table(catalog).splitlines()
     assert "ONNX Runtime latency: not measured: onnxruntime not installed" in lines
     assert not any(line.startswith("ONNX Runtime 1.x") for line in lines)
+
+
+@pytest.mark.parametrize(
+    ("value", "shown"),
+    [
+        (12_345_678, "12.3M"),
+        (70_330, "70.3k"),
+        (512, "512"),
+        (90, "90"),
+        (12.5, "12.5"),
+        (0.34, "0.34"),  # a latency in ms: once shown as "0"
+        (0.05, "0.05"),
+        (2.5e9, "2.5G"),
+    ],
+)
+def test_human_figures_keep_what_a_reader_needs_of_small_and_large_values(value, shown):
+    from kablate.costs.plan_output import human
+
+    assert human(value) == shown

@@ -410,3 +410,31 @@ def test_the_heatmap_outlines_the_baseline_and_the_recommended_cells(chosen, tmp
     assert outlined == {"baseline": axes["base"], "recommended": axes["cheap"]}
     labels = [t.get_text() for t in fig.legends[0].get_texts()]
     assert labels == ["baseline (outlined)", "recommended (outlined)"]
+
+
+@pytest.mark.parametrize(
+    ("cost", "values"),
+    [
+        ("latency", [0.21, 0.34, 0.36, 0.8]),
+        ("latency", [0.03, 0.04, 0.09, 0.12]),
+        ("macs", [35_000.0, 1.2e6, 1.8e6, 2.6e6]),
+    ],
+)
+def test_each_cost_tick_label_reads_as_the_value_at_its_tick(tmp_path, monkeypatch, cost, values):
+    # A latency axis in ms spans values under 1: a tick at 0.5 once read "0".
+    a = crowd(len(values), cost=lambda i: values[i])
+    with rendering():
+        fig = drawn(monkeypatch, lambda: plot_accuracy_vs_cost(a, "macs", cost, tmp_path, "s"))
+    ax = fig.axes[0]
+    fig.canvas.draw()
+    low, high = ax.get_xlim()
+    shown = [
+        (tick.get_loc(), tick.label1.get_text())
+        for tick in ax.xaxis.get_major_ticks()
+        if low <= tick.get_loc() <= high
+    ]
+    assert len(shown) >= 2
+    units = {"k": 1e3, "M": 1e6, "G": 1e9}
+    for loc, text in shown:
+        read = float(text[:-1]) * units[text[-1]] if text[-1] in units else float(text)
+        assert read == pytest.approx(loc, rel=0.01), (loc, text)

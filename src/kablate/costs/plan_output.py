@@ -215,11 +215,12 @@ def catalogs_csv(planned: list[tuple[object, Catalog | Exception]]) -> str:
 
 
 def human(n: float) -> str:
-    """12345678 → '12.3M'."""
+    """12345678 → '12.3M', 512 → '512', and below 100 three significant digits: a latency of
+    0.34 ms is '0.34', not '0'."""
     for unit, size in (("G", 1e9), ("M", 1e6), ("k", 1e3)):
         if abs(n) >= size:
             return f"{n / size:.1f}{unit}"
-    return f"{n:.0f}"
+    return f"{n:.3g}" if abs(n) < 100 else f"{n:.0f}"
 
 
 TABLE_WIDTH = 100

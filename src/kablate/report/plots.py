@@ -8,6 +8,7 @@ subtitle naming the sweep, data, seeds and budget.
 from __future__ import annotations
 
 import math
+import re
 from pathlib import Path
 
 import numpy as np
@@ -49,11 +50,18 @@ def _percent_axis(ax: Axes, label: str) -> None:
     ax.set_ylabel(label)
 
 
+def cost_tick(x: float) -> str:
+    """A cost axis's tick label, short and exact at the 1-2-5 ticks: 0.05, 0.5, 1, 50, 1k,
+    2.5M (`human` without a trailing '.0')."""
+    return re.sub(r"\.0(?=[kMG]?$)", "", human(x))
+
+
 def _log_cost_axis(ax: Axes, label: str) -> None:
-    """A log axis with few, short tick labels (10k, 20k, 50k, …); no crowded minor labels."""
+    """A log axis with few, short tick labels (0.5, 1, 10k, 20k, 50k, …); no crowded minor
+    labels."""
     ax.set_xscale("log")
     ax.xaxis.set_major_locator(LogLocator(base=10, subs=(1.0, 2.0, 5.0)))
-    ax.xaxis.set_major_formatter(FuncFormatter(lambda x, _: human(x).replace(".0", "")))
+    ax.xaxis.set_major_formatter(FuncFormatter(lambda x, _: cost_tick(x)))
     ax.xaxis.set_minor_formatter(NullFormatter())
     ax.set_xlabel(f"{label} (log scale; {DODGED})")
 
