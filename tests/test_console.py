@@ -94,7 +94,13 @@ def test_a_failing_pulse_is_reported_not_raised(lines):
 def test_a_sweep_under_nohup_is_never_silent(tmp_path: Path):
     """The real command, stdout and stderr piped (no terminal), as under nohup: each phase
     says what it does, each line carries its time, and lines come after every silence."""
-    sweep = write_sweep(tmp_path, TINY_SWEEP)
+    # Trials long enough (about 2 s each) that the sweep has silences for the pulse to fill:
+    # the workers are ready when the sweep starts, and the tiny sweep's 4 trials would
+    # otherwise end within a second.
+    longer = TINY_SWEEP.replace("train_size = 200", "train_size = 1000").replace(
+        'from = "configs/tiny-recipe.toml"', 'from = "configs/tiny-recipe.toml"\nepochs = 30'
+    )
+    sweep = write_sweep(tmp_path, longer)
     env = dict(os.environ, **{PULSE_ENV: "0.2"})
     cmd = [sys.executable, "-m", "kablate", "run", str(sweep), "--workers", "2"]
     out = subprocess.run(
