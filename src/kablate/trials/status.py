@@ -117,7 +117,7 @@ def summarize(
         process_alive(t.user_attrs[WORKER]) if WORKER in t.user_attrs else None for t in running
     ]
     # A trial whose process has ended trains no more: it counts neither in the throughput nor
-    # in the workers the ETA divides by (the next `kablate run` recovers it).
+    # in the workers the ETA divides by (the next claim, or the next `kablate run`, recovers it).
     live = [t for t, up in zip(running, alive, strict=True) if up is not False]
     mean = sum(durations) / len(durations) if durations else None
     left = counts["waiting"] + counts["running"]
@@ -205,7 +205,7 @@ def format_status(status: SweepStatus) -> str:
         seed = f" seed {entry['seed']}" if entry.get("seed") is not None else ""
         gone = ""
         if entry.get("alive") is False:
-            gone = " (its process has ended: the next `kablate run` resumes it from its checkpoint)"
+            gone = " (its process has ended: the next claim or run resumes it from its checkpoint)"
         lines.append(
             f"  running {entry['variant']}{seed} on {entry['worker'] or '?'} for "
             f"{duration(entry['seconds'] or 0)}{gone}"
