@@ -52,7 +52,29 @@ def test_a_step_that_cannot_fit_is_refused_naming_variant_and_sizes(
         pf.check_memory(catalog, n_workers=4)
     message = str(info.value)
     assert str(tiny_sweep) in message and "variant stem-5 at batch size 64" in message
-    assert "for 4 workers" in message and "run fewer --workers" in message
+    assert "for 4 worker processes" in message and "run fewer --workers" in message
+
+
+def test_each_worker_process_is_counted_with_its_own_copy_of_the_data(
+    tiny_sweep, tmp_path, monkeypatch
+):
+    # Each worker process prepares the data for itself (pool.worker_main); this process's own
+    # copy is allocated already, so one worker, which trains here, needs only its step.
+    catalog = build_catalog(load_sweep(tiny_sweep))
+    step = pf.step_bytes(pf.heaviest(catalog), catalog.sweep.recipe.batch_size)
+    data = 300 * 1024 * 1024  # a prepared dataset of 300 MiB
+    need = 2 * (step + data)
+    fake_meminfo(tmp_path, monkeypatch, -(-need // 1024))  # /proc/meminfo counts in kB
+    pf.check_memory(catalog, n_workers=2, data_bytes=data)
+    fake_meminfo(tmp_path, monkeypatch, (need - 1) // 1024)
+    with pytest.raises(
+        UsageError,
+        match=r"for 2 worker processes, each with its copy of the "
+        r"data: 300 MiB",
+    ):
+        pf.check_memory(catalog, n_workers=2, data_bytes=data)
+    fake_meminfo(tmp_path, monkeypatch, -(-step // 1024))
+    pf.check_memory(catalog, n_workers=1, data_bytes=data)
 
 
 def test_one_step_really_trains_and_evaluates(tiny_sweep, monkeypatch):

@@ -68,6 +68,10 @@ def check_memory(catalog: Catalog, n_workers: int = 1, data_bytes: int = 0) -> N
     """Refuse a sweep whose most expensive training step, in every worker at once, would not
     fit the machine's available memory.
 
+    ``data_bytes`` is the prepared data this process holds already (it is out of
+    ``MemAvailable`` by now). One worker trains in this process and needs no other copy; each
+    of several worker processes prepares its own (`pool.worker_main`), so they need one each.
+
     Raises:
         UsageError: naming the variant, the estimate and what is available.
     """
@@ -77,9 +81,14 @@ def check_memory(catalog: Catalog, n_workers: int = 1, data_bytes: int = 0) -> N
     item = heaviest(catalog)
     batch_size = catalog.sweep.recipe.batch_size
     one = step_bytes(item, batch_size)
-    need = n_workers * one + data_bytes
+    need = one if n_workers <= 1 else n_workers * (one + data_bytes)
     if need > free:
-        workers = f" ({gib(need)} for {n_workers} workers and the data)" if n_workers > 1 else ""
+        workers = (
+            f" ({gib(need)} for {n_workers} worker processes, each with its copy of the data: "
+            f"{gib(data_bytes)})"
+            if n_workers > 1
+            else ""
+        )
         raise UsageError(
             f"{catalog.sweep.source}: one training step of variant {item.name} at batch size "
             f"{batch_size} needs about {gib(one)}{workers}, but this machine has "
