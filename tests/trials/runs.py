@@ -148,14 +148,14 @@ def wait_for_checkpointed_trial(results: Path, storage: str | None, proc) -> tup
 
 
 def run_at_once(target, arg_tuples: list[tuple]) -> None:
-    """Run ``target(*args, go)`` in one spawned process per tuple of ``arg_tuples``, released
-    together by the event ``go`` once every process has started; fail unless each exits 0."""
+    """Run ``target(*args, go)`` in one spawned process per tuple of ``arg_tuples``; each calls
+    ``go.wait()`` once it is ready (imports done, study open), and ``go``, a barrier of all of
+    them, lets them go together only when every one is. Fail unless each exits 0."""
     ctx = mp.get_context("spawn")
-    go = ctx.Event()
+    go = ctx.Barrier(len(arg_tuples))
     procs = [ctx.Process(target=target, args=(*args, go)) for args in arg_tuples]
     for proc in procs:
         proc.start()
-    go.set()
     for proc in procs:
         proc.join(timeout=240)
         assert proc.exitcode == 0
